@@ -1,0 +1,182 @@
+"""Polynomial designs: terms, names, expansion on a well-scaled basis.
+
+The engine forms powers of *scaled* inputs ``u = (x - centre) / half_range``
+(so ``|u| <= 1`` on the data and powers stay near 1 in size) and keeps an exact
+linear map between that basis and the raw-power terms a user reads
+(``x``, ``x^2``, ``x1*x2``...). Terms are ordered by total degree, so the
+terms of every lower order form a leading block.
+"""
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+from fractions import Fraction
+from math import comb
+
+import numpy as np
+
+
+def polynomial_terms(n_inputs: int, max_order: int, interactions: bool = False) -> np.ndarray:
+    """Exponent rows of every term up to ``max_order``, ordered by degree.
+
+    Parameters
+    ----------
+    n_inputs : number of inputs.
+    max_order : highest total degree.
+    interactions : if False only per-input powers ``x_j^k``; if True every
+        monomial of total degree up to ``max_order``.
+
+    Returns
+    -------
+    (P, n_inputs) int array; row t holds the exponent of each input in term t.
+    """
+    rows: list[tuple[int, ...]] = []
+    for degree in range(1, max_order + 1):
+        if interactions:
+            # same order as scikit-learn's PolynomialFeatures within a degree
+            for combo in itertools.combinations_with_replacement(range(n_inputs), degree):
+                e = [0] * n_inputs
+                for j in combo:
+                    e[j] += 1
+                rows.append(tuple(e))
+        else:
+            for j in range(n_inputs):
+                e = [0] * n_inputs
+                e[j] = degree
+                rows.append(tuple(e))
+    return np.array(rows, dtype=np.int64).reshape(len(rows), n_inputs)
+
+
+def term_name(exponents: np.ndarray, names: tuple[str, ...] | list[str]) -> str:
+    """Readable name of one term: ``x``, ``x^2``, ``x1*x2^3``."""
+    parts = []
+    for name, e in zip(names, exponents):
+        if e == 1:
+            parts.append(str(name))
+        elif e > 1:
+            parts.append(f"{name}^{int(e)}")
+    return "*".join(parts) if parts else "intercept"
+
+
+@dataclass(frozen=True)
+class PolynomialBasis:
+    """Terms up to ``max_order`` on inputs scaled by fixed centres and half-ranges.
+
+    The centres and half-ranges are a numerical device only: every reported
+    quantity is in the basis of raw powers, standardised on the training rows
+    exactly as scikit-learn's ``PolynomialFeatures -> StandardScaler`` does.
+    """
+
+    input_names: tuple[str, ...]
+    max_order: int
+    interactions: bool
+    centre: np.ndarray
+    half_range: np.ndarray
+    terms: np.ndarray
+
+    @classmethod
+    def fit(cls, X: np.ndarray, input_names, max_order: int,
+            interactions: bool = False) -> "PolynomialBasis":
+        """Choose centre and half-range of each input from all rows ``X``."""
+        X = np.asarray(X, dtype=float)
+        lo = X.min(axis=0) if len(X) else np.zeros(X.shape[1])
+        hi = X.max(axis=0) if len(X) else np.ones(X.shape[1])
+        centre = (lo + hi) / 2.0
+        half = (hi - lo) / 2.0
+        half = np.where(half > 0, half, np.where(np.abs(centre) > 0, np.abs(centre), 1.0))
+        return cls(tuple(input_names), int(max_order), bool(interactions), centre, half,
+                   polynomial_terms(X.shape[1], int(max_order), interactions))
+
+    @property
+    def n_terms(self) -> int:
+        return int(self.terms.shape[0])
+
+    def n_terms_at(self, order: int) -> int:
+        """Number of terms (without intercept) of the model of ``order``."""
+        return int(np.sum(self.terms.sum(axis=1) <= order))
+
+    def names(self, order: int | None = None) -> list[str]:
+        p = self.n_terms if order is None else self.n_terms_at(order)
+        return [term_name(t, self.input_names) for t in self.terms[:p]]
+
+    def scale(self, X: np.ndarray) -> np.ndarray:
+        return (np.asarray(X, dtype=float) - self.centre) / self.half_range
+
+    def expand_scaled(self, U: np.ndarray, out: np.ndarray | None = None,
+                      order: int | None = None) -> np.ndarray:
+        """Terms of scaled inputs ``U`` (n, d) -> (n, P) in Fortran order."""
+        p = self.n_terms if order is None else self.n_terms_at(order)
+        n, d = U.shape
+        if out is None:
+            out = np.empty((n, p), order="F")
+        if p == 0:
+            return out
+        if not self.interactions:
+            # per-input powers: column (k-1)*d + j is u_j^k
+            out[:, :d] = U
+            for k in range(2, (p // d) + 1):
+                np.multiply(out[:, (k - 2) * d:(k - 1) * d], U, out=out[:, (k - 1) * d:k * d])
+            return out
+        top = int(self.terms[:p].sum(axis=1).max())
+        powers = [[None] * (top + 1) for _ in range(d)]
+        for j in range(d):
+            powers[j][1] = U[:, j]
+            for k in range(2, top + 1):
+                powers[j][k] = powers[j][k - 1] * U[:, j]
+        for t in range(p):
+            col = None
+            for j, e in enumerate(self.terms[t]):
+                if e:
+                    col = powers[j][e] if col is None else col * powers[j][e]
+            out[:, t] = col
+        return out
+
+    def expand(self, X: np.ndarray, order: int | None = None) -> np.ndarray:
+        """Terms of raw inputs, on the scaled basis."""
+        return self.expand_scaled(self.scale(X), order=order)
+
+    def raw_map(self, order: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Map from scaled-basis terms to raw-power terms, in floats.
+
+        Returns ``(A, a0)`` with ``raw_terms = scaled_terms @ A.T + a0`` for
+        every row. ``A`` is lower triangular in the degree ordering, so the
+        map of a lower order is the leading block.
+        """
+        p = self.n_terms if order is None else self.n_terms_at(order)
+        entries, a0 = _raw_map_entries(self.terms[:p], self.centre, self.half_range)
+        A = np.zeros((p, p))
+        for (i, j), v in entries.items():
+            A[i, j] = float(v)
+        return A, np.array([float(v) for v in a0], dtype=float)
+
+    def raw_map_exact(self, order: int | None = None):
+        """As `raw_map`, exact: ``({(i, j): Fraction}, [Fraction])``."""
+        p = self.n_terms if order is None else self.n_terms_at(order)
+        return _raw_map_entries(self.terms[:p], self.centre, self.half_range)
+
+
+def _raw_map_entries(terms: np.ndarray, centre: np.ndarray, half: np.ndarray):
+    p, d = terms.shape
+    index = {tuple(int(v) for v in t): i for i, t in enumerate(terms)}
+    c = [Fraction(float(v)) for v in centre]
+    s = [Fraction(float(v)) for v in half]
+    entries: dict[tuple[int, int], Fraction] = {}
+    a0 = [Fraction(0)] * p
+    for i, t in enumerate(terms):
+        nz = [j for j in range(d) if t[j]]
+        for ks in itertools.product(*[range(int(t[j]) + 1) for j in nz]):
+            coef = Fraction(1)
+            for j, kj in zip(nz, ks):
+                e = int(t[j])
+                coef *= comb(e, kj) * s[j] ** kj * c[j] ** (e - kj)
+            if coef == 0:
+                continue
+            if sum(ks) == 0:
+                a0[i] += coef
+            else:
+                k = [0] * d
+                for j, kj in zip(nz, ks):
+                    k[j] = kj
+                key = (i, index[tuple(k)])
+                entries[key] = entries.get(key, Fraction(0)) + coef
+    return entries, a0

@@ -1,0 +1,176 @@
+"""Sufficient statistics: counts, means and centred co-moment matrices.
+
+Every error in a sweep follows from these per-piece summaries, so the rows are
+read once. Summaries of disjoint row sets combine exactly (pairwise update),
+which lets the same code run on chunks of a file, on partitions of a cluster
+or on the pieces that make up a training set.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable, Iterable
+
+import numpy as np
+
+
+@dataclass
+class Moments:
+    """Summaries of ``L`` disjoint row sets over ``q`` columns.
+
+    Attributes
+    ----------
+    n : (L,) row counts.
+    mean : (L, q) column means.
+    comoment : (L, q, q) centred cross-products ``sum (r - mean)(r - mean)'``.
+    """
+
+    n: np.ndarray
+    mean: np.ndarray
+    comoment: np.ndarray
+
+    @classmethod
+    def empty(cls, n_sets: int, q: int) -> "Moments":
+        return cls(np.zeros(n_sets), np.zeros((n_sets, q)), np.zeros((n_sets, q, q)))
+
+    @property
+    def n_sets(self) -> int:
+        return int(self.n.shape[0])
+
+    def take(self, i: int) -> "Moments":
+        return Moments(self.n[i:i + 1].copy(), self.mean[i:i + 1].copy(),
+                       self.comoment[i:i + 1].copy())
+
+    def block(self, cols: int) -> "Moments":
+        """The leading ``cols`` columns plus the last one (the target)."""
+        idx = np.r_[np.arange(cols), self.mean.shape[1] - 1]
+        return Moments(self.n, self.mean[:, idx], self.comoment[:, idx][:, :, idx])
+
+
+def merge_into(acc: Moments, i: int, n_b: float, mean_b: np.ndarray, M_b: np.ndarray) -> None:
+    """Add one summary into set ``i`` of ``acc`` in place (pairwise update)."""
+    n_a = acc.n[i]
+    if n_b == 0:
+        return
+    if n_a == 0:
+        acc.n[i] = n_b
+        acc.mean[i] = mean_b
+        acc.comoment[i] = M_b
+        return
+    n = n_a + n_b
+    d = mean_b - acc.mean[i]
+    acc.comoment[i] += M_b + (n_a * n_b / n) * np.outer(d, d)
+    acc.mean[i] += d * (n_b / n)
+    acc.n[i] = n
+
+
+def combine(parts: Moments, weights: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
+    """Combine the sets with ``weights`` 1 (selected) into one summary.
+
+    Parameters
+    ----------
+    parts : summaries of disjoint row sets.
+    weights : (L,) 0/1 selector.
+
+    Returns
+    -------
+    (n, mean, comoment) of the union.
+    """
+    sel = np.flatnonzero(np.asarray(weights) > 0)
+    sel = sel[parts.n[sel] > 0]
+    if sel.size == 0:
+        q = parts.mean.shape[1]
+        return 0.0, np.zeros(q), np.zeros((q, q))
+    n_s = parts.n[sel]
+    n = float(n_s.sum())
+    mean = (n_s[:, None] * parts.mean[sel]).sum(axis=0) / n
+    dev = parts.mean[sel] - mean
+    M = parts.comoment[sel].sum(axis=0) + (dev * n_s[:, None]).T @ dev
+    return n, mean, M
+
+
+def chunk_moments(R: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
+    """Count, mean and centred co-moment of the rows of one block ``R``."""
+    n = R.shape[0]
+    mean = R.mean(axis=0)
+    C = R - mean
+    return float(n), mean, C.T @ C
+
+
+def accumulate(chunks: Iterable[tuple[np.ndarray, np.ndarray]], n_sets: int, q: int,
+               into: Moments | None = None) -> Moments:
+    """Fold chunks of rows into per-set summaries.
+
+    Parameters
+    ----------
+    chunks : iterable of ``(R, labels)``: ``R`` is an (m, q) block of design
+        columns with the target last, ``labels`` the set of each row
+        (``-1`` = row used by no set).
+    n_sets : number of sets.
+    q : number of columns.
+    into : summaries to add to (updated in place); new ones when None.
+
+    Returns
+    -------
+    The per-set `Moments`.
+    """
+    acc = Moments.empty(n_sets, q) if into is None else into
+    for R, labels in chunks:
+        labels = np.asarray(labels)
+        if R.shape[0] == 0:
+            continue
+        if labels.size and labels[0] == labels[-1] and np.all(labels == labels[0]):
+            if labels[0] >= 0:
+                merge_into(acc, int(labels[0]), *chunk_moments(R))
+            continue
+        order = np.argsort(labels, kind="stable")
+        sl = labels[order]
+        cuts = np.flatnonzero(np.diff(sl)) + 1
+        starts = np.r_[0, cuts]
+        stops = np.r_[cuts, sl.size]
+        for a, b in zip(starts, stops):
+            lab = int(sl[a])
+            if lab < 0:
+                continue
+            merge_into(acc, lab, *chunk_moments(R[order[a:b]]))
+    return acc
+
+
+def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int,
+                   expand: Callable[[np.ndarray, np.ndarray], np.ndarray], n_terms: int,
+                   chunk_rows: int = 32768) -> Moments:
+    """Per-set summaries of ``[terms(U), y]`` from one pass over the rows.
+
+    Rows are grouped by label once, then expanded and summarised chunk by chunk,
+    so the full design is never held in memory.
+
+    Parameters
+    ----------
+    U : (n, d) scaled inputs.
+    y : (n,) target.
+    labels : (n,) set of each row, ``-1`` for rows no set uses.
+    n_sets : number of sets.
+    expand : ``expand(U_chunk, out)`` writes the chunk's terms into ``out``.
+    n_terms : number of terms ``expand`` writes.
+    chunk_rows : rows per chunk.
+    """
+    labels = np.asarray(labels, dtype=np.int64)
+    order = np.argsort(labels, kind="stable")
+    sl = labels[order]
+    Us = U[order]
+    ys = y[order]
+    q = n_terms + 1
+    buf = np.empty((min(chunk_rows, max(len(ys), 1)), q), order="F")
+
+    def chunks():
+        cuts = np.flatnonzero(np.diff(sl)) + 1
+        for a, b in zip(np.r_[0, cuts], np.r_[cuts, sl.size]):
+            if sl[a] < 0:
+                continue
+            for c0 in range(a, b, chunk_rows):
+                c1 = min(c0 + chunk_rows, b)
+                R = buf[:c1 - c0]
+                expand(Us[c0:c1], R[:, :n_terms])
+                R[:, n_terms] = ys[c0:c1]
+                yield R, sl[c0:c1]
+
+    return accumulate(chunks(), n_sets, q)

@@ -1,0 +1,188 @@
+"""Requests: what to sweep and how to validate it."""
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+
+from .errors import InputProblem
+
+SCHEMES = ("kfold", "repeated", "loo", "blocked", "grouped", "holdout", "column")
+
+SCHEME_HELP = {
+    "kfold": "Shuffled k-fold: rows are dealt at random into k folds. Fits rows "
+             "that are independent of each other, with no order in time.",
+    "repeated": "Repeated k-fold: shuffled k-fold run several times with fresh "
+                "shuffles; steadier error estimates for small tables of independent rows.",
+    "loo": "Leave-one-out: every row is held out once (exact, no refits). For "
+           "small tables of independent rows.",
+    "blocked": "Blocked folds: contiguous blocks along the order/time column, with "
+               "a gap of rows dropped from training on each side of the held-out "
+               "block. Use it when neighbouring rows resemble each other (time series, "
+               "sensor logs): shuffling such rows flatters the model.",
+    "grouped": "Grouped k-fold: all rows of a group (batch, subject, site) stay in "
+               "the same fold, so the model is judged on groups it never saw.",
+    "holdout": "Later-period holdout: train on the first part along the order/time "
+               "column and test on the rest: the honest check when the future may "
+               "differ from the past.",
+    "column": "Your own split column: each distinct value is one held-out fold, or "
+              "values train/test (or train/validation) give one split.",
+}
+
+
+@dataclass(frozen=True)
+class SchemeSpec:
+    """How rows are split into training and validation sets.
+
+    Parameters
+    ----------
+    kind : one of ``SCHEMES``.
+    folds : number of folds (kfold, repeated, blocked, grouped).
+    repeats : number of repetitions (repeated).
+    gap : rows dropped from training on each side of a validation block (blocked).
+    holdout_fraction : share of rows, at the end of the order, held out (holdout).
+    order_column : column giving the order of rows in time (blocked, holdout);
+        when absent the row order of the table is used.
+    group_column : column of group labels (grouped).
+    split_column : column of fold labels (column).
+    """
+
+    kind: str = "kfold"
+    folds: int = 5
+    repeats: int = 3
+    gap: int = 0
+    holdout_fraction: float = 0.2
+    order_column: str | None = None
+    group_column: str | None = None
+    split_column: str | None = None
+
+    def validate(self) -> None:
+        if self.kind not in SCHEMES:
+            raise InputProblem(
+                f"Unknown validation scheme '{self.kind}'. Choose one of: {', '.join(SCHEMES)}.",
+                code="bad_scheme")
+        if self.kind in ("kfold", "repeated", "blocked", "grouped") and int(self.folds) < 2:
+            raise InputProblem(f"The number of folds must be at least 2 (got {self.folds}).",
+                               code="bad_scheme")
+        if self.kind == "repeated" and int(self.repeats) < 1:
+            raise InputProblem(f"The number of repeats must be at least 1 (got {self.repeats}).",
+                               code="bad_scheme")
+        if int(self.gap) < 0:
+            raise InputProblem(f"The gap must be zero or more rows (got {self.gap}).",
+                               code="bad_scheme")
+        if self.kind == "holdout" and not (0.0 < float(self.holdout_fraction) < 1.0):
+            raise InputProblem(
+                f"The holdout fraction must lie strictly between 0 and 1 (got {self.holdout_fraction}).",
+                code="bad_scheme")
+        if self.kind == "grouped" and not self.group_column:
+            raise InputProblem("Grouped folds need a group column: choose the column that "
+                               "labels batches, subjects or sites.", code="bad_scheme")
+        if self.kind == "column" and not self.split_column:
+            raise InputProblem("A user split needs a split column: choose the column that "
+                               "holds the fold labels.", code="bad_scheme")
+
+
+def default_penalties(low: float = 1e-4, high: float = 1e3, count: int = 15,
+                      include_zero: bool = True) -> tuple[float, ...]:
+    """Log-spaced ridge penalties from ``low`` to ``high``, with 0 first if asked."""
+    if count < 1:
+        grid: list[float] = []
+    elif count == 1:
+        grid = [float(low)]
+    else:
+        grid = [float(v) for v in np.logspace(np.log10(low), np.log10(high), count)]
+    return tuple(([0.0] if include_zero else []) + grid)
+
+
+@dataclass(frozen=True)
+class SweepSpec:
+    """Everything that defines one sweep; with the data it fixes every number.
+
+    Parameters
+    ----------
+    target : name of the column to predict.
+    inputs : names of the input columns.
+    max_order : highest polynomial order in the sweep (1 = straight line).
+    orders : explicit orders to report (subset of 0..max_order); ``None`` means
+        every order from 0 to ``max_order``. Order 0 is the intercept-only model.
+    interactions : include all products of inputs up to the order, not only
+        per-input powers.
+    penalties : ridge penalties (scikit-learn ``alpha`` on training-standardised
+        terms); 0 means no penalty.
+    scheme : the validation scheme.
+    seed : seed for every random choice (shuffles).
+    learning_sizes : fractions of each training set for the learning curve.
+    """
+
+    target: str
+    inputs: tuple[str, ...]
+    max_order: int = 6
+    orders: tuple[int, ...] | None = None
+    interactions: bool = False
+    penalties: tuple[float, ...] = field(default_factory=default_penalties)
+    scheme: SchemeSpec = field(default_factory=SchemeSpec)
+    seed: int = 0
+    learning_sizes: tuple[float, ...] = (0.1, 0.325, 0.55, 0.775, 1.0)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "inputs", tuple(self.inputs))
+        object.__setattr__(self, "penalties", tuple(float(p) for p in self.penalties))
+        if self.orders is not None:
+            object.__setattr__(self, "orders", tuple(sorted({int(o) for o in self.orders})))
+            object.__setattr__(self, "max_order", max(self.orders) if self.orders else 0)
+
+    def order_list(self) -> list[int]:
+        """The orders to report, ascending."""
+        if self.orders is not None:
+            return list(self.orders)
+        return list(range(0, int(self.max_order) + 1))
+
+    def validate(self) -> None:
+        """Raise `InputProblem` for a request that cannot be run."""
+        self.scheme.validate()
+        if not self.inputs:
+            raise InputProblem("Choose at least one input column.", code="no_inputs")
+        if self.target in self.inputs:
+            raise InputProblem(f"Column '{self.target}' is both the target and an input; "
+                               "remove it from the inputs.", code="target_is_input",
+                               column=self.target)
+        if len(set(self.inputs)) != len(self.inputs):
+            raise InputProblem("An input column is listed twice; list each input once.",
+                               code="duplicate_input")
+        if int(self.max_order) < 0 or int(self.max_order) > 30:
+            raise InputProblem(f"The maximum order must be between 0 and 30 (got {self.max_order}).",
+                               code="bad_order")
+        if self.orders is not None and (not self.orders or min(self.orders) < 0):
+            raise InputProblem("Orders must be whole numbers of 0 or more.", code="bad_order")
+        if not self.penalties:
+            raise InputProblem("Give at least one penalty (0 for none).", code="bad_penalty")
+        for p in self.penalties:
+            if not np.isfinite(p) or p < 0:
+                raise InputProblem(f"Penalties must be finite and 0 or more (got {p}).",
+                                   code="bad_penalty")
+        for f in self.learning_sizes:
+            if not (0.0 < f <= 1.0):
+                raise InputProblem(f"Learning-curve sizes are fractions in (0, 1] (got {f}).",
+                                   code="bad_learning_sizes")
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain-data form, for records and re-runs."""
+        d = asdict(self)
+        d["inputs"] = list(self.inputs)
+        d["penalties"] = list(self.penalties)
+        d["orders"] = list(self.orders) if self.orders is not None else None
+        d["learning_sizes"] = list(self.learning_sizes)
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> "SweepSpec":
+        """Inverse of `to_dict`."""
+        d = dict(d)
+        d["scheme"] = SchemeSpec(**d.get("scheme", {}))
+        d["inputs"] = tuple(d["inputs"])
+        d["penalties"] = tuple(d["penalties"])
+        if d.get("orders") is not None:
+            d["orders"] = tuple(d["orders"])
+        d["learning_sizes"] = tuple(d.get("learning_sizes", (0.1, 0.325, 0.55, 0.775, 1.0)))
+        return cls(**d)

@@ -1,0 +1,359 @@
+"""The sweep: every (order, penalty, fold) cell from per-piece statistics.
+
+One pass over the rows gives per-piece summaries of the highest-order design;
+training and validation summaries of each split are combinations of pieces;
+every lower order is a leading block; one symmetric eigen-decomposition per
+(order, split) serves every penalty. Penalties are scikit-learn ``Ridge``
+``alpha`` on raw-power terms standardised on the training rows, with an
+unpenalised intercept.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from .design import PolynomialBasis
+from .errors import InputProblem
+from .moments import Moments, combine, design_moments
+from .schemes import FoldPlan
+
+Progress = Callable[[float, str], None]
+
+MAX_TERMS = 1500
+_EPS = np.finfo(float).eps
+
+
+# ---------------------------------------------------------------------------
+# private solvers
+# ---------------------------------------------------------------------------
+@dataclass
+class _CellFit:
+    """Fits of one order on one training set, for every penalty."""
+
+    beta_u: np.ndarray      # (p, K) coefficients on the scaled basis
+    w_std: np.ndarray       # (p, K) coefficients on standardised raw terms
+    beta_raw: np.ndarray    # (p, K) coefficients on raw terms
+    intercept_raw: np.ndarray  # (K,)
+    edf: np.ndarray         # (K,) effective degrees of freedom, intercept included
+    # pieces for leverage (leave-one-out)
+    lev_u: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None   # (du, Q, inv_lam)
+    lev_raw: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None  # (d, Q, lam)
+
+
+def _fit_penalties(n_t: float, mean_t: np.ndarray, M_t: np.ndarray, p: int,
+                   A: np.ndarray, a0: np.ndarray, penalties: np.ndarray,
+                   keep_leverage: bool = False) -> _CellFit:
+    """Ridge fits for all penalties from one training summary.
+
+    ``M_t`` and ``mean_t`` cover the first ``p`` scaled terms and the target
+    (last). Penalty 0 is solved on the scaled basis with a rank-tolerant
+    pseudo-inverse; positive penalties on standardised raw terms.
+    """
+    K = penalties.size
+    beta_u = np.zeros((p, K))
+    w_std = np.zeros((p, K))
+    beta_raw = np.zeros((p, K))
+    edf = np.ones(K)
+    fit = _CellFit(beta_u, w_std, beta_raw, np.full(K, mean_t[-1]), edf)
+    if p == 0:
+        return fit
+    Mff = M_t[:p, :p]
+    Mfy = M_t[:p, -1]
+    zero = penalties == 0
+    pos = ~zero
+    A = A[:p, :p]
+    Mraw = A @ Mff @ A.T
+    craw = A @ Mfy
+    d = np.sqrt(np.clip(np.diag(Mraw), 0, None) / n_t)
+    d = np.where(d > 0, d, 1.0)
+    if zero.any():
+        du = np.sqrt(np.clip(np.diag(Mff), 0, None) / n_t)
+        du = np.where(du > 0, du, 1.0)
+        Su = Mff / np.outer(du, du)
+        lam, Q = np.linalg.eigh(Su)
+        tol = max(lam[-1], 0.0) * max(p, 10) * _EPS * 10
+        inv = np.where(lam > tol, 1.0 / np.where(lam > tol, lam, 1.0), 0.0)
+        bu = (Q @ (inv * (Q.T @ (Mfy / du)))) / du
+        beta_u[:, zero] = bu[:, None]
+        edf[zero] = 1.0 + np.count_nonzero(lam > tol)
+        braw = np.linalg.solve(A.T, bu) if p else bu
+        beta_raw[:, zero] = braw[:, None]
+        w_std[:, zero] = (braw * d)[:, None]
+        if keep_leverage:
+            fit.lev_u = (du, Q, inv)
+    if pos.any():
+        S = Mraw / np.outer(d, d)
+        c = craw / d
+        lam, Q = np.linalg.eigh(S)
+        lam = np.clip(lam, 0.0, None)
+        al = penalties[pos]
+        W = Q @ ((Q.T @ c)[:, None] / (lam[:, None] + al[None, :]))
+        w_std[:, pos] = W
+        beta_raw[:, pos] = W / d[:, None]
+        beta_u[:, pos] = A.T @ beta_raw[:, pos]
+        edf[pos] = 1.0 + (lam[:, None] / (lam[:, None] + al[None, :])).sum(axis=0)
+        if keep_leverage:
+            fit.lev_raw = (d, Q, lam)
+    # raw intercept: mean_y - mean(raw terms) . beta_raw
+    mean_raw = A @ mean_t[:p] + a0[:p]
+    fit.intercept_raw = mean_t[-1] - mean_raw @ beta_raw
+    return fit
+
+
+def _sse(n_s: float, mean_s: np.ndarray, M_s: np.ndarray, p: int, mean_t: np.ndarray,
+         beta_u: np.ndarray) -> np.ndarray:
+    """Sum of squared errors on a row set from its summary, for each column of beta."""
+    myy = M_s[-1, -1]
+    if p == 0:
+        off = mean_s[-1] - mean_t[-1]
+        return np.full(beta_u.shape[1], myy + n_s * off * off)
+    Mff = M_s[:p, :p]
+    Mfy = M_s[:p, -1]
+    quad = myy - 2.0 * (Mfy @ beta_u) + np.einsum("ik,ik->k", beta_u, Mff @ beta_u)
+    off = (mean_s[-1] - mean_t[-1]) - (mean_s[:p] - mean_t[:p]) @ beta_u
+    return np.clip(quad + n_s * off * off, 0.0, None)
+
+
+# ---------------------------------------------------------------------------
+# results
+# ---------------------------------------------------------------------------
+@dataclass
+class SweepResult:
+    """Every cell of a sweep, per split, with tables for charting.
+
+    Arrays are indexed ``[order index, penalty index, split]``.
+    """
+
+    orders: list[int]
+    penalties: np.ndarray
+    parameters: np.ndarray            # (O,) terms + intercept
+    term_names: list[list[str]]       # per order
+    n_train: np.ndarray               # (S,)
+    n_valid: np.ndarray               # (S,)
+    train_mse: np.ndarray             # (O, K, S)
+    valid_mse: np.ndarray             # (O, K, S); for leave-one-out S = 1 (pooled)
+    valid_r2: np.ndarray              # (O, K, S)
+    edf: np.ndarray                   # (O, K, S)
+    coef_std: list[np.ndarray]        # per order (K, S, p)
+    coef_raw: list[np.ndarray]        # per order (K, S, p)
+    intercept_raw: np.ndarray         # (O, K, S)
+    loo: bool = False
+    loo_se: np.ndarray | None = None  # (O, K) standard error of the LOO mean
+    plan_description: str = ""
+    notes: list[str] = field(default_factory=list)
+
+    def validation_table(self) -> pd.DataFrame:
+        """One row per (order, penalty): mean errors across splits and their SE."""
+        O, K, S = self.valid_mse.shape
+        rows = []
+        for i, q in enumerate(self.orders):
+            for k, a in enumerate(self.penalties):
+                v = self.valid_mse[i, k]
+                t = self.train_mse[i, k]
+                if self.loo:
+                    v_se = float(self.loo_se[i, k])
+                    t_se = 0.0
+                else:
+                    v_se = float(np.std(v, ddof=1) / np.sqrt(S)) if S > 1 else float("nan")
+                    t_se = float(np.std(t, ddof=1) / np.sqrt(S)) if S > 1 else float("nan")
+                vm = float(np.mean(v))
+                rows.append({
+                    "order": q, "penalty": float(a),
+                    "parameters": int(self.parameters[i]),
+                    "effective_df": float(np.mean(self.edf[i, k])),
+                    "train_mse": float(np.mean(t)), "train_mse_se": t_se,
+                    "validation_mse": vm, "validation_mse_se": v_se,
+                    "validation_rmse": float(np.sqrt(vm)),
+                    "validation_r2": float(np.nanmean(self.valid_r2[i, k]))
+                    if np.isfinite(self.valid_r2[i, k]).any() else float("nan"),
+                    "folds": int(self.n_train.size),
+                })
+        return pd.DataFrame(rows)
+
+    def fold_table(self) -> pd.DataFrame:
+        """Long table: one row per (order, penalty, split)."""
+        O, K, S = self.valid_mse.shape
+        oi, ki, si = np.meshgrid(np.arange(O), np.arange(K), np.arange(S), indexing="ij")
+        return pd.DataFrame({
+            "order": np.asarray(self.orders)[oi.ravel()],
+            "penalty": self.penalties[ki.ravel()],
+            "fold": si.ravel() + 1,
+            "train_mse": self.train_mse.ravel(),
+            "validation_mse": self.valid_mse.ravel(),
+            "validation_r2": self.valid_r2.ravel(),
+            "n_train": self.n_train[si.ravel()],
+            "n_validation": self.n_valid[si.ravel()],
+        })
+
+    def coefficient_table(self) -> pd.DataFrame:
+        """Coefficients per (order, penalty, term): mean and SD across splits.
+
+        ``std_*`` are on training-standardised terms (comparable across terms);
+        ``raw_*`` in original units of the inputs and target.
+        """
+        frames = []
+        for i, q in enumerate(self.orders):
+            names = ["intercept"] + self.term_names[i]
+            cs = self.coef_std[i]   # (K, S, p)
+            cr = self.coef_raw[i]
+            K, S, p = cs.shape
+            std = np.concatenate([np.full((K, S, 1), np.nan), cs], axis=2)
+            raw = np.concatenate([self.intercept_raw[i][:, :, None], cr], axis=2)
+            sd = (lambda a: np.std(a, axis=1, ddof=1)) if S > 1 else (lambda a: np.zeros_like(a[:, 0]))
+            frames.append(pd.DataFrame({
+                "order": q,
+                "penalty": np.repeat(self.penalties, p + 1),
+                "term": np.tile(names, K),
+                "std_mean": std.mean(axis=1).ravel(),
+                "std_sd": sd(std).ravel(),
+                "raw_mean": raw.mean(axis=1).ravel(),
+                "raw_sd": sd(raw).ravel(),
+            }))
+        return pd.concat(frames, ignore_index=True)
+
+
+# ---------------------------------------------------------------------------
+# statistics and public entry points
+# ---------------------------------------------------------------------------
+def piece_statistics(basis: PolynomialBasis, X: np.ndarray, y: np.ndarray,
+                     pieces: np.ndarray, n_pieces: int, chunk_rows: int = 32768) -> Moments:
+    """Per-piece summaries of ``[terms(X), y]`` at the basis's highest order."""
+    U = basis.scale(X)
+    P = basis.n_terms
+    return design_moments(U, np.asarray(y, float), pieces, n_pieces,
+                          lambda Uc, out: basis.expand_scaled(Uc, out=out), P,
+                          chunk_rows=chunk_rows)
+
+
+def check_design_size(basis: PolynomialBasis) -> None:
+    if basis.n_terms > MAX_TERMS:
+        raise InputProblem(
+            f"The highest order gives {basis.n_terms} terms, more than the {MAX_TERMS} this "
+            "tool sweeps. Lower the maximum order, choose fewer inputs, or switch off "
+            "interaction terms.", code="too_many_terms")
+
+
+def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPlan,
+              orders: list[int], penalties, progress: Progress | None = None) -> SweepResult:
+    """Validation errors and coefficients for every (order, penalty, split).
+
+    Parameters
+    ----------
+    X : (n, d) raw inputs; y : (n,) target.
+    basis : the design at the highest order.
+    plan : the splits (`engine.schemes.make_plan`).
+    orders : orders to report (each <= basis.max_order).
+    penalties : ridge penalties, 0 = none.
+    progress : called as ``progress(fraction_done, message)``.
+
+    Returns
+    -------
+    SweepResult
+    """
+    check_design_size(basis)
+    X = np.asarray(X, float)
+    y = np.asarray(y, float)
+    pen = np.asarray(penalties, float)
+    A, a0 = basis.raw_map()
+    if plan.loo:
+        return _loo_sweep(X, y, basis, orders, pen, A, a0, progress, plan.description)
+    O, K, S = len(orders), pen.size, plan.n_splits
+    ps = [basis.n_terms_at(q) for q in orders]
+    res = _empty_result(orders, pen, ps, basis, S, plan.description)
+    stats = []
+    for r, rnd in enumerate(plan.rounds):
+        stats.append(piece_statistics(basis, X, y, rnd.pieces, rnd.n_pieces))
+        if progress:
+            progress(0.5 * (r + 1) / len(plan.rounds), "Summarising rows")
+    for s, (r, j) in enumerate(plan.split_round):
+        rnd = plan.rounds[r]
+        n_t, m_t, M_t = combine(stats[r], rnd.train[j])
+        n_v, m_v, M_v = combine(stats[r], rnd.valid[j])
+        res.n_train[s], res.n_valid[s] = n_t, n_v
+        for i, p in enumerate(ps):
+            idx = np.r_[np.arange(p), M_t.shape[0] - 1]
+            mt, Mt = m_t[idx], M_t[np.ix_(idx, idx)]
+            mv, Mv = m_v[idx], M_v[np.ix_(idx, idx)]
+            fit = _fit_penalties(n_t, mt, Mt, p, A, a0, pen)
+            res.train_mse[i, :, s] = _sse(n_t, mt, Mt, p, mt, fit.beta_u) / n_t
+            sse_v = _sse(n_v, mv, Mv, p, mt, fit.beta_u)
+            res.valid_mse[i, :, s] = sse_v / n_v
+            res.valid_r2[i, :, s] = 1.0 - sse_v / Mv[-1, -1] if Mv[-1, -1] > 0 else np.nan
+            res.edf[i, :, s] = fit.edf
+            res.coef_std[i][:, s, :] = fit.w_std.T
+            res.coef_raw[i][:, s, :] = fit.beta_raw.T
+            res.intercept_raw[i, :, s] = fit.intercept_raw
+        if progress:
+            progress(0.5 + 0.5 * (s + 1) / S, f"Fitting split {s + 1} of {S}")
+    return res
+
+
+def _empty_result(orders, pen, ps, basis, S, desc) -> SweepResult:
+    O, K = len(orders), pen.size
+    return SweepResult(
+        orders=list(orders), penalties=pen, parameters=np.array(ps) + 1,
+        term_names=[basis.names(q) for q in orders],
+        n_train=np.zeros(S), n_valid=np.zeros(S),
+        train_mse=np.zeros((O, K, S)), valid_mse=np.zeros((O, K, S)),
+        valid_r2=np.zeros((O, K, S)), edf=np.zeros((O, K, S)),
+        coef_std=[np.zeros((K, S, p)) for p in ps], coef_raw=[np.zeros((K, S, p)) for p in ps],
+        intercept_raw=np.zeros((O, K, S)), plan_description=desc)
+
+
+def _loo_sweep(X, y, basis, orders, pen, A, a0, progress, desc) -> SweepResult:
+    """Exact leave-one-out from the hat-matrix identity, one fit per order."""
+    n = y.size
+    ps = [basis.n_terms_at(q) for q in orders]
+    res = _empty_result(orders, pen, ps, basis, 1, desc)
+    res.loo = True
+    res.loo_se = np.zeros((len(orders), pen.size))
+    stats = piece_statistics(basis, X, y, np.zeros(n, dtype=np.int64), 1)
+    n_t, m_t, M_t = float(stats.n[0]), stats.mean[0], stats.comoment[0]
+    res.n_train[0], res.n_valid[0] = n - 1, 1
+    F = basis.expand(X)
+    Fc = F - m_t[:-1]
+    yc = y - m_t[-1]
+    sst = M_t[-1, -1]
+    flagged = 0
+    for i, p in enumerate(ps):
+        idx = np.r_[np.arange(p), M_t.shape[0] - 1]
+        mt, Mt = m_t[idx], M_t[np.ix_(idx, idx)]
+        fit = _fit_penalties(n_t, mt, Mt, p, A, a0, pen, keep_leverage=True)
+        E = yc[:, None] - Fc[:, :p] @ fit.beta_u          # (n, K) residuals
+        H = np.full((n, pen.size), 1.0 / n)
+        if p:
+            if fit.lev_u is not None:
+                du, Q, inv = fit.lev_u
+                TQ = (Fc[:, :p] / du) @ Q
+                H[:, pen == 0] += ((TQ * TQ) @ inv)[:, None]
+            if fit.lev_raw is not None:
+                d, Q, lam = fit.lev_raw
+                TQ = ((Fc[:, :p] @ A[:p, :p].T) / d) @ Q
+                H[:, pen > 0] += (TQ * TQ) @ (1.0 / (lam[:, None] + pen[pen > 0][None, :]))
+        denom = 1.0 - H
+        bad = denom < 1e-10
+        flagged = max(flagged, int(bad.any(axis=1).sum()))
+        R = np.where(bad, np.nan, E / np.where(bad, 1.0, denom))
+        sq = R * R
+        res.valid_mse[i, :, 0] = np.nanmean(sq, axis=0)
+        res.loo_se[i] = np.nanstd(sq, axis=0, ddof=1) / np.sqrt(np.sum(~bad, axis=0))
+        res.valid_r2[i, :, 0] = 1.0 - np.nansum(sq, axis=0) / sst if sst > 0 else np.nan
+        res.train_mse[i, :, 0] = np.mean(E * E, axis=0)
+        res.edf[i, :, 0] = fit.edf
+        res.coef_std[i][:, 0, :] = fit.w_std.T
+        res.coef_raw[i][:, 0, :] = fit.beta_raw.T
+        res.intercept_raw[i, :, 0] = fit.intercept_raw
+        if progress:
+            progress((i + 1) / len(ps), f"Leave-one-out, order {orders[i]}")
+    if flagged:
+        res.notes.append(f"{flagged} rows have leverage 1 for some model (the model passes "
+                         "through them exactly); their leave-one-out error is undefined and "
+                         "left out of the mean.")
+    if (pen > 0).any():
+        res.notes.append("Leave-one-out with a penalty keeps the standardisation of all rows "
+                         "fixed, as is usual for the closed-form leave-one-out of ridge.")
+    res.notes.append("With leave-one-out the training error shown is that of the fit on all rows.")
+    return res
