@@ -1,0 +1,267 @@
+"""The chosen model fitted on all rows, solved accurately.
+
+Without a penalty the least-squares problem is solved by QR on products of
+Chebyshev polynomials of the scaled inputs (a well-conditioned basis), refined
+with residuals in extended precision, and mapped back to powers of the raw
+inputs in exact rational arithmetic. With a penalty the ridge problem on
+standardised raw terms is solved as an augmented least-squares problem by SVD.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from fractions import Fraction
+from math import comb
+
+import numpy as np
+
+from .design import PolynomialBasis
+from .errors import InputProblem
+
+
+@dataclass
+class FinalModel:
+    """A fitted polynomial model in original units.
+
+    Attributes
+    ----------
+    order, penalty : the cell.
+    input_names, target : column names.
+    terms : names, ``"intercept"`` first.
+    coefficients : raw-unit coefficients matching ``terms``.
+    std_coefficients : coefficients on training-standardised raw terms (no intercept).
+    centre, half_range : the scaling ``u = (x - centre) / half_range``.
+    exponents : (p, d) exponents of each non-intercept term.
+    scaled_intercept, scaled_coefficients : the same model on scaled-input
+        monomials ``u^e``; predictions use these (numerically stable).
+    condition_number : 2-norm condition number of the design of centred,
+        standardised raw terms (scale-free; 1 = orthogonal terms).
+    n_rows, r2, residual_sd, train_mse, effective_df : fit summaries.
+    x_min, x_max : training range of each input.
+    """
+
+    order: int
+    penalty: float
+    input_names: tuple[str, ...]
+    target: str
+    terms: list[str]
+    coefficients: np.ndarray
+    std_coefficients: np.ndarray
+    centre: np.ndarray
+    half_range: np.ndarray
+    exponents: np.ndarray
+    scaled_intercept: float
+    scaled_coefficients: np.ndarray
+    condition_number: float
+    n_rows: int
+    r2: float
+    residual_sd: float
+    train_mse: float
+    effective_df: float
+    x_min: np.ndarray
+    x_max: np.ndarray
+    notes: list[str] = field(default_factory=list)
+
+    def predict(self, X) -> np.ndarray:
+        """Predictions for raw inputs ``X`` of shape (m, d) (or (m,) with one input)."""
+        X = np.asarray(X, dtype=float)
+        if X.ndim == 1:
+            X = X[:, None]
+        if X.shape[1] != len(self.input_names):
+            raise InputProblem(f"Expected {len(self.input_names)} input columns "
+                               f"({', '.join(self.input_names)}), got {X.shape[1]}.",
+                               code="bad_predict_input")
+        U = (X - self.centre) / self.half_range
+        out = np.full(X.shape[0], self.scaled_intercept)
+        for e, b in zip(self.exponents, self.scaled_coefficients):
+            out += b * np.prod(U ** e, axis=1)
+        return out
+
+
+# ---------------------------------------------------------------------------
+# exact polynomial algebra on {multi-index: Fraction}
+# ---------------------------------------------------------------------------
+def _chebyshev_table(k_max: int) -> list[list[int]]:
+    """Integer monomial coefficients of T_0..T_k_max."""
+    T = [[1], [0, 1]]
+    for k in range(2, k_max + 1):
+        a = [0] + [2 * c for c in T[k - 1]]
+        b = T[k - 2] + [0] * (len(a) - len(T[k - 2]))
+        T.append([x - y for x, y in zip(a, b)])
+    return T[:k_max + 1]
+
+
+def _chebyshev_to_monomials(exponents: np.ndarray, g: list[Fraction]) -> dict:
+    """sum_t g_t prod_j T_{e_tj}(u_j)  ->  {multi-index of u: coefficient}."""
+    d = exponents.shape[1]
+    T = _chebyshev_table(int(exponents.max()) if exponents.size else 1)
+    out: dict[tuple, Fraction] = {}
+    for e, gt in zip(exponents, g):
+        poly = {tuple([0] * d): Fraction(gt)}
+        for j in range(d):
+            if e[j] == 0:
+                continue
+            new = {}
+            for k, c in poly.items():
+                for m, t in enumerate(T[int(e[j])]):
+                    if t:
+                        kk = list(k)
+                        kk[j] += m
+                        kk = tuple(kk)
+                        new[kk] = new.get(kk, Fraction(0)) + c * t
+            poly = new
+        for k, c in poly.items():
+            out[k] = out.get(k, Fraction(0)) + c
+    return out
+
+
+def _substitute(poly: dict, scale: list[Fraction], shift: list[Fraction]) -> dict:
+    """Polynomial in v, with v_j = scale_j * w_j + shift_j  ->  polynomial in w."""
+    out: dict[tuple, Fraction] = {}
+    for k, c in poly.items():
+        parts = {(): c}
+        for j, e in enumerate(k):
+            new = {}
+            for m in range(e + 1):
+                f = comb(e, m) * scale[j] ** m * shift[j] ** (e - m)
+                if f == 0:
+                    continue
+                for kk, cc in parts.items():
+                    key = kk + (m,)
+                    new[key] = new.get(key, Fraction(0)) + cc * f
+            parts = new
+        for kk, cc in parts.items():
+            out[kk] = out.get(kk, Fraction(0)) + cc
+    return out
+
+
+def _chebyshev_design(U: np.ndarray, exponents: np.ndarray, dtype=float) -> np.ndarray:
+    n, d = U.shape
+    U = U.astype(dtype)
+    kmax = int(exponents.max()) if exponents.size else 0
+    Tj = []
+    for j in range(d):
+        cols = [np.ones(n, dtype=dtype), U[:, j]]
+        for k in range(2, kmax + 1):
+            cols.append(2 * U[:, j] * cols[k - 1] - cols[k - 2])
+        Tj.append(cols)
+    V = np.ones((n, exponents.shape[0] + 1), dtype=dtype)
+    for t, e in enumerate(exponents):
+        for j in range(d):
+            if e[j]:
+                V[:, t + 1] *= Tj[j][int(e[j])]
+    return V
+
+
+def _lstsq_refined(V: np.ndarray, y: np.ndarray, V_ext: np.ndarray, y_ext: np.ndarray,
+                   steps: int = 3) -> tuple[np.ndarray, int]:
+    """Least squares by QR on column-scaled V, refined with extended-precision residuals."""
+    norms = np.linalg.norm(V, axis=0)
+    norms = np.where(norms > 0, norms, 1.0)
+    Vs = V / norms
+    Q, R = np.linalg.qr(Vs)
+    diag = np.abs(np.diag(R))
+    rank = int(np.sum(diag > diag.max() * max(V.shape) * np.finfo(float).eps))
+    if rank < V.shape[1]:
+        g, *_ = np.linalg.lstsq(Vs, y, rcond=None)
+        return g / norms, rank
+    g = np.linalg.solve(R, Q.T @ y)
+    for _ in range(steps):
+        r = (y_ext - V_ext @ (g / norms).astype(V_ext.dtype)).astype(float)
+        g = g + np.linalg.solve(R, Q.T @ r)
+    return g / norms, rank
+
+
+# ---------------------------------------------------------------------------
+# public entry point
+# ---------------------------------------------------------------------------
+def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: float = 0.0,
+              interactions: bool = False, target: str = "y",
+              basis: PolynomialBasis | None = None) -> FinalModel:
+    """Fit the model of ``order`` and ``penalty`` on all rows.
+
+    Parameters
+    ----------
+    X : (n, d) raw inputs; y : (n,) target.
+    input_names : names of the inputs.
+    order : polynomial order (0 = intercept only).
+    penalty : ridge ``alpha`` on standardised raw terms (0 = least squares).
+    interactions : include products of inputs.
+    target : name of the target, for reports.
+    basis : scaling to use; fitted on ``X`` when None.
+
+    Returns
+    -------
+    FinalModel
+    """
+    X = np.asarray(X, dtype=float)
+    if X.ndim == 1:
+        X = X[:, None]
+    y = np.asarray(y, dtype=float)
+    n, d = X.shape
+    if basis is None or basis.max_order < order:
+        basis = PolynomialBasis.fit(X, input_names, order, interactions)
+    p = basis.n_terms_at(order)
+    E = basis.terms[:p]
+    U = basis.scale(X)
+    scale_u = [Fraction(1) / Fraction(float(s)) for s in basis.half_range]
+    shift_u = [-Fraction(float(c)) / Fraction(float(s)) for c, s in zip(basis.centre, basis.half_range)]
+    notes: list[str] = []
+    # standardised raw-term design, for the condition number and the ridge solve
+    A, a0 = basis.raw_map(order)
+    Fu = basis.expand_scaled(U, order=order) if p else np.zeros((n, 0))
+    raw = Fu @ A.T + a0 if p else Fu
+    raw_mean = raw.mean(axis=0) if p else np.zeros(0)
+    dsd = raw.std(axis=0) if p else np.zeros(0)
+    dsd_safe = np.where(dsd > 0, dsd, 1.0)
+    Tstd = (raw - raw_mean) / dsd_safe if p else raw
+    if p:
+        sv = np.linalg.svd(Tstd, compute_uv=False)
+        cond = float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf")
+    else:
+        sv = np.zeros(0)
+        cond = 1.0
+    ybar = float(np.mean(y))
+    if penalty == 0 or p == 0:
+        V = _chebyshev_design(U, E)
+        V_ext = _chebyshev_design(U.astype(np.longdouble), E, dtype=np.longdouble)
+        g, rank = _lstsq_refined(V, y, V_ext, y.astype(np.longdouble))
+        if rank < p + 1:
+            notes.append(f"The design has rank {rank} for {p + 1} parameters: some terms are "
+                         "exact combinations of others; the minimum-norm solution is reported.")
+        poly_u = _chebyshev_to_monomials(np.vstack([np.zeros((1, d), int), E]),
+                                         [Fraction(float(v)) for v in g])
+        edf = float(min(rank, n))
+    else:
+        Aug = np.vstack([Tstd, np.sqrt(penalty) * np.eye(p)])
+        rhs = np.r_[y - ybar, np.zeros(p)]
+        w, *_ = np.linalg.lstsq(Aug, rhs, rcond=None)
+        beta_raw_f = w / dsd_safe
+        beta_u_f = A.T @ beta_raw_f
+        b0u = ybar - float(Fu.mean(axis=0) @ beta_u_f)
+        poly_u = {tuple([0] * d): Fraction(b0u)}
+        for e, b in zip(E, beta_u_f):
+            poly_u[tuple(int(v) for v in e)] = Fraction(float(b))
+        edf = 1.0 + float(np.sum(sv ** 2 / (sv ** 2 + penalty)))
+    # exact map to raw powers
+    poly_x = _substitute(poly_u, scale_u, shift_u)
+    zero = tuple([0] * d)
+    keys = [tuple(int(v) for v in e) for e in E]
+    coef = np.array([float(poly_x.get(zero, 0))] + [float(poly_x.get(k, 0)) for k in keys])
+    su_int = float(poly_u.get(zero, 0))
+    su = np.array([float(poly_u.get(k, 0)) for k in keys])
+    std_coef = coef[1:] * dsd
+    model = FinalModel(
+        order=int(order), penalty=float(penalty), input_names=tuple(input_names), target=target,
+        terms=["intercept"] + basis.names(order), coefficients=coef, std_coefficients=std_coef,
+        centre=basis.centre.copy(), half_range=basis.half_range.copy(), exponents=E.copy(),
+        scaled_intercept=su_int, scaled_coefficients=su, condition_number=cond, n_rows=n,
+        r2=float("nan"), residual_sd=float("nan"), train_mse=float("nan"), effective_df=edf,
+        x_min=X.min(axis=0), x_max=X.max(axis=0), notes=notes)
+    resid = y - model.predict(X)
+    sse = float(resid @ resid)
+    sst = float(np.sum((y - ybar) ** 2))
+    model.train_mse = sse / n
+    model.r2 = 1.0 - sse / sst if sst > 0 else float("nan")
+    dof = n - edf
+    model.residual_sd = float(np.sqrt(sse / dof)) if dof > 0 else float("nan")
+    return model

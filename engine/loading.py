@@ -1,0 +1,1191 @@
+"""Reading a user's table and preparing the chosen columns for a sweep.
+
+`load_table` turns a file (path, raw bytes or an uploaded file object) into a
+`pandas.DataFrame` plus a `LoadReport` that says what was read and what was
+set aside. `prepare` picks the target and input columns out of such a frame,
+drops rows with missing values (and counts them), and returns plain arrays.
+
+Every problem a user can fix is raised as `InputProblem` with a ``code`` (see
+``ERROR_CODES``); no other exception leaves these two functions for bad input.
+This is the only module of the engine that reads files.
+"""
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import os
+import re
+import unicodedata
+import warnings
+import zipfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, BinaryIO, Iterable, Union
+
+import numpy as np
+import pandas as pd
+
+from .errors import InputProblem
+
+__all__ = [
+    "DEFAULT_MAX_BYTES",
+    "ERROR_CODES",
+    "LoadReport",
+    "LoadedTable",
+    "PreparedData",
+    "load_table",
+    "prepare",
+]
+
+DEFAULT_MAX_BYTES = 200 * 1024 * 1024
+
+#: Codes `load_table` and `prepare` put on the `InputProblem` they raise.
+ERROR_CODES = (
+    "bad_source", "not_found", "too_large", "empty", "undecodable",
+    "unsupported_format", "unreadable", "unknown_sheet", "malformed_rows",
+    "duplicate_columns", "no_rows", "no_numeric", "infinite", "bad_decimal",
+    "no_inputs", "duplicate_input", "target_is_input", "unknown_column",
+    "non_numeric_target", "non_numeric_input", "bad_order_column",
+    "constant_target", "too_few_rows",
+)
+
+Source = Union[str, os.PathLike, bytes, bytearray, memoryview, BinaryIO]
+
+_TEXT_EXTENSIONS = frozenset({".csv", ".tsv", ".txt", ".tab", ".dat", ".psv"})
+_XLSX_EXTENSIONS = frozenset({".xlsx", ".xlsm"})
+_PARQUET_EXTENSIONS = frozenset({".parquet", ".pq"})
+_SUPPORTED_TEXT = "CSV/TSV text (.csv, .tsv, .txt), Excel (.xlsx) or Parquet (.parquet)"
+
+_ZIP_MAGIC = b"PK\x03\x04"
+_PARQUET_MAGIC = b"PAR1"
+
+_DELIMITERS = (",", ";", "\t", "|")
+_DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
+
+#: Cell texts read as "no value" (compared after trimming, ignoring case).
+_MISSING_TOKENS = frozenset({"", "na", "n/a", "nan", "null", "none", "#n/a", "missing"})
+
+#: Share of filled cells that must be numbers for a column to count as numeric.
+NUMERIC_SHARE = 0.9
+
+_COMMA_NUMBER = re.compile(r"^[+-]?\d+,\d+(?:[eE][+-]?\d+)?$")
+_DOT_NUMBER = re.compile(r"^[+-]?\d*\.\d+(?:[eE][+-]?\d+)?$")
+
+
+# ---------------------------------------------------------------------------
+# Results
+# ---------------------------------------------------------------------------
+
+@dataclass
+class LoadReport:
+    """What `load_table` read, and what it set aside.
+
+    Attributes
+    ----------
+    source_name : file name shown to the user.
+    file_format : ``'csv'`` (any delimited text), ``'xlsx'`` or ``'parquet'``.
+    delimiter : field delimiter of a text file; ``None`` for workbooks, Parquet
+        and single-column text.
+    decimal : decimal mark used to read numbers written as text (``'.'`` or ``','``).
+    rows_read : data rows in the table (header excluded).
+    columns_read : columns in the table.
+    numeric_columns : columns usable as target or inputs, in file order.
+    ignored_columns : columns kept in the frame but not usable for modelling.
+    ignored_reasons : a short reason for each ignored column.
+    sha256 : hex SHA-256 of the raw bytes, to tie results to the exact file.
+    size_bytes : size of the raw bytes.
+    notes : plain sentences about anything the user should know.
+    """
+
+    source_name: str
+    file_format: str
+    delimiter: str | None
+    decimal: str
+    rows_read: int
+    columns_read: int
+    numeric_columns: list[str]
+    ignored_columns: list[str]
+    ignored_reasons: dict[str, str]
+    sha256: str
+    size_bytes: int
+    notes: list[str] = field(default_factory=list)
+
+
+@dataclass
+class LoadedTable:
+    """A loaded table: the frame and the report on how it was read.
+
+    Attributes
+    ----------
+    frame : all columns; numeric ones as float64 (cells that were not numbers
+        are NaN), others as read.
+    report : the `LoadReport`.
+    """
+
+    frame: pd.DataFrame
+    report: LoadReport
+
+
+@dataclass
+class PreparedData:
+    """The chosen columns as arrays, with rows that had missing values removed.
+
+    Attributes
+    ----------
+    X : float64 array of shape (n, d), one column per input, in ``inputs`` order.
+    y : float64 array of shape (n,), the target.
+    inputs : names of the input columns.
+    target : name of the target column.
+    order : float64 order values (seconds for dates and times), or ``None``.
+    groups : group labels, or ``None``.
+    split : split labels, or ``None``.
+    row_index : 0-based position in the original frame of each kept row, in
+        the order of the arrays (sorted by the order column when one is given).
+    rows_in : rows in the frame before dropping.
+    rows_dropped : rows removed because a chosen column was missing.
+    drop_counts : rows removed per column; a row is counted under the first
+        chosen column (target, inputs, order, group, split) that is missing in
+        it. Only columns that caused drops are listed.
+    notes : plain sentences about anything the user should know.
+    """
+
+    X: np.ndarray
+    y: np.ndarray
+    inputs: tuple[str, ...]
+    target: str
+    order: np.ndarray | None
+    groups: np.ndarray | None
+    split: np.ndarray | None
+    row_index: np.ndarray
+    rows_in: int
+    rows_dropped: int
+    drop_counts: dict[str, int]
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def n_rows(self) -> int:
+        """Number of rows kept."""
+        return int(self.y.shape[0])
+
+
+# ---------------------------------------------------------------------------
+# Small helpers
+# ---------------------------------------------------------------------------
+
+def _human_size(n: int) -> str:
+    if n < 1024:
+        return f"{n} bytes"
+    if n < 1024 * 1024:
+        return f"{n / 1024:.1f} KB"
+    return f"{n / (1024 * 1024):.1f} MB"
+
+
+def _quote_list(names: Iterable[str], limit: int = 12) -> str:
+    names = list(names)
+    shown = ", ".join(f"'{n}'" for n in names[:limit])
+    if len(names) > limit:
+        shown += f" and {len(names) - limit} more"
+    return shown or "(none)"
+
+
+def _plain_list(names: Iterable[str], limit: int = 12) -> str:
+    names = list(names)
+    shown = ", ".join(str(n) for n in names[:limit])
+    if len(names) > limit:
+        shown += f" and {len(names) - limit} more"
+    return shown
+
+
+def _plural(n: int, word: str, many: str | None = None) -> str:
+    return f"{n} {word}" if n == 1 else f"{n} {many or word + 's'}"
+
+
+def _short(value: Any, limit: int = 30) -> str:
+    text = str(value)
+    return text if len(text) <= limit else text[: limit - 1] + "…"
+
+
+# ---------------------------------------------------------------------------
+# Getting the bytes
+# ---------------------------------------------------------------------------
+
+def _too_large(name: str, size: int | None, max_bytes: int) -> InputProblem:
+    size_text = (f"is {_human_size(size)}" if size is not None
+                 else "is more than the limit")
+    return InputProblem(
+        f"'{name}' {size_text}; the limit is {_human_size(max_bytes)}. "
+        "Load a smaller file (for example only the columns or rows you need).",
+        code="too_large")
+
+
+def _read_source(source: Source, name: str | None, max_bytes: int) -> tuple[bytes, str]:
+    """Return the raw bytes and the display name of ``source``."""
+    if isinstance(source, (bytes, bytearray, memoryview)):
+        display = name or "uploaded data"
+        raw = bytes(source)
+        if len(raw) > max_bytes:
+            raise _too_large(display, len(raw), max_bytes)
+        return raw, display
+
+    if isinstance(source, (str, os.PathLike)):
+        path = Path(source)
+        display = name or path.name or str(path)
+        try:
+            if not path.is_file():
+                raise InputProblem(
+                    f"No file found at '{path}'. Check the path and the file name.",
+                    code="not_found")
+            size = path.stat().st_size
+            if size > max_bytes:
+                raise _too_large(display, size, max_bytes)
+            with path.open("rb") as handle:
+                raw = handle.read(max_bytes + 1)
+        except InputProblem:
+            raise
+        except (OSError, ValueError) as exc:
+            raise InputProblem(
+                f"Could not open '{display}': {exc}. Check that the file exists and can be read.",
+                code="not_found") from None
+        if len(raw) > max_bytes:
+            raise _too_large(display, None, max_bytes)
+        return raw, display
+
+    reader = getattr(source, "read", None)
+    if reader is None:
+        raise InputProblem(
+            f"Cannot read data from a {type(source).__name__}; give a file path, "
+            "the file's bytes or an open binary file.", code="bad_source")
+    attr_name = getattr(source, "name", None)
+    display = name or (os.path.basename(str(attr_name)) if attr_name else "uploaded data")
+    try:
+        size = getattr(source, "size", None)
+        if hasattr(source, "seek"):
+            try:
+                source.seek(0)
+                if not isinstance(size, int):
+                    source.seek(0, io.SEEK_END)
+                    size = source.tell()
+                    source.seek(0)
+            except (OSError, ValueError, AttributeError):
+                pass
+        if isinstance(size, int) and size > max_bytes:
+            raise _too_large(display, size, max_bytes)
+        raw = reader(max_bytes + 1)
+    except InputProblem:
+        raise
+    except Exception as exc:  # any failure of a foreign file object
+        raise InputProblem(f"Could not read '{display}': {exc}.", code="unreadable") from None
+    if isinstance(raw, str):
+        raise InputProblem(
+            f"'{display}' was opened as text; open it in binary mode ('rb') or pass its bytes.",
+            code="bad_source")
+    if not isinstance(raw, (bytes, bytearray, memoryview)):
+        raise InputProblem(f"Reading '{display}' did not give bytes.", code="bad_source")
+    raw = bytes(raw)
+    if len(raw) > max_bytes:
+        raise _too_large(display, None, max_bytes)
+    return raw, display
+
+
+def _choose_format(raw: bytes, display: str) -> tuple[str, list[str]]:
+    """Pick 'csv', 'xlsx' or 'parquet' from the name, or the content when no extension."""
+    notes: list[str] = []
+    ext = Path(display).suffix.lower()
+    magic_format = ("xlsx" if raw.startswith(_ZIP_MAGIC)
+                    else "parquet" if raw.startswith(_PARQUET_MAGIC) else None)
+    if ext in _XLSX_EXTENSIONS:
+        return "xlsx", notes
+    if ext in _PARQUET_EXTENSIONS:
+        return "parquet", notes
+    if ext in _TEXT_EXTENSIONS or ext == "" or ext[1:].isdigit():
+        if magic_format is not None:
+            if ext:
+                label = "an Excel workbook" if magic_format == "xlsx" else "Parquet data"
+                notes.append(f"'{display}' is named like a text file but holds {label}; "
+                             "it was read as such.")
+            return magic_format, notes
+        return "csv", notes
+    if ext == ".xls":
+        raise InputProblem(
+            f"'{display}' is an old-style Excel file (.xls), which is not supported. "
+            "Open it in your spreadsheet program and save it as .xlsx or CSV.",
+            code="unsupported_format")
+    raise InputProblem(
+        f"'{display}' has the extension '{ext}', which is not a supported table format. "
+        f"Save the data as {_SUPPORTED_TEXT}.", code="unsupported_format")
+
+
+# ---------------------------------------------------------------------------
+# Text decoding and delimiter detection
+# ---------------------------------------------------------------------------
+
+def _control_share(text: str) -> float:
+    """Share of characters that are control or unassigned (tab, CR, LF, FF excepted)."""
+    if not text:
+        return 0.0
+    sample = text[:200_000]
+    bad = 0
+    for ch in sample:
+        if ch in "\t\r\n\x0c\x1a":
+            continue
+        if unicodedata.category(ch) in ("Cc", "Cs", "Co", "Cn"):
+            bad += 1
+    return bad / len(sample)
+
+
+def _not_text(display: str, detail: str) -> InputProblem:
+    return InputProblem(
+        f"'{display}' does not look like a text table: {detail}. If it is a spreadsheet, "
+        "give it the .xlsx extension; otherwise export the data as CSV in UTF-8.",
+        code="undecodable")
+
+
+def _decode(raw: bytes, display: str) -> tuple[str, list[str]]:
+    """Decode text bytes; raise InputProblem('undecodable') for binary content."""
+    notes: list[str] = []
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        try:
+            text = raw.decode("utf-16")
+        except UnicodeDecodeError:
+            raise _not_text(display, "it starts like UTF-16 text but does not decode as such") from None
+        notes.append(f"'{display}' was read as UTF-16 text.")
+    else:
+        if b"\x00" in raw:
+            raise _not_text(display, "it contains NUL bytes (binary data, or text saved "
+                                     "as UTF-16 without a byte-order mark)")
+        try:
+            text = raw.decode("utf-8-sig")
+        except UnicodeDecodeError:
+            text = ""
+            for encoding, label in (("cp1252", "Windows-1252"), ("latin-1", "Latin-1")):
+                try:
+                    candidate = raw.decode(encoding)
+                except UnicodeDecodeError:
+                    continue
+                non_ascii = sum(1 for ch in candidate[:200_000] if ord(ch) > 127)
+                if (_control_share(candidate) <= 0.001
+                        and non_ascii <= 0.3 * max(1, min(len(candidate), 200_000))):
+                    text = candidate
+                    notes.append(f"'{display}' is not UTF-8; it was read as {label} text.")
+                    break
+            if not text:
+                raise _not_text(display, "its bytes are neither UTF-8 nor Windows-1252 text") from None
+    if "\x00" in text or _control_share(text) > 0.001:
+        raise _not_text(display, "it contains control characters that do not belong in text")
+    return text, notes
+
+
+def _sample_lines(text: str, limit: int = 50) -> list[str]:
+    sample = text[:65536]
+    lines = sample.splitlines()
+    if len(text) > len(sample) and lines:
+        lines = lines[:-1]  # the last line of the sample may be cut off
+    return [ln for ln in lines if ln.strip()][:limit]
+
+
+def _field_count(line: str, delimiter: str) -> int:
+    try:
+        return len(next(csv.reader([line], delimiter=delimiter)))
+    except (csv.Error, StopIteration):
+        return line.count(delimiter) + 1
+
+
+def _consistent(lines: list[str], delimiter: str) -> bool:
+    counts = [_field_count(ln, delimiter) for ln in lines]
+    if not counts or counts[0] < 2:
+        return False
+    agree = sum(1 for c in counts if c == counts[0])
+    return agree >= 0.8 * len(counts)
+
+
+def _detect_delimiter(text: str, decimal: str) -> str | None:
+    """Find the field delimiter; ``None`` when the text has a single column."""
+    candidates = (";", "\t") if decimal == "," else _DELIMITERS
+    lines = _sample_lines(text)
+    if not lines:
+        return None
+    try:
+        sniffed = csv.Sniffer().sniff("\n".join(lines), delimiters="".join(candidates)).delimiter
+    except csv.Error:
+        sniffed = None
+    if sniffed in candidates and _consistent(lines, sniffed):
+        return sniffed
+    best: tuple[float, int] | None = None
+    chosen: str | None = None
+    for delim in candidates:
+        counts = [_field_count(ln, delim) for ln in lines]
+        if counts[0] < 2:
+            continue
+        agree = sum(1 for c in counts if c == counts[0]) / len(counts)
+        score = (agree, counts[0])
+        if best is None or score > best:
+            best, chosen = score, delim
+    return chosen
+
+
+# ---------------------------------------------------------------------------
+# Column names
+# ---------------------------------------------------------------------------
+
+def _clean_names(raw_names: list[Any], display: str) -> tuple[list[str], list[str]]:
+    """Trim names, refuse duplicates, rename blank ones; return (names, notes)."""
+    names = ["" if (v is None or (isinstance(v, float) and np.isnan(v))) else str(v).strip()
+             for v in raw_names]
+    seen: dict[str, int] = {}
+    dupes: list[str] = []
+    for n in names:
+        if n:
+            seen[n] = seen.get(n, 0) + 1
+            if seen[n] == 2:
+                dupes.append(n)
+    if dupes:
+        raise InputProblem(
+            f"'{display}' has more than one column named {_quote_list(dupes)}. "
+            "Give every column a different name in the header row and load the file again.",
+            code="duplicate_columns", column=dupes[0])
+    taken = set(names)
+    renamed: list[str] = []
+    for i, n in enumerate(names):
+        if not n:
+            new = f"column_{i + 1}"
+            k = 2
+            while new in taken:
+                new = f"column_{i + 1}_{k}"
+                k += 1
+            names[i] = new
+            taken.add(new)
+            renamed.append(new)
+    notes = []
+    if renamed:
+        notes.append(f"{_plural(len(renamed), 'column')} had no name and "
+                     f"{'was' if len(renamed) == 1 else 'were'} named by position: "
+                     f"{_plain_list(renamed)}.")
+    return names, notes
+
+
+# ---------------------------------------------------------------------------
+# Numbers in cells
+# ---------------------------------------------------------------------------
+
+def _is_real_number(v: Any) -> bool:
+    return isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, (bool, np.bool_))
+
+
+def _parse_text_numbers(texts: pd.Series, decimal: str) -> tuple[np.ndarray, np.ndarray]:
+    """Parse strings (NaN allowed) as numbers; return (values, present)."""
+    stripped = texts.astype("string").str.strip()
+    present = ~(stripped.isna() | stripped.str.lower().isin(_MISSING_TOKENS))
+    present_np = present.to_numpy(dtype=bool, na_value=False)
+    if decimal == ",":
+        usable = present & ~stripped.str.contains(".", regex=False).fillna(False).astype(bool)
+        candidate = stripped.str.replace(",", ".", regex=False).where(usable)
+    else:
+        candidate = stripped.where(present)
+    values = pd.to_numeric(candidate.astype(object), errors="coerce")
+    values_np = np.asarray(values, dtype="float64")
+    values_np[~present_np] = np.nan
+    return values_np, present_np
+
+
+def _classify_values(series: pd.Series, decimal: str
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]:
+    """Return (values, present, parsed, kind); kind is 'number', 'text', 'datetime' or 'bool'."""
+    dtype = series.dtype
+    n = len(series)
+    if pd.api.types.is_bool_dtype(dtype):
+        present = series.notna().to_numpy(dtype=bool)
+        return np.full(n, np.nan), present, np.zeros(n, dtype=bool), "bool"
+    if (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_complex_dtype(dtype)):
+        values = series.to_numpy(dtype="float64", na_value=np.nan)
+        present = ~np.isnan(values)
+        return values, present, present.copy(), "number"
+    if pd.api.types.is_datetime64_any_dtype(dtype) or pd.api.types.is_timedelta64_dtype(dtype):
+        present = series.notna().to_numpy(dtype=bool)
+        return np.full(n, np.nan), present, np.zeros(n, dtype=bool), "datetime"
+    if pd.api.types.is_string_dtype(dtype) and not pd.api.types.is_object_dtype(dtype):
+        values, present = _parse_text_numbers(series, decimal)
+        return values, present, ~np.isnan(values), "text"
+    # object columns: a mix of numbers, strings, dates, booleans, None
+    obj = series.to_numpy(dtype=object)
+    values = np.full(n, np.nan)
+    present = np.zeros(n, dtype=bool)
+    is_str = np.zeros(n, dtype=bool)
+    dates = 0
+    bools = 0
+    for i, v in enumerate(obj):
+        if v is None or (isinstance(v, float) and np.isnan(v)) or v is pd.NA or v is pd.NaT:
+            continue
+        if isinstance(v, str):
+            is_str[i] = True
+        elif _is_real_number(v):
+            values[i] = float(v)
+            present[i] = True
+        else:
+            present[i] = True
+            if isinstance(v, (bool, np.bool_)):
+                bools += 1
+            elif hasattr(v, "year") or hasattr(v, "hour"):
+                dates += 1
+    if is_str.any():
+        text_vals, text_present = _parse_text_numbers(pd.Series(obj[is_str], dtype=object), decimal)
+        values[is_str] = text_vals
+        present[is_str] = text_present
+    parsed = present & ~np.isnan(values)
+    n_present = int(present.sum())
+    kind = "text"
+    if n_present and dates == n_present:
+        kind = "datetime"
+    elif n_present and bools == n_present:
+        kind = "bool"
+    return values, present, parsed, kind
+
+
+def _decimal_hint(series: pd.Series, present: np.ndarray, decimal: str) -> str | None:
+    texts = pd.Series(series.to_numpy(dtype=object)[present]).map(
+        lambda v: v.strip() if isinstance(v, str) else "")
+    if texts.empty:
+        return None
+    if decimal == "." and texts.str.match(_COMMA_NUMBER).mean() >= NUMERIC_SHARE:
+        return "its values look like numbers with a decimal comma; load the file with decimal ','"
+    if decimal == "," and texts.str.match(_DOT_NUMBER).mean() >= NUMERIC_SHARE:
+        return "its values look like numbers with a decimal point; load the file with decimal '.'"
+    return None
+
+
+def _build_columns(raw: pd.DataFrame, decimal: str, display: str
+                   ) -> tuple[pd.DataFrame, list[str], list[str], dict[str, str], list[str]]:
+    """Turn raw cells into the final frame; return (frame, numeric, ignored, reasons, notes)."""
+    out: dict[str, Any] = {}
+    numeric: list[str] = []
+    ignored: list[str] = []
+    reasons: dict[str, str] = {}
+    notes: list[str] = []
+    for col in raw.columns:
+        series = raw[col]
+        values, present, parsed, kind = _classify_values(series, decimal)
+        n_present = int(present.sum())
+        n_parsed = int(parsed.sum())
+        if n_present == 0:
+            out[col] = np.full(len(series), np.nan)
+            ignored.append(col)
+            reasons[col] = "no values"
+            notes.append(f"Column '{col}' has no values.")
+            continue
+        if kind == "number" or (kind == "text" and n_parsed >= NUMERIC_SHARE * n_present):
+            inf_rows = np.flatnonzero(np.isinf(values))
+            if inf_rows.size:
+                row = int(inf_rows[0]) + 1
+                raise InputProblem(
+                    f"Column '{col}' in '{display}' holds an infinite value at data row {row} "
+                    f"({_plural(int(inf_rows.size), 'infinite cell')} in all). Replace infinite "
+                    "values with real numbers, or leave those cells empty, and load the file again.",
+                    code="infinite", column=col, row=row)
+            stray = np.flatnonzero(present & ~parsed)
+            if stray.size:
+                first = int(stray[0])
+                notes.append(
+                    f"Column '{col}': {_plural(int(stray.size), 'cell was', 'cells were')} not "
+                    f"a number and {'is' if stray.size == 1 else 'are'} treated as missing "
+                    f"(first at data row {first + 1}: '{_short(series.iloc[first])}').")
+            out[col] = values
+            numeric.append(col)
+            continue
+        ignored.append(col)
+        if kind == "datetime":
+            reasons[col] = "dates or times"
+        elif kind == "bool":
+            reasons[col] = "true/false values"
+        elif n_parsed == 0:
+            reasons[col] = _decimal_hint(series, present, decimal) or "text"
+        else:
+            pct = int(100 * n_parsed / n_present)
+            reasons[col] = (_decimal_hint(series, present, decimal)
+                            or f"only {pct}% of its {n_present} filled cells are numbers "
+                               f"({int(NUMERIC_SHARE * 100)}% needed)")
+        kept = series.copy()
+        if kind == "text":
+            kept = kept.where(present)  # blank and missing-marker cells become missing
+        out[col] = kept.reset_index(drop=True)
+    frame = pd.DataFrame(out, index=pd.RangeIndex(len(raw)))
+    if ignored:
+        notes.append(f"{_plural(len(ignored), 'non-numeric column')} ignored for modelling: "
+                     f"{_plain_list(ignored)}.")
+    return frame, numeric, ignored, reasons, notes
+
+
+# ---------------------------------------------------------------------------
+# Format readers (each returns raw cells with clean names)
+# ---------------------------------------------------------------------------
+
+_LINE_RE = re.compile(r"line (\d+)")
+_ROW_RE = re.compile(r"row (\d+)")
+
+
+def _read_text(raw: bytes, display: str, decimal: str
+               ) -> tuple[pd.DataFrame, str | None, list[str]]:
+    text, notes = _decode(raw, display)
+    if not text.strip():
+        raise InputProblem(f"'{display}' holds only blank space; there is no table in it.",
+                           code="empty")
+    delimiter = _detect_delimiter(text, decimal)
+    if delimiter is None:
+        sample = text[:65536]
+        candidates = (";", "\t") if decimal == "," else _DELIMITERS
+        sep = next((d for d in candidates if d not in sample), candidates[0])
+    else:
+        sep = delimiter
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            cells = pd.read_csv(io.StringIO(text), sep=sep, header=None, dtype=str,
+                                keep_default_na=False, skipinitialspace=True,
+                                skip_blank_lines=True, engine="c", quotechar='"')
+    except pd.errors.EmptyDataError:
+        raise InputProblem(f"'{display}' holds only blank space; there is no table in it.",
+                           code="empty") from None
+    except pd.errors.ParserError as exc:
+        message = str(exc)
+        line: int | None = None
+        m = _LINE_RE.search(message)
+        if m:
+            line = int(m.group(1))
+            detail = message.split("C error:")[-1].strip().rstrip(".")
+            what = (f"line {line} of '{display}' has more fields than the header row "
+                    f"({detail})")
+        else:
+            m = _ROW_RE.search(message)
+            if m:
+                line = int(m.group(1)) + 1
+                what = f"a quoted field starting on line {line} of '{display}' is never closed"
+            else:
+                what = f"'{display}' could not be split into rows and columns ({message})"
+        delim_name = _DELIMITER_NAMES.get(sep, repr(sep))
+        raise InputProblem(
+            f"The rows do not line up: {what}. The file was read with the {delim_name} "
+            "as delimiter. Fix that line (remove extra delimiters, or quote text that "
+            "contains one) and load the file again.",
+            code="malformed_rows", row=line) from None
+    except Exception as exc:  # any other parser failure
+        raise InputProblem(f"'{display}' could not be read as a table: {exc}.",
+                           code="unreadable") from None
+    if cells.shape[0] == 0 or cells.shape[1] == 0:
+        raise InputProblem(f"'{display}' holds only blank space; there is no table in it.",
+                           code="empty")
+    names, name_notes = _clean_names(list(cells.iloc[0]), display)
+    notes.extend(name_notes)
+    body = cells.iloc[1:].reset_index(drop=True)
+    body.columns = names
+    if len(body):
+        short_rows = int(body.iloc[:, -1].isna().sum())
+        if short_rows and len(names) > 1:
+            notes.append(f"{_plural(short_rows, 'row')} had fewer fields than the header; "
+                         "the missing cells are left empty.")
+    header_numbers = pd.to_numeric(pd.Series(names, dtype=object), errors="coerce")
+    if len(names) and header_numbers.notna().all():
+        notes.append("The first row holds only numbers but was read as column names; "
+                     "add a header row if the file has none.")
+    return body, delimiter, notes
+
+
+def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.DataFrame, list[str]]:
+    try:
+        import openpyxl
+    except ImportError:  # pragma: no cover - openpyxl is a requirement
+        raise InputProblem("Reading Excel files needs the openpyxl package; save the sheet "
+                           "as CSV instead.", code="unsupported_format") from None
+    notes: list[str] = []
+    if not zipfile.is_zipfile(io.BytesIO(raw)):
+        raise InputProblem(
+            f"'{display}' is not a valid Excel workbook (it is not a zip archive; it may be "
+            "cut short or be another kind of file with an .xlsx name). Save it again from "
+            "your spreadsheet program, or export it as CSV.", code="unreadable")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            book = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=True)
+    except Exception as exc:
+        raise InputProblem(
+            f"'{display}' could not be opened as an Excel workbook ({type(exc).__name__}: "
+            f"{_short(exc, 120)}). Save it again from your spreadsheet program, or export "
+            "it as CSV.", code="unreadable") from None
+    try:
+        sheets = book.sheetnames
+        if not sheets:
+            raise InputProblem(f"'{display}' has no worksheets.", code="empty")
+        if sheet is None:
+            sheet_name = sheets[0]
+        elif isinstance(sheet, int) and not isinstance(sheet, bool):
+            if not 0 <= sheet < len(sheets):
+                raise InputProblem(
+                    f"'{display}' has {_plural(len(sheets), 'sheet')}; sheet number {sheet} "
+                    f"does not exist (numbers start at 0). Sheets: {_quote_list(sheets)}.",
+                    code="unknown_sheet")
+            sheet_name = sheets[sheet]
+        elif str(sheet) in sheets:
+            sheet_name = str(sheet)
+        else:
+            raise InputProblem(
+                f"'{display}' has no sheet named '{sheet}'. Sheets: {_quote_list(sheets)}.",
+                code="unknown_sheet")
+        ws = book[sheet_name]
+        if not hasattr(ws, "iter_rows"):
+            raise InputProblem(f"Sheet '{sheet_name}' of '{display}' is a chart, not a table; "
+                               "choose a sheet with data.", code="unknown_sheet")
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                rows = [list(r) for r in ws.iter_rows(values_only=True)]
+        except InputProblem:
+            raise
+        except Exception as exc:
+            raise InputProblem(
+                f"Sheet '{sheet_name}' of '{display}' could not be read "
+                f"({type(exc).__name__}: {_short(exc, 120)}). Save the workbook again, or "
+                "export the sheet as CSV.", code="unreadable") from None
+    finally:
+        try:
+            book.close()
+        except Exception:  # pragma: no cover - closing never matters for the result
+            pass
+
+    def blank(v: Any) -> bool:
+        return v is None or (isinstance(v, str) and not v.strip())
+
+    def empty_row(r: list[Any]) -> bool:
+        return all(blank(v) for v in r)
+
+    first = next((i for i, r in enumerate(rows) if not empty_row(r)), None)
+    if first is None:
+        raise InputProblem(f"Sheet '{sheet_name}' of '{display}' is empty; choose the sheet "
+                           "that holds the table.", code="empty")
+    if first:
+        notes.append(f"Skipped {_plural(first, 'empty row')} above the header in sheet '{sheet_name}'.")
+    rows = rows[first:]
+    last = len(rows)
+    while last > 1 and empty_row(rows[last - 1]):
+        last -= 1
+    if last < len(rows):
+        notes.append(f"Skipped {_plural(len(rows) - last, 'empty row')} at the end of sheet "
+                     f"'{sheet_name}'.")
+    rows = rows[:last]
+    width = max(len(r) for r in rows)
+    rows = [r + [None] * (width - len(r)) for r in rows]
+    # drop columns at the right that have neither a name nor any value
+    while width > 1 and all(blank(r[width - 1]) for r in rows):
+        width -= 1
+    rows = [r[:width] for r in rows]
+    names, name_notes = _clean_names(rows[0], display)
+    notes.extend(name_notes)
+    body = pd.DataFrame(rows[1:], columns=names, dtype=object)
+    if sheet is not None or len(sheets) > 1:
+        notes.append(f"Read sheet '{sheet_name}' ({len(sheets)} in the workbook).")
+    return body, notes
+
+
+def _read_parquet(raw: bytes, display: str) -> tuple[pd.DataFrame, list[str]]:
+    try:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+    except ImportError:  # pragma: no cover - pyarrow is a requirement
+        raise InputProblem("Reading Parquet files needs the pyarrow package; save the data "
+                           "as CSV instead.", code="unsupported_format") from None
+    if len(raw) < 12 or not (raw.startswith(_PARQUET_MAGIC) and raw.endswith(_PARQUET_MAGIC)):
+        raise InputProblem(
+            f"'{display}' is not a valid Parquet file (its first or last bytes are wrong; "
+            "it may be cut short or be another kind of file). Write it again, or export "
+            "the data as CSV.", code="unreadable")
+    try:
+        table = pq.read_table(pa.BufferReader(raw))
+    except Exception as exc:
+        raise InputProblem(
+            f"'{display}' could not be read as Parquet ({type(exc).__name__}: "
+            f"{_short(exc, 120)}). Write it again, or export the data as CSV.",
+            code="unreadable") from None
+    names, notes = _clean_names(list(table.column_names), display)
+    if not names:
+        raise InputProblem(f"'{display}' holds no columns.", code="empty")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            frame = table.to_pandas(ignore_metadata=True)
+    except Exception as exc:
+        raise InputProblem(
+            f"The columns of '{display}' could not be converted ({type(exc).__name__}: "
+            f"{_short(exc, 120)}). Store plain numbers and text, or export as CSV.",
+            code="unreadable") from None
+    frame.columns = names
+    return frame.reset_index(drop=True), notes
+
+
+# ---------------------------------------------------------------------------
+# Public: load_table
+# ---------------------------------------------------------------------------
+
+def load_table(source: Source, *, name: str | None = None, decimal: str | None = None,
+               sheet: str | int | None = None,
+               max_bytes: int = DEFAULT_MAX_BYTES) -> LoadedTable:
+    """Read a table from a file, bytes or an uploaded file object.
+
+    Parameters
+    ----------
+    source : path (str or `os.PathLike`), raw bytes, or a binary file-like
+        object with ``read()`` (and optionally ``name``, ``seek``, ``size``).
+    name : file name to show and to choose the format by; needed for bytes.
+        Without an extension the format is recognised from the content.
+    decimal : decimal mark of numbers written as text, ``'.'`` (default) or
+        ``','``. With ``','`` the delimiter must be a semicolon or a tab, and
+        values containing ``'.'`` are not read as numbers.
+    sheet : worksheet name or 0-based number for Excel files; default the first.
+    max_bytes : largest size accepted.
+
+    Returns
+    -------
+    LoadedTable
+        The frame (numeric columns as float64) and its `LoadReport`.
+
+    Raises
+    ------
+    InputProblem
+        For anything wrong with the file; ``code`` is one of ``ERROR_CODES``.
+    """
+    if decimal in (None, "."):
+        dec = "."
+    elif decimal == ",":
+        dec = ","
+    else:
+        raise InputProblem(f"The decimal mark must be '.' or ',' (got {decimal!r}).",
+                           code="bad_decimal")
+    try:
+        limit = int(max_bytes)
+    except (TypeError, ValueError):
+        raise InputProblem(f"The size limit must be a whole number of bytes (got {max_bytes!r}).",
+                           code="bad_source") from None
+    raw, display = _read_source(source, name, limit)
+    if not raw:
+        raise InputProblem(f"'{display}' is empty (0 bytes). Choose the file that holds the data.",
+                           code="empty")
+    digest = hashlib.sha256(raw).hexdigest()
+    file_format, notes = _choose_format(raw, display)
+    delimiter: str | None = None
+    try:
+        if file_format == "csv":
+            cells, delimiter, more = _read_text(raw, display, dec)
+        elif file_format == "xlsx":
+            cells, more = _read_xlsx(raw, display, sheet)
+        else:
+            cells, more = _read_parquet(raw, display)
+        notes.extend(more)
+        frame, numeric, ignored, reasons, col_notes = _build_columns(cells, dec, display)
+    except InputProblem:
+        raise
+    except Exception as exc:  # a reader failed in a way not foreseen above
+        raise InputProblem(
+            f"'{display}' could not be read ({type(exc).__name__}: {_short(exc, 120)}). "
+            "Check that it is a plain table, or export it as CSV.", code="unreadable") from None
+    notes.extend(col_notes)
+
+    if len(frame) == 0:
+        raise InputProblem(
+            f"'{display}' has a header row but no data rows. Add the data, or choose "
+            "another file.", code="no_rows")
+    if frame.shape[1] and all(reasons.get(c) == "no values" for c in frame.columns):
+        raise InputProblem(
+            f"'{display}' has a header row but every data cell is empty.", code="no_rows")
+    if not numeric:
+        why = "; ".join(f"'{c}': {reasons[c]}" for c in ignored[:8])
+        how = (f" It was read with the {_DELIMITER_NAMES.get(delimiter or '', 'no')} "
+               f"delimiter and decimal '{dec}'." if file_format == "csv" else "")
+        raise InputProblem(
+            f"'{display}' has no column of numbers, so there is nothing to model ({why}).{how} "
+            "Check the decimal mark and that the file has a header row with numbers below it.",
+            code="no_numeric")
+    empty_rows = int(frame.isna().all(axis=1).sum())
+    if empty_rows:
+        notes.append(f"{_plural(empty_rows, 'row has', 'rows have')} no values at all.")
+
+    report = LoadReport(
+        source_name=display, file_format=file_format, delimiter=delimiter, decimal=dec,
+        rows_read=int(len(frame)), columns_read=int(frame.shape[1]),
+        numeric_columns=list(numeric), ignored_columns=list(ignored),
+        ignored_reasons=dict(reasons), sha256=digest, size_bytes=len(raw), notes=notes)
+    return LoadedTable(frame=frame, report=report)
+
+
+# ---------------------------------------------------------------------------
+# Public: prepare
+# ---------------------------------------------------------------------------
+
+def _usable_numeric(series: pd.Series) -> bool:
+    dtype = series.dtype
+    return (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)
+            and not pd.api.types.is_complex_dtype(dtype))
+
+
+def _first_non_number(series: pd.Series) -> tuple[int, Any] | None:
+    obj = series.to_numpy(dtype=object)
+    for i, v in enumerate(obj):
+        if v is None or v is pd.NA or v is pd.NaT or (isinstance(v, float) and np.isnan(v)):
+            continue
+        if _is_real_number(v):
+            continue
+        if isinstance(v, str):
+            try:
+                float(v.strip())
+                continue
+            except ValueError:
+                pass
+        return i, v
+    return None
+
+
+def _missing_mask(series: pd.Series) -> np.ndarray:
+    mask = series.isna().to_numpy(dtype=bool)
+    if pd.api.types.is_object_dtype(series.dtype) or pd.api.types.is_string_dtype(series.dtype):
+        blank = series.map(lambda v: isinstance(v, str) and not v.strip())
+        mask |= blank.to_numpy(dtype=bool, na_value=False)
+    return mask
+
+
+def _as_float(series: pd.Series) -> np.ndarray:
+    return series.to_numpy(dtype="float64", na_value=np.nan)
+
+
+def _order_values(frame: pd.DataFrame, col: str, notes: list[str]) -> np.ndarray:
+    series = frame[col]
+    dtype = series.dtype
+    if _usable_numeric(series):
+        return _as_float(series)
+    if pd.api.types.is_timedelta64_dtype(dtype):
+        notes.append(f"Order column '{col}' holds durations; they are used as seconds.")
+        return series.dt.total_seconds().to_numpy(dtype="float64", na_value=np.nan)
+    if pd.api.types.is_datetime64_any_dtype(dtype):
+        stamps = series
+    elif pd.api.types.is_bool_dtype(dtype):
+        raise InputProblem(f"Order column '{col}' holds true/false values; choose a column of "
+                           "numbers, dates or times.", code="bad_order_column", column=col)
+    else:
+        missing = _missing_mask(series)
+        stamps = None
+        for fmt in (None, "mixed"):
+            try:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    attempt = pd.to_datetime(series.where(~missing), errors="coerce",
+                                             format=fmt, utc=True)
+            except (ValueError, TypeError, OverflowError):
+                continue
+            if not (attempt.isna().to_numpy() & ~missing).any():
+                stamps = attempt
+                break
+        if stamps is None:
+            try:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    attempt = pd.to_datetime(series.where(~missing), errors="coerce",
+                                             format="mixed", utc=True)
+                bad = np.flatnonzero(attempt.isna().to_numpy() & ~missing)
+            except (ValueError, TypeError, OverflowError):
+                bad = np.flatnonzero(~missing)
+            row = int(bad[0]) + 1 if bad.size else None
+            where = (f" (data row {row}: '{_short(series.iloc[row - 1])}')" if row else "")
+            raise InputProblem(
+                f"Order column '{col}' holds values that are neither numbers nor dates{where}. "
+                "Choose a column of numbers, dates or times, or fix those cells.",
+                code="bad_order_column", column=col, row=row)
+        notes.append(f"Order column '{col}' was read as dates and times; they are used as "
+                     "seconds since 1970-01-01 (UTC).")
+    if getattr(stamps.dt, "tz", None) is not None:
+        stamps = stamps.dt.tz_convert("UTC").dt.tz_localize(None)
+    if not (pd.api.types.is_object_dtype(dtype) or pd.api.types.is_string_dtype(dtype)):
+        notes.append(f"Order column '{col}' holds dates and times; they are used as "
+                     "seconds since 1970-01-01.")
+    nat = stamps.isna().to_numpy()
+    seconds = (stamps - pd.Timestamp("1970-01-01")).dt.total_seconds().to_numpy(
+        dtype="float64", na_value=np.nan)
+    seconds[nat] = np.nan
+    return seconds
+
+
+def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
+            order_column: str | None = None, group_column: str | None = None,
+            split_column: str | None = None) -> PreparedData:
+    """Pick the target and inputs, drop rows with missing values, return arrays.
+
+    Parameters
+    ----------
+    frame : the table, usually ``load_table(...).frame``.
+    target : name of the numeric column to predict.
+    inputs : names of the numeric input columns (a single name is accepted).
+    order_column : optional column giving the order of rows in time: numbers,
+        or dates/times (used as seconds). Rows are sorted by it, stably.
+    group_column : optional column of group labels (any type).
+    split_column : optional column of fold labels (any type).
+
+    Returns
+    -------
+    PreparedData
+        Arrays for fitting, the kept rows' original positions, and counts of
+        dropped rows per column.
+
+    Raises
+    ------
+    InputProblem
+        For unknown or unusable columns, infinite values, no rows left, or a
+        target that does not vary.
+    """
+    if not isinstance(frame, pd.DataFrame):
+        raise InputProblem("The data must be a table (a pandas DataFrame); load a file first.",
+                           code="bad_source")
+    if isinstance(inputs, str):
+        inputs = (inputs,)
+    try:
+        input_names = tuple(inputs)
+    except TypeError:
+        raise InputProblem("The inputs must be a list of column names.", code="no_inputs") from None
+    rows_in = int(len(frame))
+    numeric_available = [str(c) for c in frame.columns if _usable_numeric(frame[c])]
+
+    if not input_names:
+        raise InputProblem("Choose at least one input column.", code="no_inputs")
+    if len(set(input_names)) != len(input_names):
+        twice = sorted({n for n in input_names if input_names.count(n) > 1}, key=str)
+        raise InputProblem(f"Input {_quote_list(twice)} is listed more than once; list each "
+                           "input once.", code="duplicate_input", column=str(twice[0]))
+    if target in input_names:
+        raise InputProblem(f"Column '{target}' is both the target and an input; remove it "
+                           "from the inputs.", code="target_is_input", column=str(target))
+
+    columns = list(frame.columns)
+
+    def check_exists(col: Any, role: str) -> None:
+        try:
+            count = columns.count(col)
+        except Exception:  # pragma: no cover - exotic column labels
+            count = 0
+        if count == 0:
+            raise InputProblem(
+                f"There is no column named '{col}' (chosen as {role}). Numeric columns in "
+                f"the table: {_quote_list(numeric_available)}.",
+                code="unknown_column", column=str(col))
+        if count > 1:
+            raise InputProblem(f"More than one column is named '{col}'; rename them so "
+                               "each name is used once.", code="duplicate_columns",
+                               column=str(col))
+
+    def check_numeric(col: str, role: str, code: str) -> None:
+        series = frame[col]
+        if _usable_numeric(series):
+            return
+        others = [c for c in numeric_available if c != col]
+        found = _first_non_number(series)
+        if pd.api.types.is_bool_dtype(series.dtype):
+            what = "true/false values"
+            row = None
+        elif found is not None:
+            what = f"text (data row {found[0] + 1}: '{_short(found[1])}')"
+            row = found[0] + 1
+        else:
+            what = "values that are not stored as numbers"
+            row = None
+        raise InputProblem(
+            f"Column '{col}' holds {what}, so it cannot be the {role}. Choose a numeric "
+            f"column: {_quote_list(others)}.", code=code, column=str(col), row=row)
+
+    check_exists(target, "the target")
+    check_numeric(target, "target", "non_numeric_target")
+    for col in input_names:
+        check_exists(col, "an input")
+        check_numeric(col, "an input", "non_numeric_input")
+    for col, role in ((order_column, "the order column"), (group_column, "the group column"),
+                      (split_column, "the split column")):
+        if col is not None:
+            check_exists(col, role)
+
+    notes: list[str] = []
+    y_all = _as_float(frame[target])
+    x_all = [(_as_float(frame[c])) for c in input_names]
+    order_all = _order_values(frame, order_column, notes) if order_column is not None else None
+
+    for col, values in [(target, y_all), *zip(input_names, x_all),
+                        *([(order_column, order_all)] if order_all is not None else [])]:
+        bad = np.flatnonzero(np.isinf(values))
+        if bad.size:
+            row = int(bad[0]) + 1
+            raise InputProblem(
+                f"Column '{col}' holds an infinite value at data row {row} "
+                f"({_plural(int(bad.size), 'infinite cell')} in all). Replace it with a real "
+                "number or leave the cell empty.", code="infinite", column=str(col), row=row)
+
+    # missing values, counted under the first chosen column that is missing
+    chosen: list[Any] = []
+    masks: dict[Any, np.ndarray] = {}
+    for col, mask in [(target, np.isnan(y_all)),
+                      *[(c, np.isnan(v)) for c, v in zip(input_names, x_all)],
+                      *([(order_column, np.isnan(order_all))] if order_all is not None else []),
+                      *([(group_column, _missing_mask(frame[group_column]))]
+                        if group_column is not None else []),
+                      *([(split_column, _missing_mask(frame[split_column]))]
+                        if split_column is not None else [])]:
+        if col in masks:
+            masks[col] = masks[col] | mask
+        else:
+            chosen.append(col)
+            masks[col] = mask
+    already = np.zeros(rows_in, dtype=bool)
+    drop_counts: dict[str, int] = {}
+    for col in chosen:
+        fresh = masks[col] & ~already
+        if fresh.any():
+            drop_counts[str(col)] = int(fresh.sum())
+        already |= masks[col]
+    keep = ~already
+    rows_dropped = int(already.sum())
+
+    if not keep.any():
+        if rows_in == 0:
+            raise InputProblem("The table has no rows.", code="no_rows")
+        worst = max(chosen, key=lambda c: int(masks[c].sum()))
+        raise InputProblem(
+            f"No rows are left: every row has a missing value in at least one chosen column. "
+            f"Column '{worst}' is missing in {int(masks[worst].sum())} of {rows_in} rows. "
+            "Choose other columns or fill in the missing values.",
+            code="no_rows", column=str(worst))
+    if rows_dropped:
+        per = ", ".join(f"{c}: {n}" for c, n in drop_counts.items())
+        notes.append(f"Dropped {rows_dropped} of {rows_in} rows with missing values ({per}).")
+
+    row_index = np.flatnonzero(keep).astype(np.int64)
+    order = None
+    if order_all is not None:
+        order_kept = order_all[row_index]
+        sort = np.argsort(order_kept, kind="stable")
+        row_index = row_index[sort]
+        order = order_kept[sort]
+
+    y = y_all[row_index]
+    if len(x_all):
+        X = np.column_stack([v[row_index] for v in x_all]).astype("float64", copy=False)
+    else:  # pragma: no cover - guarded by the no_inputs check
+        X = np.empty((len(row_index), 0))
+    if y.shape[0] < 2:
+        raise InputProblem(
+            f"Only {_plural(int(y.shape[0]), 'row')} {'is' if y.shape[0] == 1 else 'are'} left "
+            "after dropping rows with missing values; at least 2 are needed.",
+            code="too_few_rows")
+    if np.all(y == y[0]):
+        raise InputProblem(
+            f"The target '{target}' has the same value ({y[0]:g}) in all {y.shape[0]} rows "
+            "used, so there is nothing to predict. Choose another target.",
+            code="constant_target", column=str(target))
+    for j, col in enumerate(input_names):
+        if np.all(X[:, j] == X[0, j]):
+            notes.append(f"Input '{col}' has the same value ({X[0, j]:g}) in every row used; "
+                         "it carries no information.")
+
+    groups = (frame[group_column].to_numpy()[row_index] if group_column is not None else None)
+    split = (frame[split_column].to_numpy()[row_index] if split_column is not None else None)
+    return PreparedData(
+        X=X, y=y, inputs=tuple(str(c) for c in input_names), target=str(target), order=order,
+        groups=groups, split=split, row_index=row_index, rows_in=rows_in,
+        rows_dropped=rows_dropped, drop_counts=drop_counts, notes=notes)

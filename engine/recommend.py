@@ -1,0 +1,97 @@
+"""Choosing a cell: the best one and the simplest one within one standard error."""
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import numpy as np
+import pandas as pd
+
+
+@dataclass(frozen=True)
+class Cell:
+    """One (order, penalty) cell with the numbers a reader needs to judge it."""
+
+    order: int
+    penalty: float
+    validation_mse: float
+    validation_mse_se: float
+    train_mse: float
+    validation_r2: float
+    parameters: int
+    effective_df: float
+    samples_per_parameter: float
+    reason: str
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+    @property
+    def label(self) -> str:
+        return f"order {self.order}, " + ("no penalty" if self.penalty == 0
+                                          else f"penalty {self.penalty:.3g}")
+
+
+@dataclass(frozen=True)
+class Recommendation:
+    """The best cell and the recommended (simplest within one SE) cell."""
+
+    best: Cell
+    recommended: Cell
+    threshold: float
+    rule: str
+
+    def to_dict(self) -> dict:
+        return {"best": self.best.to_dict(), "recommended": self.recommended.to_dict(),
+                "threshold": self.threshold, "rule": self.rule}
+
+
+def _cell(row: pd.Series, n_train: float, reason: str) -> Cell:
+    params = int(row["parameters"])
+    return Cell(order=int(row["order"]), penalty=float(row["penalty"]),
+                validation_mse=float(row["validation_mse"]),
+                validation_mse_se=float(row["validation_mse_se"]),
+                train_mse=float(row["train_mse"]), validation_r2=float(row["validation_r2"]),
+                parameters=params, effective_df=float(row["effective_df"]),
+                samples_per_parameter=float(n_train / params), reason=reason)
+
+
+def recommend(table: pd.DataFrame, mean_train_rows: float) -> Recommendation:
+    """Apply the one-standard-error rule to a validation table.
+
+    Parameters
+    ----------
+    table : `SweepResult.validation_table` output.
+    mean_train_rows : average number of training rows per split.
+
+    Returns
+    -------
+    Recommendation
+        ``best``: lowest mean validation error. ``recommended``: among cells
+        whose mean validation error is within one standard error of the best,
+        the one with the fewest effective degrees of freedom; ties go to the
+        larger penalty, then the lower order.
+    """
+    t = table.reset_index(drop=True)
+    finite = t[np.isfinite(t["validation_mse"])]
+    b = finite.sort_values(["validation_mse", "effective_df"], kind="stable").iloc[0]
+    se = float(b["validation_mse_se"]) if np.isfinite(b["validation_mse_se"]) else 0.0
+    threshold = float(b["validation_mse"]) + se
+    near = finite[finite["validation_mse"] <= threshold * (1 + 1e-12)].copy()
+    near["_edf"] = near["effective_df"].round(9)
+    r = near.sort_values(["_edf", "penalty", "order"], ascending=[True, False, True],
+                         kind="stable").iloc[0]
+    best_reason = (f"Lowest mean validation error of all {len(t)} cells: "
+                   f"MSE {b['validation_mse']:.4g} ± {se:.2g} (one standard error).")
+    if int(r["order"]) == int(b["order"]) and float(r["penalty"]) == float(b["penalty"]):
+        rec_reason = ("It has the lowest validation error, and no simpler cell comes within "
+                      "one standard error of it.")
+    else:
+        rec_reason = (f"Its validation error ({r['validation_mse']:.4g}) is within one standard "
+                      f"error of the best ({b['validation_mse']:.4g} + {se:.2g}), and it uses "
+                      f"{r['effective_df']:.1f} effective degrees of freedom against "
+                      f"{b['effective_df']:.1f}: the simpler model is as good as the data can tell.")
+    return Recommendation(best=_cell(b, mean_train_rows, best_reason),
+                          recommended=_cell(r, mean_train_rows, rec_reason),
+                          threshold=threshold,
+                          rule="one-standard-error rule: simplest cell (fewest effective "
+                               "degrees of freedom) within one standard error of the best")
