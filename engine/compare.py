@@ -1,0 +1,76 @@
+"""Side-by-side candidates: fitted curves past the data and predictions per row."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from .analysis import DataLike, fit_cell
+from .final_fit import FinalModel
+from .spec import SweepSpec
+
+
+def fit_candidates(data: DataLike, spec: SweepSpec,
+                   cells: list[tuple[int, float]]) -> dict[tuple[int, float], FinalModel]:
+    """Fit each (order, penalty) cell on all rows.
+
+    Returns
+    -------
+    dict mapping ``(order, penalty)`` to its `FinalModel`, in the given order.
+    """
+    out: dict[tuple[int, float], FinalModel] = {}
+    for q, a in cells:
+        key = (int(q), float(a))
+        if key not in out:
+            out[key] = fit_cell(data, spec, key[0], key[1])
+    return out
+
+
+def cell_label(order: int, penalty: float) -> str:
+    """Short label of a cell, e.g. ``order 3, penalty 0.1``."""
+    return f"order {order}" + ("" if penalty == 0 else f", penalty {penalty:.3g}")
+
+
+def curve_table(models: dict[tuple[int, float], FinalModel], x_min: float, x_max: float,
+                extend: float = 0.25, points: int = 241) -> pd.DataFrame:
+    """Predictions of one-input models on a grid reaching past the training range.
+
+    Parameters
+    ----------
+    models : fitted one-input models.
+    x_min, x_max : training range of the input.
+    extend : how far past each end, as a share of the range.
+    points : grid size.
+
+    Returns
+    -------
+    DataFrame with ``x``, ``prediction``, ``model`` (label), ``order``,
+    ``penalty`` and ``inside`` (True within the training range).
+    """
+    span = x_max - x_min if x_max > x_min else max(abs(x_min), 1.0)
+    grid = np.linspace(x_min - extend * span, x_max + extend * span, points)
+    grid = np.unique(np.r_[grid, x_min, x_max])
+    frames = []
+    for (q, a), m in models.items():
+        frames.append(pd.DataFrame({
+            "x": grid, "prediction": m.predict(grid[:, None]), "model": cell_label(q, a),
+            "order": q, "penalty": a, "inside": (grid >= x_min) & (grid <= x_max)}))
+    return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(
+        columns=["x", "prediction", "model", "order", "penalty", "inside"])
+
+
+def prediction_table(models: dict[tuple[int, float], FinalModel], data: DataLike) -> pd.DataFrame:
+    """In-sample predictions and residuals of each model on every row.
+
+    Returns
+    -------
+    DataFrame with ``row``, ``actual``, ``prediction``, ``residual``, ``model``,
+    ``order``, ``penalty``.
+    """
+    frames = []
+    y = np.asarray(data.y, float)
+    for (q, a), m in models.items():
+        pred = m.predict(data.X)
+        frames.append(pd.DataFrame({
+            "row": np.arange(1, y.size + 1), "actual": y, "prediction": pred,
+            "residual": y - pred, "model": cell_label(q, a), "order": q, "penalty": a}))
+    return pd.concat(frames, ignore_index=True)
