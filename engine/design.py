@@ -1,10 +1,13 @@
 """Polynomial designs: terms, names, expansion on a well-scaled basis.
 
-The engine forms powers of *scaled* inputs ``u = (x - centre) / half_range``
-(so ``|u| <= 1`` on the data and powers stay near 1 in size) and keeps an exact
-linear map between that basis and the raw-power terms a user reads
-(``x``, ``x^2``, ``x1*x2``...). Terms are ordered by total degree, so the
-terms of every lower order form a leading block.
+The engine works on *scaled* inputs ``u = (x - centre) / half_range`` (so
+``|u| <= 1`` on the data) and, instead of powers ``u^k``, on Chebyshev
+polynomials ``T_k(u)`` and their products: on data spread over [-1, 1] these
+are far closer to orthogonal than powers, so cross-product matrices stay well
+conditioned at high orders. An exact linear map links that working basis to the
+raw-power terms a user reads (``x``, ``x^2``, ``x1*x2``...). Terms are ordered
+by total degree, so the terms of every lower order form a leading block, and
+the map is block lower triangular.
 """
 from __future__ import annotations
 
@@ -104,7 +107,11 @@ class PolynomialBasis:
 
     def expand_scaled(self, U: np.ndarray, out: np.ndarray | None = None,
                       order: int | None = None) -> np.ndarray:
-        """Terms of scaled inputs ``U`` (n, d) -> (n, P) in Fortran order."""
+        """Working-basis terms of scaled inputs ``U`` (n, d) -> (n, p), Fortran order.
+
+        Term ``t`` is ``prod_j T_{e_tj}(u_j)`` with ``T_k`` the Chebyshev
+        polynomials of the first kind.
+        """
         p = self.n_terms if order is None else self.n_terms_at(order)
         n, d = U.shape
         if out is None:
@@ -112,31 +119,37 @@ class PolynomialBasis:
         if p == 0:
             return out
         if not self.interactions:
-            # per-input powers: column (k-1)*d + j is u_j^k
+            # per-input terms: column (k-1)*d + j is T_k(u_j)
             out[:, :d] = U
-            for k in range(2, (p // d) + 1):
-                np.multiply(out[:, (k - 2) * d:(k - 1) * d], U, out=out[:, (k - 1) * d:k * d])
+            kmax = p // d
+            if kmax >= 2:
+                tmp = np.empty((n, d))
+                for k in range(2, kmax + 1):
+                    prev = out[:, (k - 2) * d:(k - 1) * d]
+                    np.multiply(prev, U, out=tmp)
+                    tmp *= 2.0
+                    if k == 2:
+                        tmp -= 1.0
+                    else:
+                        tmp -= out[:, (k - 3) * d:(k - 2) * d]
+                    out[:, (k - 1) * d:k * d] = tmp
             return out
         top = int(self.terms[:p].sum(axis=1).max())
-        powers = [[None] * (top + 1) for _ in range(d)]
-        for j in range(d):
-            powers[j][1] = U[:, j]
-            for k in range(2, top + 1):
-                powers[j][k] = powers[j][k - 1] * U[:, j]
+        cheb = [chebyshev_columns(U[:, j], top) for j in range(d)]
         for t in range(p):
             col = None
             for j, e in enumerate(self.terms[t]):
                 if e:
-                    col = powers[j][e] if col is None else col * powers[j][e]
+                    col = cheb[j][e] if col is None else col * cheb[j][e]
             out[:, t] = col
         return out
 
     def expand(self, X: np.ndarray, order: int | None = None) -> np.ndarray:
-        """Terms of raw inputs, on the scaled basis."""
+        """Working-basis terms of raw inputs."""
         return self.expand_scaled(self.scale(X), order=order)
 
     def raw_map(self, order: int | None = None) -> tuple[np.ndarray, np.ndarray]:
-        """Map from scaled-basis terms to raw-power terms, in floats.
+        """Map from working-basis terms to raw-power terms, in floats.
 
         Returns ``(A, a0)`` with ``raw_terms = scaled_terms @ A.T + a0`` for
         every row. ``A`` is lower triangular in the degree ordering, so the
@@ -155,20 +168,75 @@ class PolynomialBasis:
         return _raw_map_entries(self.terms[:p], self.centre, self.half_range)
 
 
+def chebyshev_columns(u: np.ndarray, top: int) -> list[np.ndarray]:
+    """``[T_0(u), T_1(u), ..., T_top(u)]`` by the three-term recurrence."""
+    cols = [np.ones_like(u), u]
+    for k in range(2, top + 1):
+        cols.append(2.0 * u * cols[k - 1] - cols[k - 2])
+    return cols[:top + 1]
+
+
+def chebyshev_table(k_max: int) -> list[list[int]]:
+    """Integer monomial coefficients of T_0..T_k_max: ``T_k(u) = sum_m c[k][m] u^m``."""
+    T = [[1], [0, 1]]
+    for k in range(2, k_max + 1):
+        a = [0] + [2 * c for c in T[k - 1]]
+        b = T[k - 2] + [0] * (len(a) - len(T[k - 2]))
+        T.append([x - y for x, y in zip(a, b)])
+    return T[:k_max + 1]
+
+
+def monomial_in_chebyshev(k_max: int) -> list[list[Fraction]]:
+    """Exact ``u^m = sum_i c[m][i] T_i(u)`` for m = 0..k_max."""
+    T = chebyshev_table(max(k_max, 1))
+    out: list[list[Fraction]] = []
+    for m in range(k_max + 1):
+        # solve the triangular system T[:m+1] for u^m, highest term first
+        rest = [Fraction(0)] * (m + 1)
+        rest[m] = Fraction(1)
+        coef = [Fraction(0)] * (m + 1)
+        for i in range(m, -1, -1):
+            if rest[i] == 0:
+                continue
+            c = rest[i] / T[i][i]
+            coef[i] = c
+            for j, t in enumerate(T[i]):
+                rest[j] -= c * t
+        out.append(coef)
+    return out
+
+
 def _raw_map_entries(terms: np.ndarray, centre: np.ndarray, half: np.ndarray):
+    """Exact expansion of each raw term ``prod_j x_j^e_j`` in the working basis.
+
+    ``x_j = s_j u_j + c_j``; ``u_j^m`` is rewritten in Chebyshev polynomials;
+    products over inputs give products of Chebyshev polynomials.
+    """
     p, d = terms.shape
     index = {tuple(int(v) for v in t): i for i, t in enumerate(terms)}
     c = [Fraction(float(v)) for v in centre]
     s = [Fraction(float(v)) for v in half]
+    top = int(terms.max()) if terms.size else 0
+    M = monomial_in_chebyshev(top)
     entries: dict[tuple[int, int], Fraction] = {}
     a0 = [Fraction(0)] * p
     for i, t in enumerate(terms):
         nz = [j for j in range(d) if t[j]]
-        for ks in itertools.product(*[range(int(t[j]) + 1) for j in nz]):
+        # per input: x_j^e as a polynomial in T_k(u_j)
+        factors = []
+        for j in nz:
+            e = int(t[j])
+            poly = [Fraction(0)] * (e + 1)
+            for m in range(e + 1):
+                w = comb(e, m) * s[j] ** m * c[j] ** (e - m)
+                if w:
+                    for k, v in enumerate(M[m]):
+                        poly[k] += w * v
+            factors.append(poly)
+        for ks in itertools.product(*[range(len(f)) for f in factors]):
             coef = Fraction(1)
-            for j, kj in zip(nz, ks):
-                e = int(t[j])
-                coef *= comb(e, kj) * s[j] ** kj * c[j] ** (e - kj)
+            for f, k in zip(factors, ks):
+                coef *= f[k]
             if coef == 0:
                 continue
             if sum(ks) == 0:

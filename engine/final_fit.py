@@ -14,7 +14,7 @@ from math import comb
 
 import numpy as np
 
-from .design import PolynomialBasis
+from .design import PolynomialBasis, chebyshev_table
 from .errors import InputProblem
 
 
@@ -80,20 +80,10 @@ class FinalModel:
 # ---------------------------------------------------------------------------
 # exact polynomial algebra on {multi-index: Fraction}
 # ---------------------------------------------------------------------------
-def _chebyshev_table(k_max: int) -> list[list[int]]:
-    """Integer monomial coefficients of T_0..T_k_max."""
-    T = [[1], [0, 1]]
-    for k in range(2, k_max + 1):
-        a = [0] + [2 * c for c in T[k - 1]]
-        b = T[k - 2] + [0] * (len(a) - len(T[k - 2]))
-        T.append([x - y for x, y in zip(a, b)])
-    return T[:k_max + 1]
-
-
 def _chebyshev_to_monomials(exponents: np.ndarray, g: list[Fraction]) -> dict:
     """sum_t g_t prod_j T_{e_tj}(u_j)  ->  {multi-index of u: coefficient}."""
     d = exponents.shape[1]
-    T = _chebyshev_table(int(exponents.max()) if exponents.size else 1)
+    T = chebyshev_table(int(exponents.max()) if exponents.size else 1)
     out: dict[tuple, Fraction] = {}
     for e, gt in zip(exponents, g):
         poly = {tuple([0] * d): Fraction(gt)}
@@ -236,11 +226,10 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         rhs = np.r_[y - ybar, np.zeros(p)]
         w, *_ = np.linalg.lstsq(Aug, rhs, rcond=None)
         beta_raw_f = w / dsd_safe
-        beta_u_f = A.T @ beta_raw_f
-        b0u = ybar - float(Fu.mean(axis=0) @ beta_u_f)
-        poly_u = {tuple([0] * d): Fraction(b0u)}
-        for e, b in zip(E, beta_u_f):
-            poly_u[tuple(int(v) for v in e)] = Fraction(float(b))
+        beta_c = A.T @ beta_raw_f          # on the Chebyshev working basis
+        b0c = ybar - float(Fu.mean(axis=0) @ beta_c)
+        poly_u = _chebyshev_to_monomials(np.vstack([np.zeros((1, d), int), E]),
+                                         [Fraction(b0c)] + [Fraction(float(b)) for b in beta_c])
         edf = 1.0 + float(np.sum(sv ** 2 / (sv ** 2 + penalty)))
     # exact map to raw powers
     poly_x = _substitute(poly_u, scale_u, shift_u)
