@@ -1,0 +1,419 @@
+"""Command line: write the meeting pack without the dashboard.
+
+``fitladder run DATA --target COL --out DIR`` sweeps, recommends and writes the
+same pack the dashboard's download button gives; ``fitladder rerun
+DIR/record.json --out DIR2`` runs a recorded request again on the same file
+(checked by SHA-256) and reproduces ``summary.json`` byte for byte.
+
+Exit status: 0 success; 2 bad input or usage (one message on stderr); 1 an
+internal error (short message; the traceback only with ``FITLADDER_DEBUG=1``).
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import sys
+import traceback
+from pathlib import Path
+from typing import Sequence
+
+from .errors import InputProblem
+from .spec import SCHEME_HELP, SCHEMES, SchemeSpec, SweepSpec, default_penalties
+
+PROG = "fitladder"
+DEFAULT_PENALTY_RANGE = (1e-4, 1e3, 15)
+
+EXIT_OK, EXIT_INTERNAL, EXIT_BAD_INPUT = 0, 1, 2
+
+
+class UsageProblem(InputProblem):
+    """A command-line value that cannot be used (exit status 2)."""
+
+
+# ---------------------------------------------------------------------------
+# option values
+# ---------------------------------------------------------------------------
+def _names(text: str) -> list[str]:
+    return [t.strip() for t in text.split(",") if t.strip()]
+
+
+def parse_penalty_range(text: str) -> tuple[float, float, int]:
+    """``LO:HI:COUNT`` -> (low, high, count); positive LO <= HI, COUNT >= 1."""
+    parts = text.split(":")
+    if len(parts) != 3:
+        raise argparse.ArgumentTypeError(
+            f"'{text}' is not LO:HI:COUNT (for example 1e-4:1e3:15).")
+    try:
+        lo, hi = float(parts[0]), float(parts[1])
+        count = int(parts[2])
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"'{text}' is not LO:HI:COUNT with numbers LO and HI and a whole COUNT "
+            "(for example 1e-4:1e3:15).") from None
+    if not (math.isfinite(lo) and math.isfinite(hi)) or lo <= 0 or hi <= 0:
+        raise argparse.ArgumentTypeError(f"In '{text}' LO and HI must be positive numbers "
+                                         "(the grid is log-spaced).")
+    if hi < lo:
+        raise argparse.ArgumentTypeError(f"In '{text}' HI must not be below LO.")
+    if count < 1 or count > 200:
+        raise argparse.ArgumentTypeError(f"In '{text}' COUNT must be between 1 and 200.")
+    return lo, hi, count
+
+
+def parse_penalties(text: str) -> str | tuple[float, ...]:
+    """``none``, ``ridge`` or a comma-separated list of penalties (0 or more)."""
+    word = text.strip().lower()
+    if word in ("none", "ridge"):
+        return word
+    values = []
+    for part in _names(text):
+        try:
+            v = float(part)
+        except ValueError:
+            raise argparse.ArgumentTypeError(
+                f"'{part}' is not a penalty: use none, ridge or numbers such as 0,0.01,1.") from None
+        if not math.isfinite(v) or v < 0:
+            raise argparse.ArgumentTypeError(f"Penalty '{part}' must be a finite number, 0 or more.")
+        values.append(v)
+    if not values:
+        raise argparse.ArgumentTypeError("Give none, ridge or at least one number.")
+    return tuple(values)
+
+
+def parse_orders(text: str) -> tuple[int, ...]:
+    """Comma-separated whole numbers, 0 or more."""
+    out = []
+    for part in _names(text):
+        try:
+            v = int(part)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"Order '{part}' is not a whole number.") from None
+        if v < 0 or v > 30:
+            raise argparse.ArgumentTypeError(f"Order {v} is outside 0-30.")
+        out.append(v)
+    if not out:
+        raise argparse.ArgumentTypeError("Give at least one order, e.g. 1,2,3.")
+    return tuple(out)
+
+
+def _positive_int(text: str) -> int:
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number.") from None
+    if v < 1:
+        raise argparse.ArgumentTypeError(f"'{text}' must be 1 or more.")
+    return v
+
+
+def _count(text: str) -> int:
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number.") from None
+    if v < 0:
+        raise argparse.ArgumentTypeError(f"'{text}' must be 0 or more.")
+    return v
+
+
+def _fraction(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a number.") from None
+    if not 0.0 < v < 1.0:
+        raise argparse.ArgumentTypeError(f"'{text}' must lie strictly between 0 and 1.")
+    return v
+
+
+# ---------------------------------------------------------------------------
+# parser
+# ---------------------------------------------------------------------------
+def _scheme_help() -> str:
+    return " ".join(f"{k}: {v}" for k, v in SCHEME_HELP.items())
+
+
+class _HelpFormatter(argparse.HelpFormatter):
+    """Adds '(default: X)' to options whose default is a real value."""
+
+    def _get_help_string(self, action: argparse.Action) -> str:
+        text = action.help or ""
+        if ("%(default)" not in text and action.default is not None
+                and action.default is not False
+                and action.default is not argparse.SUPPRESS and action.option_strings):
+            text += " (default: %(default)s)"
+        return text
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``fitladder`` command."""
+    top = argparse.ArgumentParser(
+        prog=PROG,
+        description="Choose the polynomial order and ridge penalty a data set supports, "
+                    "check the choice on rows the fit never saw, and write a meeting pack "
+                    "(one-page summary, charts, tables, the fitted model).",
+        epilog="Exit status: 0 done; 2 bad input or usage; 1 internal error "
+               "(set FITLADDER_DEBUG=1 to see the traceback). Run "
+               "'fitladder run --help' or 'fitladder rerun --help' for their options.")
+    sub = top.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+
+    run = sub.add_parser(
+        "run", help="sweep a data file and write the pack",
+        description="Sweep every (order, penalty) cell on DATA, recommend one by the "
+                    "one-standard-error rule, and write the pack into --out. Progress goes "
+                    "to stderr; the recommendation and the pack folder to stdout.",
+        formatter_class=_HelpFormatter)
+    run.add_argument("data", metavar="DATA",
+                     help="table to read: CSV/TSV text, Excel .xlsx or Parquet")
+    run.add_argument("--target", required=True, metavar="COL", help="column to predict")
+    run.add_argument("--inputs", type=_names, metavar="A,B,...", default=None,
+                     help="input columns, comma separated (default: every numeric column "
+                          "except the target and the order, group and split columns)")
+    run.add_argument("--order-column", metavar="COL", default=None,
+                     help="column giving the order of rows in time (numbers or dates); rows "
+                          "are sorted by it; used by the blocked and holdout schemes")
+    run.add_argument("--group-column", metavar="COL", default=None,
+                     help="column of group labels (batch, subject, site) for --scheme grouped")
+    run.add_argument("--split-column", metavar="COL", default=None,
+                     help="column of your own fold labels for --scheme column")
+    run.add_argument("--scheme", choices=SCHEMES, default="kfold",
+                     help="validation scheme. " + _scheme_help())
+    run.add_argument("--folds", type=_positive_int, default=5, metavar="K",
+                     help="number of folds (kfold, repeated, blocked, grouped)")
+    run.add_argument("--repeats", type=_positive_int, default=3, metavar="R",
+                     help="repetitions of the shuffled folds (repeated)")
+    run.add_argument("--gap", type=_count, default=0, metavar="G",
+                     help="rows left out of training on each side of a held-out block (blocked)")
+    run.add_argument("--holdout-fraction", type=_fraction, default=0.2, metavar="F",
+                     help="share of rows, at the end of the order, held out (holdout)")
+    orders = run.add_mutually_exclusive_group()
+    orders.add_argument("--max-order", type=_count, default=6, metavar="N",
+                        help="sweep orders 0..N (0 = intercept only, 1 = straight line)")
+    orders.add_argument("--orders", type=parse_orders, default=None, metavar="1,2,5",
+                        help="sweep only these orders instead of 0..--max-order")
+    run.add_argument("--interactions", action="store_true",
+                     help="include products of inputs (x1*x2 ...) up to the order, not only "
+                          "powers of each input")
+    run.add_argument("--penalties", type=parse_penalties, default="ridge", metavar="none|ridge|LIST",
+                     help="none: no penalty only; ridge: 0 plus the log-spaced grid of "
+                          "--penalty-range; LIST: these values, comma separated (e.g. 0,0.1,10)")
+    run.add_argument("--penalty-range", type=parse_penalty_range, default=None,
+                     metavar="LO:HI:COUNT",
+                     help="log-spaced ridge grid used with --penalties ridge "
+                          "(default 1e-4:1e3:15)")
+    run.add_argument("--seed", type=int, default=0, metavar="S",
+                     help="seed for every shuffle")
+    run.add_argument("--decimal-comma", action="store_true",
+                     help="numbers in the file use a decimal comma (3,14); the delimiter must "
+                          "then be a semicolon or a tab")
+    run.add_argument("--sheet", default=None, metavar="NAME",
+                     help="worksheet of an Excel file (name or 0-based number; default the first)")
+    run.add_argument("--compare", type=parse_orders, default=None, metavar="1,2,6",
+                     help="orders to show side by side, at the recommended penalty (default: "
+                          "the recommended order, the one below, the best cell's and the highest)")
+    run.add_argument("--out", required=True, metavar="DIR",
+                     help="folder to write the pack into (created if missing)")
+
+    rerun = sub.add_parser(
+        "rerun", help="run a recorded request again and write a new pack",
+        description="Read DIR/record.json, load the same data file (checked against the "
+                    "recorded SHA-256) and write the pack again into --out; its summary.json "
+                    "is identical to the recorded run's.")
+    rerun.add_argument("record", metavar="RECORD",
+                       help="record.json of an earlier pack (or the pack folder)")
+    rerun.add_argument("--data", default=None, metavar="DATA",
+                       help="data file to use instead of the recorded path (must have the "
+                            "same SHA-256)")
+    rerun.add_argument("--out", required=True, metavar="DIR2",
+                       help="folder to write the new pack into")
+    return top
+
+
+# ---------------------------------------------------------------------------
+# running
+# ---------------------------------------------------------------------------
+class _StderrProgress:
+    """Progress lines on stderr, one per new message."""
+
+    def __init__(self, stream=None) -> None:
+        self.stream = stream or sys.stderr
+        self.last = None
+
+    def __call__(self, fraction: float, message: str) -> None:
+        if message == self.last:
+            return
+        self.last = message
+        print(f"[{100 * min(max(fraction, 0.0), 1.0):3.0f}%] {message}", file=self.stream,
+              flush=True)
+
+
+def _penalty_grid(args: argparse.Namespace) -> tuple[float, ...]:
+    choice = args.penalties
+    if args.penalty_range is not None and choice != "ridge":
+        raise UsageProblem("--penalty-range applies only with --penalties ridge.",
+                           code="bad_penalty")
+    if choice == "none":
+        return (0.0,)
+    if choice == "ridge":
+        lo, hi, count = args.penalty_range or DEFAULT_PENALTY_RANGE
+        return default_penalties(lo, hi, count, include_zero=True)
+    return tuple(choice)
+
+
+def _load(path: str, *, decimal: str | None, sheet, name: str | None = None):
+    from .loading import load_table
+
+    p = Path(path)
+    if not p.exists():
+        raise InputProblem(f"There is no file '{path}'. Check the path.", code="not_found")
+    if p.is_dir():
+        raise InputProblem(f"'{path}' is a folder; give the data file inside it.",
+                           code="not_found")
+    if isinstance(sheet, str) and sheet.isdigit():
+        sheet = int(sheet)
+    return load_table(str(p), name=name, decimal=decimal, sheet=sheet)
+
+
+def _default_inputs(loaded, target: str, exclude: Sequence[str | None]) -> list[str]:
+    skip = {target, *[c for c in exclude if c]}
+    return [c for c in loaded.report.numeric_columns if c not in skip]
+
+
+def _report(result, stream=None) -> None:
+    stream = stream or sys.stdout
+    s = result.summary
+    r = s["recommended"]
+    pen = "no penalty" if r["penalty"] == 0 else f"ridge penalty {r['penalty']:.3g}"
+    rmse = r.get("validation_rmse")
+    print(f"Recommended: order {r['order']}, {pen} (validation RMSE "
+          f"{rmse:.4g} in units of {s['roles']['target']}; "
+          f"{len(s['warnings'])} warning{'s' if len(s['warnings']) != 1 else ''}).",
+          file=stream)
+    print(f"Pack written to {result.out_dir} ({len(result.files)} files).", file=stream)
+
+
+def command_run(args: argparse.Namespace) -> int:
+    from .loading import prepare
+    from .pack import build_pack
+
+    penalties = _penalty_grid(args)
+    decimal = "," if args.decimal_comma else None
+    progress = _StderrProgress()
+    progress(0.0, f"Reading {args.data}")
+    loaded = _load(args.data, decimal=decimal, sheet=args.sheet)
+    inputs = args.inputs if args.inputs is not None else _default_inputs(
+        loaded, args.target, (args.order_column, args.group_column, args.split_column))
+    if not inputs:
+        raise InputProblem(f"No input columns are left besides the target '{args.target}'. "
+                           "Name them with --inputs.", code="no_inputs")
+    data = prepare(loaded.frame, args.target, inputs, order_column=args.order_column,
+                   group_column=args.group_column, split_column=args.split_column)
+    scheme = SchemeSpec(kind=args.scheme, folds=args.folds, repeats=args.repeats, gap=args.gap,
+                        holdout_fraction=args.holdout_fraction, order_column=args.order_column,
+                        group_column=args.group_column, split_column=args.split_column)
+    spec = SweepSpec(target=data.target, inputs=tuple(data.inputs), max_order=args.max_order,
+                     orders=args.orders, interactions=args.interactions, penalties=penalties,
+                     scheme=scheme, seed=args.seed)
+    result = build_pack(args.out, loaded=loaded, source_name=loaded.report.source_name,
+                        data=data, spec=spec, compare_orders=args.compare, progress=progress,
+                        load_options={"decimal": decimal, "sheet": args.sheet},
+                        source_path=str(Path(args.data).resolve()))
+    _report(result)
+    return EXIT_OK
+
+
+def read_record(path: str | Path) -> dict:
+    """Read and check a ``record.json`` (a pack folder is accepted too)."""
+    from .pack import RECORD_FORMAT
+
+    p = Path(path)
+    if p.is_dir():
+        p = p / "record.json"
+    if not p.is_file():
+        raise InputProblem(f"There is no record file '{p}'. Give the record.json of a pack.",
+                           code="not_found")
+    try:
+        rec = json.loads(p.read_text(encoding="utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise InputProblem(f"'{p}' is not a readable record ({exc}).", code="bad_record") from None
+    if not isinstance(rec, dict) or rec.get("format") != RECORD_FORMAT:
+        raise InputProblem(f"'{p}' is not a Fitladder record (format {RECORD_FORMAT} expected).",
+                           code="bad_record")
+    for key in ("spec", "data", "roles"):
+        if not isinstance(rec.get(key), dict):
+            raise InputProblem(f"'{p}' lacks the '{key}' part of a record.", code="bad_record")
+    return rec
+
+
+def command_rerun(args: argparse.Namespace) -> int:
+    from .loading import prepare
+    from .pack import build_pack
+
+    rec = read_record(args.record)
+    progress = _StderrProgress()
+    facts = rec["data"]
+    path = args.data or facts.get("path")
+    if not path:
+        raise InputProblem("The record does not say where the data file is; give it with --data.",
+                           code="not_found")
+    opts = rec.get("load_options") or {}
+    progress(0.0, f"Reading {path}")
+    loaded = _load(path, decimal=opts.get("decimal"), sheet=opts.get("sheet"),
+                   name=facts.get("file"))
+    want = facts.get("sha256")
+    got = loaded.report.sha256
+    if not want:
+        raise InputProblem("The record holds no SHA-256 of the data, so the data cannot be "
+                           "checked; run 'fitladder run' instead.", code="bad_record")
+    if got != want:
+        raise InputProblem(
+            f"The data file '{path}' is not the one recorded: its SHA-256 is {got}, the record "
+            f"says {want} (file '{facts.get('file')}'). Give the original file with --data, or "
+            "run 'fitladder run' to make a new pack from the changed data.",
+            code="data_changed")
+    try:
+        spec = SweepSpec.from_dict(rec["spec"])
+    except (TypeError, KeyError, ValueError) as exc:
+        raise InputProblem(f"The request in the record cannot be read ({exc}).",
+                           code="bad_record") from None
+    roles = rec["roles"]
+    data = prepare(loaded.frame, roles.get("target", spec.target), list(roles.get("inputs",
+                   spec.inputs)), order_column=roles.get("order_column"),
+                   group_column=roles.get("group_column"), split_column=roles.get("split_column"))
+    cells = [tuple(c) for c in rec.get("compare_cells") or []] or None
+    result = build_pack(args.out, loaded=loaded, source_name=facts.get("file") or
+                        loaded.report.source_name, data=data, spec=spec, compare_orders=
+                        [(int(q), float(a)) for q, a in cells] if cells else None,
+                        progress=progress, load_options=opts,
+                        source_path=str(Path(path).resolve()))
+    _report(result)
+    return EXIT_OK
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``fitladder`` command; returns the exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)  # exits 2 on a usage error, 0 on --help
+    try:
+        if args.command == "run":
+            return command_run(args)
+        return command_rerun(args)
+    except InputProblem as exc:
+        print(f"{PROG}: {exc.message}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print(f"{PROG}: interrupted.", file=sys.stderr)
+        return 130
+    except Exception as exc:  # anything else is a defect of the program, not the input
+        if os.environ.get("FITLADDER_DEBUG") == "1":
+            traceback.print_exc()
+        print(f"{PROG}: internal error ({type(exc).__name__}: {exc}). Set FITLADDER_DEBUG=1 to "
+              "see the traceback.", file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,941 @@
+"""Meeting pack: every chart, table and number behind a model choice, in one folder.
+
+`build_pack` runs whatever is missing (sweep, learning curve, checks, the fit of
+the recommended cell on all rows) and writes:
+
+* ``summary.html`` (one printed page, images embedded) and ``summary.md``;
+* ``summary.json`` (machine-readable results, full precision) and
+  ``record.json`` (everything needed to run it again);
+* charts as PNG and SVG (validation curve, order x penalty heat map, learning
+  curve, side-by-side orders, coefficient magnitudes);
+* CSV tables (validation grid, learning curve, coefficients per split,
+  warnings) and the recommended model's coefficients in original units;
+* ``model.skops``: the recommended model as a scikit-learn pipeline.
+
+The dashboard and the command line both call `build_pack`, so the same
+request on the same data gives the same files. `pack_zip_bytes` zips a pack.
+"""
+from __future__ import annotations
+
+import base64
+import datetime as _dt
+import hashlib
+import html
+import io
+import json
+import math
+import platform
+import re
+import zipfile
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Iterable, Sequence
+
+import numpy as np
+import pandas as pd
+
+from .analysis import Analysis, DataLike, analyse, learning_curve
+from .compare import cell_label, fit_candidates
+from .errors import InputProblem
+from .final_fit import FinalModel
+from .recommend import Cell
+from .spec import SCHEME_HELP, SweepSpec
+
+Progress = Callable[[float, str], None]
+
+#: Format tag written into ``summary.json`` and ``record.json``.
+SUMMARY_FORMAT = "fitladder-summary/1"
+RECORD_FORMAT = "fitladder-record/1"
+
+#: Chart files (stem -> title), each written as PNG and SVG.
+CHART_FILES = {
+    "validation_curve": "Validation curve",
+    "order_penalty_heatmap": "Order x penalty heat map",
+    "learning_curve": "Learning curve",
+    "order_comparison": "Orders side by side",
+    "coefficient_magnitudes": "Coefficient magnitudes",
+}
+
+#: Every file a pack holds, in the order they are listed and zipped.
+PACK_FILES = (
+    "summary.html", "summary.md", "summary.json", "record.json",
+    *[f"{stem}.{ext}" for stem in CHART_FILES for ext in ("png", "svg")],
+    "validation_grid.csv", "learning_curve.csv", "coefficients.csv", "warnings.csv",
+    "model_coefficients.csv", "model.skops",
+)
+
+#: Leading characters that make a spreadsheet run a cell as a formula
+#: (common practice, after the OWASP "CSV injection" advice).
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r", "\n")
+
+#: Types a saved pipeline may contain; anything else is refused on loading.
+EXPECTED_MODEL_TYPES = frozenset({
+    "sklearn.pipeline.Pipeline", "sklearn.preprocessing._data.StandardScaler",
+    "sklearn.preprocessing._polynomial.PolynomialFeatures",
+    "sklearn.compose._column_transformer.ColumnTransformer",
+    "sklearn.linear_model._base.LinearRegression",
+})
+
+CAUTION = (
+    "Validation error estimates how the model does on rows like the validation rows. It "
+    "assumes that future data resemble them: the same instrument and conditions, and "
+    "inputs inside the range the model was fitted on. Outside that range nothing here "
+    "was checked. Where the model feeds a decision that can hurt someone (for example a "
+    "calibration used for safety), your organisation's own standards for validation and "
+    "uncertainty govern; this summary does not replace them.")
+
+
+@dataclass
+class PackResult:
+    """What `build_pack` wrote.
+
+    Attributes
+    ----------
+    out_dir : the pack folder.
+    files : paths of every file written, in `PACK_FILES` order.
+    summary : the content of ``summary.json`` (NaN already turned into ``None``).
+    record : the content of ``record.json``.
+    analysis : the sweep the pack reports.
+    model : the recommended cell fitted on all rows.
+    """
+
+    out_dir: Path
+    files: list[Path]
+    summary: dict
+    record: dict = field(default_factory=dict)
+    analysis: Analysis | None = None
+    model: FinalModel | None = None
+
+
+# ---------------------------------------------------------------------------
+# escaping and plain-data conversion
+# ---------------------------------------------------------------------------
+def escape_csv_cell(value: Any) -> Any:
+    """Prefix a text cell with ``'`` when a spreadsheet would run it as a formula.
+
+    Numbers (including negative ones) are returned unchanged, so they stay numbers.
+    """
+    if isinstance(value, str) and value.startswith(FORMULA_START):
+        return "'" + value
+    return value
+
+
+def safe_csv_frame(frame: pd.DataFrame) -> pd.DataFrame:
+    """A copy of ``frame`` with text cells and column names formula-escaped."""
+    out = frame.copy()
+    for col in out.columns:
+        if out[col].dtype == object or pd.api.types.is_string_dtype(out[col].dtype):
+            out[col] = out[col].map(escape_csv_cell)
+    out.columns = [escape_csv_cell(str(c)) for c in out.columns]
+    return out
+
+
+def write_csv(frame: pd.DataFrame, path: Path) -> Path:
+    """Write ``frame`` as UTF-8 CSV, formula-escaped, floats at full precision."""
+    safe_csv_frame(frame).to_csv(path, index=False, lineterminator="\n")
+    return path
+
+
+_MD_SPECIAL = re.compile(r"([\\`*_{}\[\]()#+\-.!|~>^$])")
+
+
+def md_escape(text: Any) -> str:
+    """Escape user text for Markdown: HTML-escape it, then backslash Markdown marks."""
+    s = html.escape(str(text), quote=False)
+    s = s.replace("\r", " ").replace("\n", " ")
+    return _MD_SPECIAL.sub(r"\\\1", s)
+
+
+def _h(text: Any) -> str:
+    return html.escape(str(text), quote=True)
+
+
+def plain(obj: Any) -> Any:
+    """Turn numpy and pandas values into JSON-ready Python; NaN and inf become None."""
+    if isinstance(obj, dict):
+        return {str(k): plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [plain(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [plain(v) for v in obj.tolist()]
+    if isinstance(obj, (bool, np.bool_)):
+        return bool(obj)
+    if isinstance(obj, (int, np.integer)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        f = float(obj)
+        return f if math.isfinite(f) else None
+    if obj is None or isinstance(obj, str):
+        return obj
+    if obj is pd.NA or obj is pd.NaT:
+        return None
+    if isinstance(obj, Path):
+        return str(obj)
+    return str(obj)
+
+
+def dump_json(obj: Any) -> str:
+    """Deterministic JSON text: full-precision floats, no NaN, sorted nothing, UTF-8."""
+    return json.dumps(plain(obj), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+# ---------------------------------------------------------------------------
+# numbers in words
+# ---------------------------------------------------------------------------
+def _num(x: Any, digits: int = 4) -> str:
+    try:
+        f = float(x)
+    except (TypeError, ValueError):
+        return "n/a"
+    if not math.isfinite(f):
+        return "n/a"
+    return f"{f:.{digits}g}"
+
+
+def _penalty_words(p: float) -> str:
+    return "no penalty" if float(p) == 0 else f"ridge penalty {float(p):.3g}"
+
+
+def _penalty_short(p: float) -> str:
+    return "none" if float(p) == 0 else f"{float(p):.3g}"
+
+
+# ---------------------------------------------------------------------------
+# the recommended model as a scikit-learn pipeline
+# ---------------------------------------------------------------------------
+def sklearn_pipeline(model: FinalModel):
+    """The fitted model as a scikit-learn `Pipeline` that predicts as ``model.predict``.
+
+    Steps: ``scale`` (a `StandardScaler` holding the model's centre and
+    half-range), ``terms`` (`PolynomialFeatures`; one per input in a
+    `ColumnTransformer` when the model has no products of inputs) and ``fit``
+    (`LinearRegression` with the coefficients on scaled-input powers). Terms the
+    model does not use get coefficient 0.
+
+    Parameters
+    ----------
+    model : a `FinalModel`.
+
+    Returns
+    -------
+    sklearn.pipeline.Pipeline
+    """
+    from sklearn.compose import ColumnTransformer
+    from sklearn.linear_model import LinearRegression
+    from sklearn.pipeline import Pipeline
+    from sklearn.preprocessing import PolynomialFeatures, StandardScaler
+
+    d = len(model.input_names)
+    q = int(model.order)
+    dummy = np.zeros((2, d))
+    scaler = StandardScaler()
+    scaler.fit(dummy)
+    scaler.mean_ = np.asarray(model.centre, float).copy()
+    scaler.scale_ = np.asarray(model.half_range, float).copy()
+    scaler.var_ = scaler.scale_ ** 2
+    scaler.n_features_in_ = d
+    steps: list[tuple[str, Any]] = [("scale", scaler)]
+    exps = np.asarray(model.exponents, dtype=np.int64).reshape(-1, d)
+    interactions = bool(np.any((exps > 0).sum(axis=1) > 1)) if exps.size else False
+    if q == 0:
+        powers = np.zeros((d, d), dtype=np.int64)  # the scaled inputs, with weight 0
+        n_out = d
+    elif interactions or d == 1:
+        terms = PolynomialFeatures(degree=q, include_bias=False)
+        terms.fit(dummy)
+        powers = terms.powers_
+        steps.append(("terms", terms))
+        n_out = powers.shape[0]
+    else:
+        terms = ColumnTransformer(
+            [(f"input_{j + 1}", PolynomialFeatures(degree=q, include_bias=False), [j])
+             for j in range(d)], remainder="drop", sparse_threshold=0.0)
+        terms.fit(dummy)
+        powers = np.zeros((d * q, d), dtype=np.int64)
+        for j in range(d):
+            powers[j * q:(j + 1) * q, j] = np.arange(1, q + 1)
+        steps.append(("terms", terms))
+        n_out = d * q
+    where = {tuple(int(v) for v in row): i for i, row in enumerate(powers)}
+    coef = np.zeros(n_out)
+    if q > 0:
+        for e, b in zip(exps, np.asarray(model.scaled_coefficients, float)):
+            key = tuple(int(v) for v in e)
+            if key not in where:  # pragma: no cover - the term lists always agree
+                raise InputProblem(f"Term with exponents {key} has no pipeline column.",
+                                   code="export_failed")
+            coef[where[key]] = float(b)
+    reg = LinearRegression()
+    reg.coef_ = coef
+    reg.intercept_ = float(model.scaled_intercept)
+    reg.n_features_in_ = n_out
+    steps.append(("fit", reg))
+    return Pipeline(steps)
+
+
+def save_pipeline(model: FinalModel, path: Path) -> Path:
+    """Save `sklearn_pipeline(model)` with skops."""
+    import skops.io as sio
+
+    sio.dump(sklearn_pipeline(model), str(path))
+    return Path(path)
+
+
+def load_pipeline(path: str | Path):
+    """Load a pipeline saved by `save_pipeline`, refusing unexpected types.
+
+    Raises
+    ------
+    InputProblem
+        When the file holds types other than the scikit-learn estimators a
+        pack writes (it may not come from Fitladder, so it is not loaded).
+    """
+    import skops.io as sio
+
+    untrusted = list(sio.get_untrusted_types(file=str(path)))
+    unexpected = [t for t in untrusted if t not in EXPECTED_MODEL_TYPES
+                  and not t.startswith(("numpy.", "builtins."))]
+    if unexpected:
+        raise InputProblem(f"'{Path(path).name}' holds types a Fitladder model does not use "
+                           f"({', '.join(unexpected)}); it was not loaded.",
+                           code="untrusted_model")
+    return sio.load(str(path), trusted=untrusted)
+
+
+# ---------------------------------------------------------------------------
+# the pieces of a pack
+# ---------------------------------------------------------------------------
+def _cell_key(order: int, penalty: float) -> tuple[int, float]:
+    return int(order), float(penalty)
+
+
+def compare_cells(analysis: Analysis,
+                  compare_orders: Iterable[int | tuple[int, float]] | None = None
+                  ) -> list[tuple[int, float]]:
+    """The (order, penalty) cells shown side by side.
+
+    Plain orders are taken at the recommended penalty, so the comparison
+    isolates the effect of the order; ``(order, penalty)`` pairs are taken as
+    given. Without ``compare_orders``: the recommended order, the order just
+    below it, the best cell's order and the highest order of the sweep. The
+    recommended cell always comes first.
+    """
+    rec = analysis.recommendation.recommended
+    best = analysis.recommendation.best
+    orders = analysis.spec.order_list()
+    cells: list[tuple[int, float]] = [_cell_key(rec.order, rec.penalty)]
+    if compare_orders is None:
+        wanted: list[Any] = []
+        if rec.order - 1 in orders and rec.order - 1 >= 1:
+            wanted.append(rec.order - 1)
+        wanted.append((best.order, best.penalty))
+        wanted.append(max(orders))
+    else:
+        wanted = list(compare_orders)
+    for w in wanted:
+        if isinstance(w, (tuple, list)):
+            key = _cell_key(w[0], w[1])
+        else:
+            key = _cell_key(int(w), rec.penalty)
+        if key[0] not in orders:
+            raise InputProblem(f"Order {key[0]} is not in this sweep (orders "
+                               f"{', '.join(str(o) for o in orders)}); choose one of those.",
+                               code="bad_compare_order")
+        analysis.cell_row(*key)  # raises InputProblem for a penalty outside the grid
+        if key not in cells:
+            cells.append(key)
+    return cells
+
+
+def leading_candidates(analysis: Analysis, top: int = 5) -> pd.DataFrame:
+    """The ``top`` cells by mean validation error, plus the recommended cell.
+
+    Cells whose validation numbers are identical to a listed cell of the same
+    order (a penalty too small to change anything) are listed once.
+    """
+    t = analysis.validation.copy()
+    t = t[np.isfinite(t["validation_mse"])]
+    t = t.sort_values(["validation_mse", "effective_df", "penalty"], kind="stable")
+    rec = analysis.recommendation.recommended
+    best = analysis.recommendation.best
+    rows = []
+    seen: set[tuple] = set()
+    for _, r in t.iterrows():
+        sig = (int(r["order"]), float(r["validation_mse"]), round(float(r["effective_df"]), 9))
+        if sig in seen:
+            continue
+        seen.add(sig)
+        rows.append(r)
+        if len(rows) >= top:
+            break
+    keys = {_cell_key(r["order"], r["penalty"]) for r in rows}
+    for c in (best, rec):
+        if _cell_key(c.order, c.penalty) not in keys:
+            rows.append(analysis.cell_row(c.order, c.penalty))
+            keys.add(_cell_key(c.order, c.penalty))
+    out = pd.DataFrame(rows).reset_index(drop=True)
+    out["role"] = [("recommended" if _cell_key(r["order"], r["penalty"]) ==
+                    _cell_key(rec.order, rec.penalty) else "") +
+                   (" best" if _cell_key(r["order"], r["penalty"]) ==
+                    _cell_key(best.order, best.penalty) else "")
+                   for _, r in out.iterrows()]
+    out["role"] = out["role"].str.strip().str.replace(" ", ", ")
+    return out
+
+
+def _cell_dict(cell: Cell, row: pd.Series | None = None) -> dict:
+    d = {"order": int(cell.order), "penalty": float(cell.penalty),
+         "validation_mse": cell.validation_mse, "validation_mse_se": cell.validation_mse_se,
+         "validation_rmse": math.sqrt(cell.validation_mse)
+         if math.isfinite(cell.validation_mse) and cell.validation_mse >= 0 else None,
+         "validation_r2": cell.validation_r2, "train_mse": cell.train_mse,
+         "parameters": int(cell.parameters), "effective_df": cell.effective_df,
+         "samples_per_parameter": cell.samples_per_parameter, "reason": cell.reason}
+    return d
+
+
+_GRID_KEYS = ("order", "penalty", "parameters", "effective_df", "train_mse", "train_mse_se",
+              "validation_mse", "validation_mse_se", "validation_rmse", "validation_r2", "folds")
+
+
+def _finding_dicts(checks: Any) -> list[dict]:
+    if checks is None:
+        return []
+    findings = getattr(checks, "findings", checks)
+    out = []
+    for i, f in enumerate(findings, start=1):
+        d = f.to_dict() if hasattr(f, "to_dict") else dict(f)
+        out.append({"number": i, "code": d.get("code"), "severity": d.get("severity"),
+                    "message": d.get("message"), "value": d.get("value"),
+                    "advice": d.get("advice")})
+    return out
+
+
+def _roles(data: DataLike, spec: SweepSpec) -> dict:
+    sc = spec.scheme
+    return {"target": spec.target, "inputs": list(spec.inputs),
+            "order_column": sc.order_column, "group_column": sc.group_column,
+            "split_column": sc.split_column}
+
+
+def _data_facts(data: DataLike, loaded: Any, source_name: str) -> dict:
+    rep = getattr(loaded, "report", None)
+    n = int(len(np.asarray(data.y)))
+    rows_in = int(getattr(data, "rows_in", n))
+    return {
+        "file": source_name,
+        "sha256": getattr(rep, "sha256", None),
+        "size_bytes": getattr(rep, "size_bytes", None),
+        "file_format": getattr(rep, "file_format", None),
+        "rows_read": getattr(rep, "rows_read", rows_in),
+        "rows_in": rows_in,
+        "rows_used": n,
+        "rows_dropped": int(getattr(data, "rows_dropped", rows_in - n)),
+        "drop_counts": dict(getattr(data, "drop_counts", {}) or {}),
+        "ignored_columns": list(getattr(rep, "ignored_columns", []) or []),
+        "notes": list(getattr(rep, "notes", []) or []) + list(getattr(data, "notes", []) or []),
+    }
+
+
+def summary_dict(analysis: Analysis, model: FinalModel, data_facts: dict, roles: dict,
+                 findings: list[dict], cells: list[tuple[int, float]],
+                 candidates: pd.DataFrame, lc_note: str = "") -> dict:
+    """The content of ``summary.json`` (plain data; NaN turned into None)."""
+    rec = analysis.recommendation
+    spec = analysis.spec
+    grid = [{k: r[k] for k in _GRID_KEYS} for _, r in analysis.validation.iterrows()]
+    cand = [{**{k: r[k] for k in _GRID_KEYS}, "role": r["role"]}
+            for _, r in candidates.iterrows()]
+    out = {
+        "format": SUMMARY_FORMAT,
+        "data": data_facts,
+        "roles": roles,
+        "validation": {"scheme": spec.scheme.kind, "description": analysis.plan.description,
+                       "splits": int(analysis.plan.n_splits),
+                       "settings": asdict(spec.scheme),
+                       "when_to_use": SCHEME_HELP.get(spec.scheme.kind, "")},
+        "sweep": {"orders": spec.order_list(), "penalties": list(spec.penalties),
+                  "interactions": bool(spec.interactions), "seed": int(spec.seed),
+                  "cells": int(len(analysis.validation)), "notes": list(analysis.notes)},
+        "rule": rec.rule,
+        "threshold": rec.threshold,
+        "best": _cell_dict(rec.best),
+        "recommended": _cell_dict(rec.recommended),
+        "candidates": cand,
+        "grid": grid,
+        "coefficients": {"order": int(model.order), "penalty": float(model.penalty),
+                         "terms": list(model.terms), "values": list(model.coefficients)},
+        "final_fit": {"rows": int(model.n_rows), "r2": model.r2,
+                      "residual_sd": model.residual_sd, "train_mse": model.train_mse,
+                      "effective_df": model.effective_df,
+                      "condition_number": model.condition_number,
+                      "input_range": {name: [float(lo), float(hi)] for name, lo, hi in
+                                      zip(model.input_names, model.x_min, model.x_max)},
+                      "notes": list(model.notes)},
+        "compared_cells": [{"order": q, "penalty": a} for q, a in cells],
+        "learning_curve_note": lc_note,
+        "warnings": findings,
+        "caution": CAUTION,
+    }
+    return plain(out)
+
+
+def _versions() -> dict:
+    import sklearn
+
+    from . import __version__
+    return {"fitladder": __version__, "python": platform.python_version(),
+            "numpy": np.__version__, "pandas": pd.__version__, "scikit-learn": sklearn.__version__}
+
+
+def record_dict(spec: SweepSpec, data_facts: dict, roles: dict, cells: list[tuple[int, float]],
+                load_options: dict | None, source_path: str | None) -> dict:
+    """The content of ``record.json``: what is needed to run the pack again."""
+    return plain({
+        "format": RECORD_FORMAT,
+        "created_utc": _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat(),
+        "spec": spec.to_dict(),
+        "seed": int(spec.seed),
+        "data": {"file": data_facts["file"], "path": source_path, "sha256": data_facts["sha256"],
+                 "size_bytes": data_facts["size_bytes"], "rows_in": data_facts["rows_in"],
+                 "rows_used": data_facts["rows_used"],
+                 "rows_dropped": data_facts["rows_dropped"]},
+        "load_options": {"decimal": (load_options or {}).get("decimal"),
+                         "sheet": (load_options or {}).get("sheet")},
+        "roles": roles,
+        "compare_cells": [[q, a] for q, a in cells],
+        "versions": _versions(),
+    })
+
+
+# ---------------------------------------------------------------------------
+# charts
+# ---------------------------------------------------------------------------
+def learning_cells(cells: list[tuple[int, float]]) -> list[tuple[int, float]]:
+    """Cells drawn in the learning curve: the recommended one (first) and the most
+    complex compared cell, whose gap between training and validation error shows
+    what more flexibility costs at this amount of data."""
+    out = [cells[0]]
+    others = [c for c in cells[1:] if c[0] > cells[0][0]]
+    if others:
+        out.append(max(others, key=lambda c: (c[0], -c[1])))
+    return out
+
+
+def make_charts(analysis: Analysis, lc_table: pd.DataFrame, models: dict, data: DataLike,
+                cells: list[tuple[int, float]], lc_note: str = "") -> dict:
+    """Altair charts of the pack, keyed by the stems of `CHART_FILES`."""
+    from . import charts
+
+    rec = analysis.recommendation.recommended
+    best = analysis.recommendation.best
+    target = analysis.spec.target
+    coef = analysis.sweep.coefficient_table()
+    return {
+        "validation_curve": charts.validation_curve_chart(analysis.validation, rec.penalty,
+                                                          best, rec, target),
+        "order_penalty_heatmap": charts.heatmap_chart(analysis.validation, best, rec, target),
+        "learning_curve": charts.learning_curve_chart(lc_table, learning_cells(cells), target,
+                                                      note=lc_note),
+        "order_comparison": charts.comparison_chart(data, models, target),
+        "coefficient_magnitudes": charts.coefficient_chart(coef, rec.order, rec.penalty),
+    }
+
+
+# ---------------------------------------------------------------------------
+# summary.md and summary.html
+# ---------------------------------------------------------------------------
+def _drop_words(facts: dict) -> str:
+    if not facts["rows_dropped"]:
+        return "none"
+    parts = [f"{n} with a missing {c}" for c, n in facts["drop_counts"].items()]
+    return f"{facts['rows_dropped']} ({'; '.join(parts)})" if parts else str(facts["rows_dropped"])
+
+
+def _drop_words_md(facts: dict) -> str:
+    if not facts["rows_dropped"]:
+        return "none"
+    parts = [f"{n} with a missing {md_escape(c)}" for c, n in facts["drop_counts"].items()]
+    return f"{facts['rows_dropped']} ({'; '.join(parts)})" if parts else str(facts["rows_dropped"])
+
+
+def _grid_words(s: dict) -> str:
+    orders = s["sweep"]["orders"]
+    pens = s["sweep"]["penalties"]
+    o = (f"orders {orders[0]}–{orders[-1]}" if orders == list(range(orders[0], orders[-1] + 1))
+         and len(orders) > 2 else "orders " + ", ".join(str(v) for v in orders))
+    nz = [p for p in pens if p > 0]
+    if not nz:
+        p = "no penalty"
+    elif len(nz) > 3:
+        p = (f"{len(nz)} ridge penalties {min(nz):.3g}–{max(nz):.3g}"
+             + (" and none" if 0.0 in pens else ""))
+    else:
+        p = "penalties " + ", ".join(_penalty_short(v) for v in pens)
+    inter = ", with products of inputs" if s["sweep"]["interactions"] else ""
+    return f"{o} × {p}{inter} = {s['sweep']['cells']} cells"
+
+
+def _headline(s: dict) -> str:
+    r = s["recommended"]
+    return f"order {r['order']}, {_penalty_words(r['penalty'])}"
+
+
+def _input_range_words(s: dict, esc: Callable[[Any], str]) -> str:
+    return "; ".join(f"{esc(k)} {_num(v[0])} to {_num(v[1])}"
+                     for k, v in s["final_fit"]["input_range"].items())
+
+
+def render_markdown(s: dict) -> str:
+    """``summary.md`` from the summary dict (user text Markdown-escaped)."""
+    d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
+    tgt = md_escape(roles["target"])
+    lines = [f"# Model choice for {tgt}", ""]
+    lines += [f"**Recommended: {_headline(s)}.** Validation RMSE {_num(r['validation_rmse'])} "
+              f"(MSE {_num(r['validation_mse'])} ± {_num(r['validation_mse_se'], 2)}, one "
+              f"standard error), validation R² {_num(r['validation_r2'])}, "
+              f"{_num(r['effective_df'], 3)} effective parameters.", "",
+              f"Why: {md_escape(r['reason'])}", "",
+              f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}: validation MSE "
+              f"{_num(b['validation_mse'])} ± {_num(b['validation_mse_se'], 2)}. "
+              f"Rule: {md_escape(s['rule'])}.", ""]
+    lines += ["## Data", "",
+              f"- File: {md_escape(d['file'])}",
+              f"- SHA-256: `{d['sha256'] or 'not from a file'}`",
+              f"- Rows used: {d['rows_used']} of {d['rows_in']}; dropped: {_drop_words_md(d)}",
+              f"- Target: {tgt}",
+              f"- Inputs: {', '.join(md_escape(c) for c in roles['inputs'])}"]
+    for key, label in (("order_column", "Order column"), ("group_column", "Group column"),
+                       ("split_column", "Split column")):
+        if roles.get(key):
+            lines.append(f"- {label}: {md_escape(roles[key])}")
+    lines += [f"- Validation: {md_escape(s['validation']['description'])}",
+              f"- Grid: {_grid_words(s)}", ""]
+    lines += ["## Leading candidates", "",
+              "| order | penalty | validation MSE | ± SE | validation R² | eff. parameters | role |",
+              "|---:|---:|---:|---:|---:|---:|---|"]
+    for c in s["candidates"]:
+        lines.append(f"| {int(c['order'])} | {_penalty_short(c['penalty'])} | "
+                     f"{_num(c['validation_mse'])} | {_num(c['validation_mse_se'], 2)} | "
+                     f"{_num(c['validation_r2'])} | {_num(c['effective_df'], 3)} | {c['role']} |")
+    lines += ["", "## Recommended model fitted on all rows", "",
+              f"R² {_num(s['final_fit']['r2'])}, residual SD {_num(s['final_fit']['residual_sd'])}, "
+              f"condition number {_num(s['final_fit']['condition_number'], 3)}. Fitted on: "
+              f"{_input_range_words(s, md_escape)}.", ""]
+    co = s["coefficients"]
+    if len(co["terms"]) <= 16:
+        lines += ["| term | coefficient |", "|---|---:|"]
+        lines += [f"| {md_escape(t)} | {v!r} |" for t, v in zip(co["terms"], co["values"])]
+    else:
+        lines.append(f"{len(co['terms'])} coefficients: see model_coefficients.csv.")
+    lines += ["", "## Warnings", ""]
+    if s["warnings"]:
+        for w in s["warnings"]:
+            val = "" if w.get("value") is None else f" (value: {md_escape(_value_words(w['value']))})"
+            adv = f" {md_escape(w['advice'])}" if w.get("advice") else ""
+            lines.append(f"{w['number']}. **{md_escape(w.get('severity') or 'note')}** "
+                         f"{md_escape(w['message'])}{val}{adv}")
+    else:
+        lines.append("No warnings.")
+    lines += ["", "## Caution", "", CAUTION, "",
+              "Charts: " + ", ".join(f"{stem}.png" for stem in CHART_FILES) + ". Tables: "
+              "validation_grid.csv, learning_curve.csv, coefficients.csv, warnings.csv, "
+              "model_coefficients.csv. Model: model.skops (scikit-learn pipeline).", ""]
+    return "\n".join(lines)
+
+
+def _value_words(v: Any) -> str:
+    if isinstance(v, float):
+        return _num(v)
+    return str(v)
+
+
+_CSS = """
+@page { size: A4; margin: 9mm 10mm; }
+* { box-sizing: border-box; }
+html { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-size: 7.6pt;
+       line-height: 1.28; color: #1d2330; margin: 0 auto; max-width: 190mm; }
+h1 { font-size: 13pt; margin: 0 0 1mm 0; color: #17324d; }
+h2 { font-size: 8.6pt; margin: 0 0 1mm 0; color: #17324d; text-transform: uppercase;
+     letter-spacing: .04em; border-bottom: 0.6pt solid #b8c4d2; padding-bottom: .4mm; }
+.sub { color: #4a5566; margin-bottom: 2mm; }
+.top { display: grid; grid-template-columns: 1.15fr 1fr; gap: 3.5mm; margin-bottom: 2.5mm; }
+.verdict { background: #eef4fa; border-left: 2.2mm solid #2f6f9f; padding: 2mm 3mm; }
+.verdict .big { font-size: 11.5pt; font-weight: bold; color: #17324d; margin-bottom: .8mm; }
+.verdict .fig { font-size: 8.4pt; margin-bottom: 1mm; }
+dl { display: grid; grid-template-columns: auto 1fr; gap: .3mm 2.5mm; margin: 0; }
+dt { color: #4a5566; white-space: nowrap; } dd { margin: 0; overflow-wrap: anywhere; }
+.charts { display: grid; grid-template-columns: 1fr 1fr; gap: 1.6mm 3.5mm; margin-bottom: 2mm; }
+figure { margin: 0; break-inside: avoid; }
+figure img { width: 100%; height: CHART_Hmm; object-fit: contain; display: block;
+             border: 0.4pt solid #d5dbe3; }
+figcaption { font-weight: bold; color: #17324d; font-size: 7.6pt; margin-bottom: .4mm; }
+table { border-collapse: collapse; width: 100%; font-size: 7.2pt; }
+th, td { padding: .35mm 1.2mm; text-align: right; border-bottom: 0.4pt solid #d5dbe3; }
+th { color: #4a5566; font-weight: normal; border-bottom: 0.8pt solid #8a97a8; }
+td.l, th.l { text-align: left; }
+tr.rec td { background: #e1eef8; font-weight: bold; }
+.bottom { display: grid; grid-template-columns: 1fr 1fr; gap: 3.5mm; }
+ol.warn { margin: 0; padding-left: 4.5mm; } ol.warn li { margin-bottom: .6mm; }
+.sev { font-weight: bold; text-transform: uppercase; font-size: 6.6pt; padding: 0 .8mm;
+       border-radius: .6mm; color: #fff; background: #6b7685; }
+.sev.warning, .sev.high { background: #b35a00; } .sev.critical, .sev.severe { background: #a61b1b; }
+.caution { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: 1.2mm 2mm;
+           font-size: 6.9pt; line-height: 1.22; }
+.foot { color: #6b7685; font-size: 6.4pt; margin-top: 1.5mm; }
+code { font-size: 6.6pt; overflow-wrap: anywhere; }
+@media screen { body { padding: 6mm; } }
+"""
+
+
+def _chart_height(n_findings: int, text_len: int) -> float:
+    """Chart box height (mm) so the page still fits as warnings grow (common practice: shrink
+    figures before text)."""
+    h = 60.0 - 3.0 * max(0, n_findings - 1) - max(0, text_len - 600) / 70.0
+    return max(28.0, min(60.0, h))
+
+
+def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
+    """``summary.html``: one printed page; charts embedded as base64 PNG; user text escaped."""
+    d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
+    tgt = _h(roles["target"])
+    inputs = ", ".join(_h(c) for c in roles["inputs"])
+    if len(roles["inputs"]) > 8:
+        inputs = (", ".join(_h(c) for c in roles["inputs"][:6])
+                  + f" … and {len(roles['inputs']) - 6} more")
+    extra_roles = "".join(
+        f"<dt>{label}</dt><dd>{_h(roles[key])}</dd>"
+        for key, label in (("order_column", "Order column"), ("group_column", "Group column"),
+                           ("split_column", "Split column")) if roles.get(key))
+    warn_items = []
+    for w in s["warnings"]:
+        sev = str(w.get("severity") or "note")
+        val = "" if w.get("value") is None else f" <i>(value: {_h(_value_words(w['value']))})</i>"
+        adv = f" {_h(w['advice'])}" if w.get("advice") else ""
+        warn_items.append(f"<li><span class=\"sev {_h(sev.lower())}\">{_h(sev)}</span> "
+                          f"{_h(w['message'])}{val}{adv}</li>")
+    warn_html = (f"<ol class=\"warn\">{''.join(warn_items)}</ol>" if warn_items
+                 else "<p>No warnings.</p>")
+    text_len = sum(len(str(w.get("message", ""))) + len(str(w.get("advice") or ""))
+                   for w in s["warnings"])
+    chart_h = _chart_height(len(s["warnings"]), text_len)
+    rows = []
+    for c in s["candidates"]:
+        cls = " class=\"rec\"" if "recommended" in c["role"] else ""
+        rows.append(f"<tr{cls}><td>{int(c['order'])}</td><td>{_penalty_short(c['penalty'])}</td>"
+                    f"<td>{_num(c['validation_mse'])}</td><td>{_num(c['validation_mse_se'], 2)}</td>"
+                    f"<td>{_num(c['validation_r2'])}</td><td>{_num(c['effective_df'], 3)}</td>"
+                    f"<td class=\"l\">{_h(c['role'])}</td></tr>")
+    figs = []
+    for stem, title in CHART_FILES.items():
+        if stem in pngs:
+            b64 = base64.b64encode(pngs[stem]).decode("ascii")
+            figs.append(f"<figure><img alt=\"{_h(title)}\" "
+                        f"src=\"data:image/png;base64,{b64}\"></figure>")
+    figs.append("<figure><figcaption>Leading candidates (by mean validation error)</figcaption>"
+                "<table><tr><th>order</th><th>penalty</th><th>val. MSE</th><th>± SE</th>"
+                "<th>val. R²</th><th>eff. par.</th><th class=\"l\">role</th></tr>"
+                + "".join(rows) + "</table>"
+                f"<p style=\"margin:1mm 0 0 0\">Recommended fit on all {s['final_fit']['rows']} "
+                f"rows: R² {_num(s['final_fit']['r2'])}, residual SD "
+                f"{_num(s['final_fit']['residual_sd'])}, condition number "
+                f"{_num(s['final_fit']['condition_number'], 3)}. Fitted on "
+                f"{_input_range_words(s, _h)}.</p></figure>")
+    css = _CSS.replace("CHART_H", f"{chart_h:.1f}")
+    sha = d["sha256"] or "not from a file"
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<title>Model choice for {tgt}</title>
+<style>{css}</style></head>
+<body>
+<h1>Model choice for {tgt}</h1>
+<div class="sub">{_h(d['file'])} · {d['rows_used']} rows used · {_h(s['validation']['description'])}</div>
+<div class="top">
+ <div class="verdict">
+  <div class="big">Recommended: {_h(_headline(s))}</div>
+  <div class="fig">Validation RMSE <b>{_num(r['validation_rmse'])}</b> · MSE {_num(r['validation_mse'])}
+   ± {_num(r['validation_mse_se'], 2)} (1 SE) · R² {_num(r['validation_r2'])} ·
+   {_num(r['effective_df'], 3)} effective parameters</div>
+  <div>{_h(r['reason'])}</div>
+  <div style="margin-top:1mm">Best cell: order {b['order']}, {_h(_penalty_words(b['penalty']))}
+   (MSE {_num(b['validation_mse'])} ± {_num(b['validation_mse_se'], 2)}).
+   Chosen by the {_h(s['rule'].split(':')[0])}.</div>
+ </div>
+ <div>
+  <h2>Data and request</h2>
+  <dl>
+   <dt>File</dt><dd>{_h(d['file'])}</dd>
+   <dt>SHA-256</dt><dd><code>{_h(sha)}</code></dd>
+   <dt>Rows</dt><dd>{d['rows_used']} used of {d['rows_in']}; dropped: {_h(_drop_words(d))}</dd>
+   <dt>Target</dt><dd>{tgt}</dd>
+   <dt>Inputs</dt><dd>{inputs}</dd>{extra_roles}
+   <dt>Validation</dt><dd>{_h(s['validation']['description'])}</dd>
+   <dt>Grid</dt><dd>{_h(_grid_words(s))}</dd>
+  </dl>
+ </div>
+</div>
+<div class="charts">{''.join(figs)}</div>
+<div class="bottom">
+ <div><h2>Warnings ({len(s['warnings'])})</h2>{warn_html}</div>
+ <div><h2>Caution</h2><div class="caution">{_h(CAUTION)}</div></div>
+</div>
+<div class="foot">Fitladder {_h(generated)} · full numbers in summary.json and the CSV tables ·
+ model.skops reproduces the recommended model in scikit-learn.</div>
+</body></html>
+"""
+
+
+# ---------------------------------------------------------------------------
+# public entry points
+# ---------------------------------------------------------------------------
+def _stage(progress: Progress | None, lo: float, hi: float) -> Progress | None:
+    if progress is None:
+        return None
+    return lambda f, msg: progress(lo + (hi - lo) * float(f), msg)
+
+
+def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, data: DataLike,
+               spec: SweepSpec, analysis: Analysis | None = None, checks: Any | None = None,
+               compare_orders: Sequence[int | tuple[int, float]] | None = None,
+               progress: Progress | None = None, load_options: dict | None = None,
+               source_path: str | None = None) -> PackResult:
+    """Write the meeting pack for one request into ``out_dir``.
+
+    Parameters
+    ----------
+    out_dir : folder to write into (created when missing; files of a pack
+        already there are overwritten, other files are left alone).
+    loaded : the `engine.loading.LoadedTable` the data came from (for the
+        file's SHA-256 and read notes), or None for data not read from a file.
+    source_name : file name to show.
+    data : prepared data (`engine.loading.prepare` or `ArrayData`).
+    spec : the request.
+    analysis : a finished sweep of ``spec`` on ``data``; run here when None.
+    checks : a `CheckReport` from `engine.checks.run_checks`; run here when None.
+    compare_orders : orders (taken at the recommended penalty) or
+        ``(order, penalty)`` cells to show side by side; see `compare_cells`.
+    progress : called as ``progress(fraction_done, message)``.
+    load_options : how the file was read (``decimal``, ``sheet``), for re-runs.
+    source_path : where the file was read from, for re-runs.
+
+    Returns
+    -------
+    PackResult
+
+    Raises
+    ------
+    InputProblem
+        For a request or data that cannot be analysed, or a compare order
+        outside the sweep.
+    """
+    out = Path(out_dir)
+    if analysis is None:
+        analysis = analyse(data, spec, progress=_stage(progress, 0.0, 0.55))
+    elif analysis.spec != spec:
+        raise InputProblem("The analysis given was run for another request; run it again "
+                           "for this one.", code="stale_analysis")
+    cells = compare_cells(analysis, compare_orders)
+    rec = analysis.recommendation.recommended
+    if progress:
+        progress(0.56, "Fitting the compared cells on all rows")
+    models = fit_candidates(data, spec, cells)
+    model = models[_cell_key(rec.order, rec.penalty)]
+    if progress:
+        progress(0.62, "Learning curve")
+    lc_orders = sorted({q for q, _ in learning_cells(cells)})
+    lc = learning_curve(data, spec, orders=lc_orders)
+    if checks is None:
+        if progress:
+            progress(0.72, "Checks")
+        from .checks import run_checks
+        checks = run_checks(data, analysis, models)
+    findings = _finding_dicts(checks)
+    facts = _data_facts(data, loaded, source_name)
+    roles = _roles(data, spec)
+    candidates = leading_candidates(analysis)
+    summary = summary_dict(analysis, model, facts, roles, findings, cells, candidates, lc.note)
+    record = record_dict(spec, facts, roles, cells, load_options, source_path)
+
+    if progress:
+        progress(0.76, "Drawing charts")
+    from . import charts as _charts
+    chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note)
+    pngs: dict[str, bytes] = {}
+    svgs: dict[str, str] = {}
+    for i, (stem, ch) in enumerate(chart_objs.items()):
+        pngs[stem] = _charts.chart_to_png(ch)
+        svgs[stem] = _charts.chart_to_svg(ch)
+        if progress:
+            progress(0.76 + 0.2 * (i + 1) / len(chart_objs), f"Drawn {CHART_FILES[stem].lower()}")
+
+    if progress:
+        progress(0.97, "Writing files")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        written: dict[str, Path] = {}
+
+        def put_text(name: str, text: str) -> None:
+            p = out / name
+            p.write_text(text, encoding="utf-8", newline="\n")
+            written[name] = p
+
+        def put_bytes(name: str, blob: bytes) -> None:
+            p = out / name
+            p.write_bytes(blob)
+            written[name] = p
+
+        stamp = f"{_versions()['fitladder']} · made {record['created_utc']}"
+        put_text("summary.html", render_html(summary, pngs, stamp))
+        put_text("summary.md", render_markdown(summary))
+        put_text("summary.json", dump_json(summary))
+        put_text("record.json", dump_json(record))
+        for stem in CHART_FILES:
+            put_bytes(f"{stem}.png", pngs[stem])
+            put_text(f"{stem}.svg", svgs[stem])
+        written["validation_grid.csv"] = write_csv(analysis.validation,
+                                                   out / "validation_grid.csv")
+        written["learning_curve.csv"] = write_csv(lc.table, out / "learning_curve.csv")
+        written["coefficients.csv"] = write_csv(analysis.sweep.coefficient_table(),
+                                                out / "coefficients.csv")
+        written["warnings.csv"] = write_csv(
+            pd.DataFrame(findings, columns=["number", "code", "severity", "message", "value",
+                                            "advice"]).astype(object), out / "warnings.csv")
+        written["model_coefficients.csv"] = write_csv(
+            pd.DataFrame({"term": list(model.terms),
+                          "coefficient": np.asarray(model.coefficients, float)}),
+            out / "model_coefficients.csv")
+        written["model.skops"] = save_pipeline(model, out / "model.skops")
+    except OSError as exc:
+        raise InputProblem(f"Could not write the pack to '{out}': {exc.strerror or exc}. "
+                           "Choose a folder you can write to.", code="cannot_write") from None
+    if progress:
+        progress(1.0, "Pack written")
+    return PackResult(out_dir=out, files=[written[n] for n in PACK_FILES if n in written],
+                      summary=summary, record=record, analysis=analysis, model=model)
+
+
+def pack_zip_bytes(out_dir: str | Path) -> bytes:
+    """The pack files in ``out_dir`` as a .zip (inside a folder named like ``out_dir``).
+
+    Only the files a pack writes (`PACK_FILES`) are included.
+    """
+    out = Path(out_dir)
+    buf = io.BytesIO()
+    top = out.name or "fitladder_pack"
+    with zipfile.ZipFile(buf, "w", compression=zipfile.ZIP_DEFLATED) as zf:
+        for name in PACK_FILES:
+            p = out / name
+            if p.is_file():
+                zf.write(p, arcname=f"{top}/{name}")
+    return buf.getvalue()
+
+
+def file_sha256(path: str | Path) -> str:
+    """Hex SHA-256 of a file's bytes."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
