@@ -10,7 +10,7 @@ import pandas as pd
 from .design import PolynomialBasis
 from .errors import InputProblem
 from .final_fit import FinalModel, fit_final
-from .moments import combine
+from .moments import combine_batch
 from .recommend import Recommendation, recommend
 from .schemes import FoldPlan, make_plan
 from .spec import SchemeSpec, SweepSpec
@@ -226,22 +226,26 @@ def learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None = N
             prev = max(prev, c)
         labels[va] = len(cuts)
         st = piece_statistics(basis, data.X, data.y, labels, len(cuts) + 1)
-        n_v, m_v, M_v = float(st.n[-1]), st.mean[-1], st.comoment[-1]
-        for j, c in enumerate(cuts):
-            sel = np.zeros(len(cuts) + 1)
-            sel[:j + 1] = 1
-            n_t, m_t, M_t = combine(st, sel)
-            for q in orders:
-                p = basis.n_terms_at(q)
-                idx = np.r_[np.arange(p), M_t.shape[0] - 1]
-                mt, Mt = m_t[idx], M_t[np.ix_(idx, idx)]
-                mv, Mv = m_v[idx], M_v[np.ix_(idx, idx)]
-                fit = _fit_penalties(n_t, mt, Mt, p, A, a0, pen)
-                tr_mse = _sse(n_t, mt, Mt, p, mt, fit.beta_u) / n_t
-                va_mse = _sse(n_v, mv, Mv, p, mt, fit.beta_u) / n_v
+        n_v, m_v, M_v = st.n[-1:], st.mean[-1:], st.comoment[-1:]
+        # cumulative training sets: prefixes of the chunks, all sizes at once
+        sel = np.tril(np.ones((len(cuts), len(cuts) + 1)))
+        sel[:, -1] = 0
+        n_t, m_t, M_t = combine_batch(st, sel)
+        last = M_t.shape[1] - 1
+        for q in orders:
+            p = basis.n_terms_at(q)
+            idx = np.r_[np.arange(p), last]
+            mt, Mt = m_t[:, idx], M_t[:, idx][:, :, idx]
+            Z = len(cuts)
+            mv = np.repeat(m_v[:, idx], Z, axis=0)
+            Mv = np.repeat(M_v[:, idx][:, :, idx], Z, axis=0)
+            fit = _fit_penalties(n_t, mt, Mt, p, A, a0, pen)
+            tr_mse = _sse(n_t, mt, Mt, p, mt, fit.beta_u) / n_t[:, None]
+            va_mse = _sse(np.repeat(n_v, Z), mv, Mv, p, mt, fit.beta_u) / n_v[0]
+            for j in range(Z):
                 for k, a in enumerate(pen):
-                    rows.append((q, float(a), int(sizes[j]), int(n_t), s + 1,
-                                 float(tr_mse[k]), float(va_mse[k])))
+                    rows.append((q, float(a), int(sizes[j]), int(n_t[j]), s + 1,
+                                 float(tr_mse[j, k]), float(va_mse[j, k])))
     folds = pd.DataFrame(rows, columns=["order", "penalty", "train_size", "rows_used", "fold",
                                         "train_mse", "validation_mse"])
     g = folds.groupby(["order", "penalty", "train_size"], sort=True)

@@ -11,6 +11,7 @@ the map is block lower triangular.
 """
 from __future__ import annotations
 
+import functools
 import itertools
 from dataclasses import dataclass
 from fractions import Fraction
@@ -123,16 +124,14 @@ class PolynomialBasis:
             out[:, :d] = U
             kmax = p // d
             if kmax >= 2:
-                tmp = np.empty((n, d))
+                U2 = U + U
                 for k in range(2, kmax + 1):
-                    prev = out[:, (k - 2) * d:(k - 1) * d]
-                    np.multiply(prev, U, out=tmp)
-                    tmp *= 2.0
+                    dst = out[:, (k - 1) * d:k * d]
+                    np.multiply(out[:, (k - 2) * d:(k - 1) * d], U2, out=dst)
                     if k == 2:
-                        tmp -= 1.0
+                        dst -= 1.0
                     else:
-                        tmp -= out[:, (k - 3) * d:(k - 2) * d]
-                    out[:, (k - 1) * d:k * d] = tmp
+                        dst -= out[:, (k - 3) * d:(k - 2) * d]
             return out
         top = int(self.terms[:p].sum(axis=1).max())
         cheb = [chebyshev_columns(U[:, j], top) for j in range(d)]
@@ -156,7 +155,7 @@ class PolynomialBasis:
         map of a lower order is the leading block.
         """
         p = self.n_terms if order is None else self.n_terms_at(order)
-        entries, a0 = _raw_map_entries(self.terms[:p], self.centre, self.half_range)
+        entries, a0 = _raw_map_entries(self.terms[:p], self.centre, self.half_range, exact=False)
         A = np.zeros((p, p))
         for (i, j), v in entries.items():
             A[i, j] = float(v)
@@ -186,6 +185,7 @@ def chebyshev_table(k_max: int) -> list[list[int]]:
     return T[:k_max + 1]
 
 
+@functools.lru_cache(maxsize=64)
 def monomial_in_chebyshev(k_max: int) -> list[list[Fraction]]:
     """Exact ``u^m = sum_i c[m][i] T_i(u)`` for m = 0..k_max."""
     T = chebyshev_table(max(k_max, 1))
@@ -206,27 +206,32 @@ def monomial_in_chebyshev(k_max: int) -> list[list[Fraction]]:
     return out
 
 
-def _raw_map_entries(terms: np.ndarray, centre: np.ndarray, half: np.ndarray):
-    """Exact expansion of each raw term ``prod_j x_j^e_j`` in the working basis.
+def _raw_map_entries(terms: np.ndarray, centre: np.ndarray, half: np.ndarray,
+                     exact: bool = True):
+    """Expansion of each raw term ``prod_j x_j^e_j`` in the working basis.
 
     ``x_j = s_j u_j + c_j``; ``u_j^m`` is rewritten in Chebyshev polynomials;
-    products over inputs give products of Chebyshev polynomials.
+    products over inputs give products of Chebyshev polynomials. With
+    ``exact`` the entries are Fractions; otherwise floats (faster, for sweeps).
     """
+    num = Fraction if exact else float
     p, d = terms.shape
     index = {tuple(int(v) for v in t): i for i, t in enumerate(terms)}
-    c = [Fraction(float(v)) for v in centre]
-    s = [Fraction(float(v)) for v in half]
+    c = [num(float(v)) for v in centre]
+    s = [num(float(v)) for v in half]
     top = int(terms.max()) if terms.size else 0
     M = monomial_in_chebyshev(top)
+    if not exact:
+        M = [[float(v) for v in row] for row in M]
     entries: dict[tuple[int, int], Fraction] = {}
-    a0 = [Fraction(0)] * p
+    a0 = [num(0)] * p
     for i, t in enumerate(terms):
         nz = [j for j in range(d) if t[j]]
         # per input: x_j^e as a polynomial in T_k(u_j)
         factors = []
         for j in nz:
             e = int(t[j])
-            poly = [Fraction(0)] * (e + 1)
+            poly = [num(0)] * (e + 1)
             for m in range(e + 1):
                 w = comb(e, m) * s[j] ** m * c[j] ** (e - m)
                 if w:
@@ -234,7 +239,7 @@ def _raw_map_entries(terms: np.ndarray, centre: np.ndarray, half: np.ndarray):
                         poly[k] += w * v
             factors.append(poly)
         for ks in itertools.product(*[range(len(f)) for f in factors]):
-            coef = Fraction(1)
+            coef = num(1)
             for f, k in zip(factors, ks):
                 coef *= f[k]
             if coef == 0:
@@ -246,5 +251,5 @@ def _raw_map_entries(terms: np.ndarray, centre: np.ndarray, half: np.ndarray):
                 for j, kj in zip(nz, ks):
                     k[j] = kj
                 key = (i, index[tuple(k)])
-                entries[key] = entries.get(key, Fraction(0)) + coef
+                entries[key] = entries.get(key, num(0)) + coef
     return entries, a0

@@ -376,23 +376,30 @@ def _decode(raw: bytes, display: str) -> tuple[str, list[str]]:
     return text, notes
 
 
-def _sample_lines(text: str, limit: int = 50) -> list[str]:
-    sample = text[:65536]
-    lines = sample.splitlines()
-    if len(text) > len(sample) and lines:
-        lines = lines[:-1]  # the last line of the sample may be cut off
-    return [ln for ln in lines if ln.strip()][:limit]
+def _sample(text: str, limit: int = 65536) -> str:
+    if len(text) <= limit:
+        return text
+    sample = text[:limit]
+    cut = sample.rfind("\n")
+    return sample[:cut] if cut > 0 else sample  # the last line may be cut off
 
 
-def _field_count(line: str, delimiter: str) -> int:
+def _field_counts(sample: str, delimiter: str, limit: int = 50) -> list[int]:
+    """Fields per non-blank record of ``sample`` (quotes respected), for the first records."""
+    counts: list[int] = []
     try:
-        return len(next(csv.reader([line], delimiter=delimiter)))
-    except (csv.Error, StopIteration):
-        return line.count(delimiter) + 1
+        for record in csv.reader(io.StringIO(sample), delimiter=delimiter, quotechar='"',
+                                 skipinitialspace=True):
+            if record and any(f.strip() for f in record):
+                counts.append(len(record))
+                if len(counts) >= limit:
+                    break
+    except csv.Error:
+        pass
+    return counts
 
 
-def _consistent(lines: list[str], delimiter: str) -> bool:
-    counts = [_field_count(ln, delimiter) for ln in lines]
+def _consistent(counts: list[int]) -> bool:
     if not counts or counts[0] < 2:
         return False
     agree = sum(1 for c in counts if c == counts[0])
@@ -400,25 +407,30 @@ def _consistent(lines: list[str], delimiter: str) -> bool:
 
 
 def _detect_delimiter(text: str, decimal: str) -> str | None:
-    """Find the field delimiter; ``None`` when the text has a single column."""
+    """Find the field delimiter; ``None`` when the text has a single column.
+
+    The standard library's sniffer is asked first; its answer is kept only if
+    the header and most records then have the same number of fields (at least
+    two). Otherwise each candidate is scored by how many records agree with the
+    header's field count, then by that count.
+    """
     candidates = (";", "\t") if decimal == "," else _DELIMITERS
-    lines = _sample_lines(text)
-    if not lines:
-        return None
+    sample = _sample(text)
+    counts = {d: _field_counts(sample, d) for d in candidates}
     try:
-        sniffed = csv.Sniffer().sniff("\n".join(lines), delimiters="".join(candidates)).delimiter
-    except csv.Error:
+        sniffed = csv.Sniffer().sniff(sample, delimiters="".join(candidates)).delimiter
+    except Exception:  # the sniffer gives up in several ways
         sniffed = None
-    if sniffed in candidates and _consistent(lines, sniffed):
+    if sniffed in counts and _consistent(counts[sniffed]):
         return sniffed
     best: tuple[float, int] | None = None
     chosen: str | None = None
     for delim in candidates:
-        counts = [_field_count(ln, delim) for ln in lines]
-        if counts[0] < 2:
+        found = counts[delim]
+        if not found or found[0] < 2:
             continue
-        agree = sum(1 for c in counts if c == counts[0]) / len(counts)
-        score = (agree, counts[0])
+        agree = sum(1 for c in found if c == found[0]) / len(found)
+        score = (agree, found[0])
         if best is None or score > best:
             best, chosen = score, delim
     return chosen
@@ -483,7 +495,7 @@ def _parse_text_numbers(texts: pd.Series, decimal: str) -> tuple[np.ndarray, np.
     else:
         candidate = stripped.where(present)
     values = pd.to_numeric(candidate.astype(object), errors="coerce")
-    values_np = np.asarray(values, dtype="float64")
+    values_np = np.array(values, dtype="float64", copy=True)
     values_np[~present_np] = np.nan
     return values_np, present_np
 
@@ -497,7 +509,7 @@ def _classify_values(series: pd.Series, decimal: str
         present = series.notna().to_numpy(dtype=bool)
         return np.full(n, np.nan), present, np.zeros(n, dtype=bool), "bool"
     if (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_complex_dtype(dtype)):
-        values = series.to_numpy(dtype="float64", na_value=np.nan)
+        values = np.array(series.to_numpy(dtype="float64", na_value=np.nan), copy=True)
         present = ~np.isnan(values)
         return values, present, present.copy(), "number"
     if pd.api.types.is_datetime64_any_dtype(dtype) or pd.api.types.is_timedelta64_dtype(dtype):
@@ -609,8 +621,8 @@ def _build_columns(raw: pd.DataFrame, decimal: str, display: str
         out[col] = kept.reset_index(drop=True)
     frame = pd.DataFrame(out, index=pd.RangeIndex(len(raw)))
     if ignored:
-        notes.append(f"{_plural(len(ignored), 'non-numeric column')} ignored for modelling: "
-                     f"{_plain_list(ignored)}.")
+        notes.append(f"{_plural(len(ignored), 'column')} without usable numbers "
+                     f"ignored for modelling: {_plain_list(ignored)}.")
     return frame, numeric, ignored, reasons, notes
 
 
@@ -618,8 +630,39 @@ def _build_columns(raw: pd.DataFrame, decimal: str, display: str
 # Format readers (each returns raw cells with clean names)
 # ---------------------------------------------------------------------------
 
-_LINE_RE = re.compile(r"line (\d+)")
+_FIELDS_RE = re.compile(r"Expected (\d+) fields in line (\d+), saw (\d+)")
 _ROW_RE = re.compile(r"row (\d+)")
+
+
+def _na_tokens() -> list[str]:
+    """Spellings of the missing-value markers that pandas should read as missing."""
+    tokens: set[str] = set()
+    for tok in _MISSING_TOKENS:
+        tokens.update({tok, tok.upper(), tok.capitalize()})
+    return sorted(tokens)
+
+
+def _rows_out_of_line(display: str, sep: str, line: int | None, what: str) -> InputProblem:
+    delim_name = _DELIMITER_NAMES.get(sep, repr(sep))
+    return InputProblem(
+        f"The rows do not line up: {what}. The file was read with the {delim_name} as "
+        "delimiter. Fix that line (remove extra delimiters, quote text that contains one, "
+        "or give the extra column a name in the header row) and load the file again.",
+        code="malformed_rows", row=line)
+
+
+def _split_header(text: str, sep: str, display: str) -> tuple[list[str], int]:
+    """The header record (first non-blank one) and the number of lines up to its end."""
+    reader = csv.reader(io.StringIO(text), delimiter=sep, quotechar='"',
+                        skipinitialspace=True)
+    try:
+        for record in reader:
+            if record and any(f.strip() for f in record):
+                return record, reader.line_num
+    except csv.Error as exc:
+        raise _rows_out_of_line(display, sep, reader.line_num,
+                                f"the header row could not be read ({exc})") from None
+    return [], reader.line_num
 
 
 def _read_text(raw: bytes, display: str, decimal: str
@@ -628,6 +671,7 @@ def _read_text(raw: bytes, display: str, decimal: str
     if not text.strip():
         raise InputProblem(f"'{display}' holds only blank space; there is no table in it.",
                            code="empty")
+    text = text.replace("\r\n", "\n").replace("\r", "\n")
     delimiter = _detect_delimiter(text, decimal)
     if delimiter is None:
         sample = text[:65536]
@@ -635,57 +679,68 @@ def _read_text(raw: bytes, display: str, decimal: str
         sep = next((d for d in candidates if d not in sample), candidates[0])
     else:
         sep = delimiter
+
+    header, header_lines = _split_header(text, sep, display)
+    if not header:
+        raise InputProblem(f"'{display}' holds no values, only delimiters and blank space.",
+                           code="empty")
+    names, name_notes = _clean_names(header, display)
+    notes.extend(name_notes)
+    cut = 0
+    for _ in range(header_lines):
+        nl = text.find("\n", cut)
+        if nl < 0:
+            cut = len(text)
+            break
+        cut = nl + 1
+    body_text = text[cut:]
+
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            cells = pd.read_csv(io.StringIO(text), sep=sep, header=None, dtype=str,
-                                keep_default_na=False, skipinitialspace=True,
-                                skip_blank_lines=True, engine="c", quotechar='"')
+            body = pd.read_csv(io.StringIO(body_text), sep=sep, header=None,
+                               keep_default_na=False, na_values=_na_tokens(),
+                               decimal=decimal, skipinitialspace=True, skip_blank_lines=True,
+                               engine="c", quotechar='"', low_memory=False)
     except pd.errors.EmptyDataError:
-        raise InputProblem(f"'{display}' holds only blank space; there is no table in it.",
-                           code="empty") from None
+        body = pd.DataFrame({i: pd.Series([], dtype=float) for i in range(len(names))})
     except pd.errors.ParserError as exc:
         message = str(exc)
-        line: int | None = None
-        m = _LINE_RE.search(message)
+        m = _FIELDS_RE.search(message)
         if m:
-            line = int(m.group(1))
-            detail = message.split("C error:")[-1].strip().rstrip(".")
-            what = (f"line {line} of '{display}' has more fields than the header row "
-                    f"({detail})")
-        else:
-            m = _ROW_RE.search(message)
-            if m:
-                line = int(m.group(1)) + 1
-                what = f"a quoted field starting on line {line} of '{display}' is never closed"
-            else:
-                what = f"'{display}' could not be split into rows and columns ({message})"
-        delim_name = _DELIMITER_NAMES.get(sep, repr(sep))
-        raise InputProblem(
-            f"The rows do not line up: {what}. The file was read with the {delim_name} "
-            "as delimiter. Fix that line (remove extra delimiters, or quote text that "
-            "contains one) and load the file again.",
-            code="malformed_rows", row=line) from None
+            _, rel_line, saw = (int(g) for g in m.groups())
+            line = header_lines + rel_line
+            raise _rows_out_of_line(
+                display, sep, line, f"line {line} of '{display}' has {saw} fields but the "
+                                    f"header row has {len(names)}") from None
+        m = _ROW_RE.search(message)
+        if m:
+            line = header_lines + int(m.group(1)) + 1
+            raise _rows_out_of_line(
+                display, sep, line,
+                f"a quoted field starting on line {line} of '{display}' is never closed") from None
+        raise _rows_out_of_line(
+            display, sep, None,
+            f"'{display}' could not be split into rows and columns ({message})") from None
     except Exception as exc:  # any other parser failure
-        raise InputProblem(f"'{display}' could not be read as a table: {exc}.",
+        raise InputProblem(f"'{display}' could not be read as a table: {_short(exc, 120)}.",
                            code="unreadable") from None
-    if cells.shape[0] == 0 or cells.shape[1] == 0:
-        raise InputProblem(f"'{display}' holds only blank space; there is no table in it.",
-                           code="empty")
-    names, name_notes = _clean_names(list(cells.iloc[0]), display)
-    notes.extend(name_notes)
-    body = cells.iloc[1:].reset_index(drop=True)
+
+    width = body.shape[1]
+    if width > len(names):
+        offset = next((i for i, ln in enumerate(body_text.split("\n", 1000)) if ln.strip()), 0)
+        line = header_lines + offset + 1
+        raise _rows_out_of_line(display, sep, line,
+                                f"line {line} of '{display}' has {width} fields but the header "
+                                f"row has {len(names)}")
+    for extra in range(width, len(names)):
+        body[extra] = np.nan
     body.columns = names
-    if len(body):
-        short_rows = int(body.iloc[:, -1].isna().sum())
-        if short_rows and len(names) > 1:
-            notes.append(f"{_plural(short_rows, 'row')} had fewer fields than the header; "
-                         "the missing cells are left empty.")
     header_numbers = pd.to_numeric(pd.Series(names, dtype=object), errors="coerce")
     if len(names) and header_numbers.notna().all():
         notes.append("The first row holds only numbers but was read as column names; "
                      "add a header row if the file has none.")
-    return body, delimiter, notes
+    return body.reset_index(drop=True), delimiter, notes
 
 
 def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.DataFrame, list[str]]:
@@ -894,8 +949,13 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
             f"'{display}' has a header row but every data cell is empty.", code="no_rows")
     if not numeric:
         why = "; ".join(f"'{c}': {reasons[c]}" for c in ignored[:8])
-        how = (f" It was read with the {_DELIMITER_NAMES.get(delimiter or '', 'no')} "
-               f"delimiter and decimal '{dec}'." if file_format == "csv" else "")
+        if file_format != "csv":
+            how = ""
+        elif delimiter is None:
+            how = f" It was read as a single column with decimal '{dec}'."
+        else:
+            how = (f" It was read with the {_DELIMITER_NAMES[delimiter]} as delimiter "
+                   f"and decimal '{dec}'.")
         raise InputProblem(
             f"'{display}' has no column of numbers, so there is nothing to model ({why}).{how} "
             "Check the decimal mark and that the file has a header row with numbers below it.",
@@ -940,7 +1000,7 @@ def _first_non_number(series: pd.Series) -> tuple[int, Any] | None:
 
 
 def _missing_mask(series: pd.Series) -> np.ndarray:
-    mask = series.isna().to_numpy(dtype=bool)
+    mask = np.array(series.isna().to_numpy(dtype=bool), copy=True)
     if pd.api.types.is_object_dtype(series.dtype) or pd.api.types.is_string_dtype(series.dtype):
         blank = series.map(lambda v: isinstance(v, str) and not v.strip())
         mask |= blank.to_numpy(dtype=bool, na_value=False)
@@ -948,7 +1008,7 @@ def _missing_mask(series: pd.Series) -> np.ndarray:
 
 
 def _as_float(series: pd.Series) -> np.ndarray:
-    return series.to_numpy(dtype="float64", na_value=np.nan)
+    return np.array(series.to_numpy(dtype="float64", na_value=np.nan), copy=True)
 
 
 def _order_values(frame: pd.DataFrame, col: str, notes: list[str]) -> np.ndarray:
@@ -958,7 +1018,8 @@ def _order_values(frame: pd.DataFrame, col: str, notes: list[str]) -> np.ndarray
         return _as_float(series)
     if pd.api.types.is_timedelta64_dtype(dtype):
         notes.append(f"Order column '{col}' holds durations; they are used as seconds.")
-        return series.dt.total_seconds().to_numpy(dtype="float64", na_value=np.nan)
+        return np.array(series.dt.total_seconds().to_numpy(dtype="float64", na_value=np.nan),
+                        copy=True)
     if pd.api.types.is_datetime64_any_dtype(dtype):
         stamps = series
     elif pd.api.types.is_bool_dtype(dtype):
@@ -1001,8 +1062,8 @@ def _order_values(frame: pd.DataFrame, col: str, notes: list[str]) -> np.ndarray
         notes.append(f"Order column '{col}' holds dates and times; they are used as "
                      "seconds since 1970-01-01.")
     nat = stamps.isna().to_numpy()
-    seconds = (stamps - pd.Timestamp("1970-01-01")).dt.total_seconds().to_numpy(
-        dtype="float64", na_value=np.nan)
+    seconds = np.array((stamps - pd.Timestamp("1970-01-01")).dt.total_seconds().to_numpy(
+        dtype="float64", na_value=np.nan), copy=True)
     seconds[nat] = np.nan
     return seconds
 
@@ -1089,11 +1150,11 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
             what = "values that are not stored as numbers"
             row = None
         raise InputProblem(
-            f"Column '{col}' holds {what}, so it cannot be the {role}. Choose a numeric "
+            f"Column '{col}' holds {what}, so it cannot be {role}. Choose a numeric "
             f"column: {_quote_list(others)}.", code=code, column=str(col), row=row)
 
     check_exists(target, "the target")
-    check_numeric(target, "target", "non_numeric_target")
+    check_numeric(target, "the target", "non_numeric_target")
     for col in input_names:
         check_exists(col, "an input")
         check_numeric(col, "an input", "non_numeric_input")
@@ -1170,8 +1231,9 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
         X = np.empty((len(row_index), 0))
     if y.shape[0] < 2:
         raise InputProblem(
-            f"Only {_plural(int(y.shape[0]), 'row')} {'is' if y.shape[0] == 1 else 'are'} left "
-            "after dropping rows with missing values; at least 2 are needed.",
+            f"Only {_plural(int(y.shape[0]), 'row')} {'is' if y.shape[0] == 1 else 'are'} usable "
+            f"(of {rows_in}, after dropping rows with missing values); at least 2 are needed. "
+            "Add rows or choose columns with fewer missing values.",
             code="too_few_rows")
     if np.all(y == y[0]):
         raise InputProblem(

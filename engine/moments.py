@@ -88,6 +88,28 @@ def combine(parts: Moments, weights: np.ndarray) -> tuple[float, np.ndarray, np.
     return n, mean, M
 
 
+def combine_batch(parts: Moments, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Combine pieces for several selections at once.
+
+    Parameters
+    ----------
+    parts : summaries of ``L`` disjoint row sets.
+    weights : (S, L) 0/1 selectors, one row per wanted union.
+
+    Returns
+    -------
+    ``(n, mean, comoment)`` of shapes (S,), (S, q), (S, q, q).
+    """
+    W = np.asarray(weights, dtype=float)
+    Wn = W * parts.n[None, :]
+    n = Wn.sum(axis=1)
+    safe = np.where(n > 0, n, 1.0)
+    mean = (Wn @ parts.mean) / safe[:, None]
+    dev = parts.mean[None, :, :] - mean[:, None, :]
+    M = np.einsum("sl,lij->sij", W, parts.comoment) + np.einsum("sl,sli,slj->sij", Wn, dev, dev)
+    return n, mean, M
+
+
 def chunk_moments(R: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
     """Count, mean and centred co-moment of the rows of one block ``R``."""
     n = R.shape[0]
@@ -137,11 +159,14 @@ def accumulate(chunks: Iterable[tuple[np.ndarray, np.ndarray]], n_sets: int, q: 
 
 def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int,
                    expand: Callable[[np.ndarray, np.ndarray], np.ndarray], n_terms: int,
-                   chunk_rows: int = 32768) -> Moments:
+                   chunk_rows: int = 8192) -> Moments:
     """Per-set summaries of ``[terms(U), y]`` from one pass over the rows.
 
-    Rows are grouped by label once, then expanded and summarised chunk by chunk,
-    so the full design is never held in memory.
+    Rows are grouped by label once, then expanded and summarised chunk by
+    chunk (the full design is never held in memory). Each chunk is shifted by
+    a fixed estimate of the column means, so that one cross-product with a
+    column of ones gives its count, mean and centred co-moment without
+    cancellation; chunk summaries then combine exactly.
 
     Parameters
     ----------
@@ -153,24 +178,37 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     n_terms : number of terms ``expand`` writes.
     chunk_rows : rows per chunk.
     """
-    labels = np.asarray(labels, dtype=np.int64)
-    order = np.argsort(labels, kind="stable")
-    sl = labels[order]
+    labels = np.asarray(labels)
+    small = labels.astype(np.int16 if n_sets < 32000 else np.int32)
+    order = np.argsort(small, kind="stable")   # a radix sort for small integers
+    sl = small[order]
     Us = U[order]
     ys = y[order]
     q = n_terms + 1
-    buf = np.empty((min(chunk_rows, max(len(ys), 1)), q), order="F")
-
-    def chunks():
-        cuts = np.flatnonzero(np.diff(sl)) + 1
-        for a, b in zip(np.r_[0, cuts], np.r_[cuts, sl.size]):
-            if sl[a] < 0:
-                continue
-            for c0 in range(a, b, chunk_rows):
-                c1 = min(c0 + chunk_rows, b)
-                R = buf[:c1 - c0]
-                expand(Us[c0:c1], R[:, :n_terms])
-                R[:, n_terms] = ys[c0:c1]
-                yield R, sl[c0:c1]
-
-    return accumulate(chunks(), n_sets, q)
+    acc = Moments.empty(n_sets, q)
+    if ys.size == 0:
+        return acc
+    # fixed shift: column means of an evenly spread sample of rows
+    step = max(1, ys.size // 4096)
+    sample = np.empty((len(range(0, ys.size, step)), q), order="F")
+    expand(Us[::step], sample[:, :n_terms])
+    sample[:, n_terms] = ys[::step]
+    shift = sample.mean(axis=0)
+    buf = np.empty((min(chunk_rows, ys.size), q + 1), order="F")
+    buf[:, q] = 1.0
+    cuts = np.flatnonzero(np.diff(sl)) + 1
+    for a, b in zip(np.r_[0, cuts], np.r_[cuts, sl.size]):
+        lab = int(sl[a])
+        if lab < 0:
+            continue
+        for c0 in range(a, b, chunk_rows):
+            c1 = min(c0 + chunk_rows, b)
+            R = buf[:c1 - c0]
+            expand(Us[c0:c1], R[:, :n_terms])
+            R[:, n_terms] = ys[c0:c1]
+            R[:, :q] -= shift
+            G = R.T @ R
+            m = G[q, q]
+            s = G[:q, q]
+            merge_into(acc, lab, m, shift + s / m, G[:q, :q] - np.outer(s, s) / m)
+    return acc

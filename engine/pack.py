@@ -76,6 +76,9 @@ EXPECTED_MODEL_TYPES = frozenset({
     "sklearn.linear_model._base.LinearRegression",
 })
 
+_NUMPY_TYPES = frozenset({"numpy.float64", "numpy.int64", "numpy.int32", "numpy.bool_",
+                          "numpy.dtype", "numpy.ndarray"})
+
 CAUTION = (
     "Validation error estimates how the model does on rows like the validation rows. It "
     "assumes that future data resemble them: the same instrument and conditions, and "
@@ -282,24 +285,45 @@ def save_pipeline(model: FinalModel, path: Path) -> Path:
 
 
 def load_pipeline(path: str | Path):
-    """Load a pipeline saved by `save_pipeline`, refusing unexpected types.
+    """Load a pipeline saved by `save_pipeline`, refusing anything else.
+
+    skops lists the types in the file that it does not trust by default; only
+    the estimators a pack writes (`EXPECTED_MODEL_TYPES`) and plain numpy
+    number types are accepted. After loading, every step must be one of
+    those estimators.
 
     Raises
     ------
     InputProblem
-        When the file holds types other than the scikit-learn estimators a
-        pack writes (it may not come from Fitladder, so it is not loaded).
+        When the file holds other types (it may not come from Fitladder, and
+        loading it could run code), or is not a pipeline of the expected steps.
     """
     import skops.io as sio
+    from sklearn.pipeline import Pipeline
 
+    name = Path(path).name
     untrusted = list(sio.get_untrusted_types(file=str(path)))
-    unexpected = [t for t in untrusted if t not in EXPECTED_MODEL_TYPES
-                  and not t.startswith(("numpy.", "builtins."))]
+    unexpected = [t for t in untrusted if t not in EXPECTED_MODEL_TYPES | _NUMPY_TYPES]
     if unexpected:
-        raise InputProblem(f"'{Path(path).name}' holds types a Fitladder model does not use "
+        raise InputProblem(f"'{name}' holds types a Fitladder model does not use "
                            f"({', '.join(unexpected)}); it was not loaded.",
                            code="untrusted_model")
-    return sio.load(str(path), trusted=untrusted)
+    pipe = sio.load(str(path), trusted=untrusted)
+
+    def kind(obj: Any) -> str:
+        return f"{type(obj).__module__}.{type(obj).__qualname__}"
+
+    parts = []
+    if isinstance(pipe, Pipeline):
+        for _, step in pipe.steps:
+            parts.append(step)
+            for _, inner, _ in getattr(step, "transformers", []) or []:
+                parts.append(inner)
+    if not isinstance(pipe, Pipeline) or any(
+            kind(p) not in EXPECTED_MODEL_TYPES and p != "drop" for p in parts):
+        raise InputProblem(f"'{name}' is not a Fitladder model pipeline; it was not used.",
+                           code="untrusted_model")
+    return pipe
 
 
 # ---------------------------------------------------------------------------
@@ -407,7 +431,7 @@ def _finding_dicts(checks: Any) -> list[dict]:
         d = f.to_dict() if hasattr(f, "to_dict") else dict(f)
         out.append({"number": i, "code": d.get("code"), "severity": d.get("severity"),
                     "message": d.get("message"), "value": d.get("value"),
-                    "advice": d.get("advice")})
+                    "advice": d.get("advice"), "details": d.get("details", {})})
     return out
 
 
@@ -680,7 +704,7 @@ tr.rec td { background: #e1eef8; font-weight: bold; }
 ol.warn { margin: 0; padding-left: 4.5mm; } ol.warn li { margin-bottom: .6mm; }
 .sev { font-weight: bold; text-transform: uppercase; font-size: 6.6pt; padding: 0 .8mm;
        border-radius: .6mm; color: #fff; background: #6b7685; }
-.sev.warning, .sev.high { background: #b35a00; } .sev.critical, .sev.severe { background: #a61b1b; }
+.sev.caution { background: #a86400; } .sev.serious { background: #a61b1b; }
 .caution { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: 1.2mm 2mm;
            font-size: 6.9pt; line-height: 1.22; }
 .foot { color: #6b7685; font-size: 6.4pt; margin-top: 1.5mm; }
@@ -850,7 +874,7 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         if progress:
             progress(0.72, "Checks")
         from .checks import run_checks
-        checks = run_checks(data, analysis, models)
+        checks = run_checks(data, analysis, cells, progress=_stage(progress, 0.72, 0.76))
     findings = _finding_dicts(checks)
     facts = _data_facts(data, loaded, source_name)
     roles = _roles(data, spec)

@@ -4,7 +4,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from sklearn.model_selection import GroupKFold, KFold, RepeatedKFold
+from sklearn.model_selection import GroupKFold, KFold
 
 from .errors import InputProblem
 from .spec import SchemeSpec
@@ -34,24 +34,60 @@ class FoldPlan:
     ----------
     kind : scheme name.
     n_rows : rows in the data.
-    train_sets, valid_sets : per split, the row indices (ascending).
     rounds : piece partitions for the one-pass statistics.
+    split_round : per split, ``(round, split within round)``.
     loo : True for exact leave-one-out (no explicit splits are built).
     description : one plain sentence on the scheme as run.
+    train_sets, valid_sets : per split, the row indices (ascending), built on
+        first use from the rounds.
     """
 
     kind: str
     n_rows: int
-    train_sets: list[np.ndarray] = field(default_factory=list)
-    valid_sets: list[np.ndarray] = field(default_factory=list)
     rounds: list[Round] = field(default_factory=list)
     split_round: list[tuple[int, int]] = field(default_factory=list)
     loo: bool = False
     description: str = ""
+    _sets: tuple[list[np.ndarray], list[np.ndarray]] | None = field(default=None, repr=False)
 
     @property
     def n_splits(self) -> int:
-        return self.n_rows if self.loo else len(self.valid_sets)
+        return self.n_rows if self.loo else len(self.split_round)
+
+    def _index_sets(self) -> tuple[list[np.ndarray], list[np.ndarray]]:
+        if self._sets is None:
+            tr_l, va_l = [], []
+            for r, j in self.split_round:
+                rnd = self.rounds[r]
+                tr_l.append(np.flatnonzero(np.isin(rnd.pieces, np.flatnonzero(rnd.train[j]))))
+                va_l.append(np.flatnonzero(np.isin(rnd.pieces, np.flatnonzero(rnd.valid[j]))))
+            self._sets = (tr_l, va_l)
+        return self._sets
+
+    @property
+    def train_sets(self) -> list[np.ndarray]:
+        return self._index_sets()[0]
+
+    @property
+    def valid_sets(self) -> list[np.ndarray]:
+        return self._index_sets()[1]
+
+
+def _partition_round(labels: np.ndarray, n_folds: int) -> Round:
+    """A round where each fold label is one piece and fold k validates on piece k."""
+    eye = np.eye(n_folds, dtype=np.int8)
+    return Round(labels.astype(np.int64), n_folds, (1 - eye).astype(np.int8), eye)
+
+
+def _shuffled_fold_labels(n: int, k: int, rs: np.random.RandomState) -> np.ndarray:
+    """Fold of each row, dealt exactly as scikit-learn's ``KFold(shuffle=True)``."""
+    indices = np.arange(n)
+    rs.shuffle(indices)
+    sizes = np.full(k, n // k, dtype=int)
+    sizes[: n % k] += 1
+    labels = np.empty(n, dtype=np.int64)
+    labels[indices] = np.repeat(np.arange(k), sizes)
+    return labels
 
 
 def _round_from_splits(n: int, train_sets, valid_sets) -> Round:
@@ -65,12 +101,10 @@ def _round_from_splits(n: int, train_sets, valid_sets) -> Round:
         code = np.zeros(n, dtype=np.int64)
         for s in range(S):
             code = code * 3 + sig[s]
-        uniq, pieces = np.unique(code, return_inverse=True)
-        rep = np.array([np.flatnonzero(pieces == k)[0] for k in range(uniq.size)])
+        uniq, rep, pieces = np.unique(code, return_index=True, return_inverse=True)
     else:
-        uniq_cols, pieces = np.unique(sig.T, axis=0, return_inverse=True)
+        uniq_cols, rep, pieces = np.unique(sig.T, axis=0, return_index=True, return_inverse=True)
         pieces = pieces.ravel()
-        rep = np.array([np.flatnonzero(pieces == k)[0] for k in range(uniq_cols.shape[0])])
     used = sig.any(axis=0)
     pieces = np.where(used, pieces, -1)
     n_pieces = int(rep.size)
@@ -79,14 +113,15 @@ def _round_from_splits(n: int, train_sets, valid_sets) -> Round:
     return Round(pieces.astype(np.int64), n_pieces, train, valid)
 
 
-def _check_splits(kind: str, train_sets, valid_sets, n_terms_needed: int = MIN_TRAIN_ROWS) -> None:
-    for s, (tr, va) in enumerate(zip(train_sets, valid_sets)):
-        if len(va) == 0:
+def _check_counts(kind: str, train_counts, valid_counts,
+                  n_terms_needed: int = MIN_TRAIN_ROWS) -> None:
+    for s, (tr, va) in enumerate(zip(train_counts, valid_counts)):
+        if va == 0:
             raise InputProblem(f"Fold {s + 1} of the {kind} scheme has no rows to validate on; "
                                "use fewer folds or more rows.", code="too_few_rows")
-        if len(tr) < n_terms_needed:
+        if tr < n_terms_needed:
             raise InputProblem(
-                f"Fold {s + 1} of the {kind} scheme leaves only {len(tr)} training rows; "
+                f"Fold {s + 1} of the {kind} scheme leaves only {tr} training rows; "
                 f"at least {n_terms_needed} are needed. Use fewer folds, a smaller gap, "
                 "or more rows.", code="too_few_rows")
 
@@ -127,17 +162,20 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
         raise InputProblem(f"{k} folds need at least {k} rows; the data have {n}. "
                            "Use fewer folds.", code="too_few_rows")
     rounds_sets: list[tuple[list, list]] = []
-    if kind == "kfold":
-        sp = list(KFold(n_splits=k, shuffle=True, random_state=seed).split(idx))
-        rounds_sets.append(([a for a, _ in sp], [b for _, b in sp]))
-        desc = f"Shuffled {k}-fold cross-validation (seed {seed})."
-    elif kind == "repeated":
-        r = int(scheme.repeats)
-        sp = list(RepeatedKFold(n_splits=k, n_repeats=r, random_state=seed).split(idx))
+    if kind in ("kfold", "repeated"):
+        # the same folds as scikit-learn's KFold(shuffle=True) / RepeatedKFold with this seed
+        r = 1 if kind == "kfold" else int(scheme.repeats)
+        rs = np.random.RandomState(seed)
+        plan = FoldPlan(kind, n, description=(
+            f"Shuffled {k}-fold cross-validation (seed {seed})." if r == 1 else
+            f"Shuffled {k}-fold cross-validation repeated {r} times (seed {seed})."))
         for i in range(r):
-            chunk = sp[i * k:(i + 1) * k]
-            rounds_sets.append(([a for a, _ in chunk], [b for _, b in chunk]))
-        desc = f"Shuffled {k}-fold cross-validation repeated {r} times (seed {seed})."
+            labels = _shuffled_fold_labels(n, k, rs)
+            counts = np.bincount(labels, minlength=k)
+            _check_counts(kind, n - counts, counts)
+            plan.rounds.append(_partition_round(labels, k))
+            plan.split_round.extend((i, j) for j in range(k))
+        return plan
     elif kind == "blocked":
         g = int(scheme.gap)
         tr_list, va_list = [], []
@@ -194,13 +232,11 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
 
     plan = FoldPlan(kind, n, description=desc)
     for r, (trs, vas) in enumerate(rounds_sets):
-        _check_splits(kind, trs, vas)
-        rnd = _round_from_splits(n, trs, vas)
-        for s, (tr, va) in enumerate(zip(trs, vas)):
-            plan.train_sets.append(np.asarray(tr, dtype=np.int64))
-            plan.valid_sets.append(np.asarray(va, dtype=np.int64))
-            plan.split_round.append((r, s))
-        plan.rounds.append(rnd)
+        _check_counts(kind, [len(t) for t in trs], [len(v) for v in vas])
+        plan.rounds.append(_round_from_splits(n, trs, vas))
+        plan.split_round.extend((r, j) for j in range(len(trs)))
+    plan._sets = ([np.asarray(t, dtype=np.int64) for trs, _ in rounds_sets for t in trs],
+                  [np.asarray(v, dtype=np.int64) for _, vas in rounds_sets for v in vas])
     return plan
 
 

@@ -17,7 +17,7 @@ import pandas as pd
 
 from .design import PolynomialBasis
 from .errors import InputProblem
-from .moments import Moments, combine, design_moments
+from .moments import Moments, combine_batch, design_moments
 from .schemes import FoldPlan
 
 Progress = Callable[[float, str], None]
@@ -31,90 +31,99 @@ _EPS = np.finfo(float).eps
 # ---------------------------------------------------------------------------
 @dataclass
 class _CellFit:
-    """Fits of one order on one training set, for every penalty."""
+    """Fits of one order on ``S`` training sets, for every penalty (batched)."""
 
-    beta_u: np.ndarray      # (p, K) coefficients on the scaled basis
-    w_std: np.ndarray       # (p, K) coefficients on standardised raw terms
-    beta_raw: np.ndarray    # (p, K) coefficients on raw terms
-    intercept_raw: np.ndarray  # (K,)
-    edf: np.ndarray         # (K,) effective degrees of freedom, intercept included
+    beta_u: np.ndarray         # (S, p, K) coefficients on the working basis
+    w_std: np.ndarray          # (S, p, K) coefficients on standardised raw terms
+    beta_raw: np.ndarray       # (S, p, K) coefficients on raw terms
+    intercept_raw: np.ndarray  # (S, K)
+    edf: np.ndarray            # (S, K) effective degrees of freedom, intercept included
     # pieces for leverage (leave-one-out)
     lev_u: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None   # (du, Q, inv_lam)
     lev_raw: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None  # (d, Q, lam)
 
 
-def _fit_penalties(n_t: float, mean_t: np.ndarray, M_t: np.ndarray, p: int,
+def _fit_penalties(n_t: np.ndarray, mean_t: np.ndarray, M_t: np.ndarray, p: int,
                    A: np.ndarray, a0: np.ndarray, penalties: np.ndarray,
                    keep_leverage: bool = False) -> _CellFit:
-    """Ridge fits for all penalties from one training summary.
+    """Ridge fits for all penalties from training summaries, batched over sets.
 
-    ``M_t`` and ``mean_t`` cover the first ``p`` scaled terms and the target
-    (last). Penalty 0 is solved on the scaled basis with a rank-tolerant
-    pseudo-inverse; positive penalties on standardised raw terms.
+    ``n_t`` (S,), ``mean_t`` (S, p+1) and ``M_t`` (S, p+1, p+1) cover the
+    first ``p`` working-basis terms and the target (last). Penalty 0 is solved
+    on the standardised working basis with a rank-tolerant pseudo-inverse;
+    positive penalties on standardised raw terms, one eigen-decomposition per
+    set serving every penalty.
     """
-    K = penalties.size
-    beta_u = np.zeros((p, K))
-    w_std = np.zeros((p, K))
-    beta_raw = np.zeros((p, K))
-    edf = np.ones(K)
-    fit = _CellFit(beta_u, w_std, beta_raw, np.full(K, mean_t[-1]), edf)
+    S, K = n_t.shape[0], penalties.size
+    beta_u = np.zeros((S, p, K))
+    w_std = np.zeros((S, p, K))
+    beta_raw = np.zeros((S, p, K))
+    edf = np.ones((S, K))
+    fit = _CellFit(beta_u, w_std, beta_raw, np.repeat(mean_t[:, -1:], K, axis=1), edf)
     if p == 0:
         return fit
-    Mff = M_t[:p, :p]
-    Mfy = M_t[:p, -1]
+    Mff = M_t[:, :p, :p]
+    Mfy = M_t[:, :p, -1]
     zero = penalties == 0
     pos = ~zero
     A = A[:p, :p]
     Mraw = A @ Mff @ A.T
-    craw = A @ Mfy
-    d = np.sqrt(np.clip(np.diag(Mraw), 0, None) / n_t)
+    craw = Mfy @ A.T
+    d = np.sqrt(np.clip(np.diagonal(Mraw, axis1=1, axis2=2), 0, None) / n_t[:, None])
     d = np.where(d > 0, d, 1.0)
     if zero.any():
-        du = np.sqrt(np.clip(np.diag(Mff), 0, None) / n_t)
+        du = np.sqrt(np.clip(np.diagonal(Mff, axis1=1, axis2=2), 0, None) / n_t[:, None])
         du = np.where(du > 0, du, 1.0)
-        Su = Mff / np.outer(du, du)
-        lam, Q = np.linalg.eigh(Su)
-        tol = max(lam[-1], 0.0) * max(p, 10) * _EPS * 10
-        inv = np.where(lam > tol, 1.0 / np.where(lam > tol, lam, 1.0), 0.0)
-        bu = (Q @ (inv * (Q.T @ (Mfy / du)))) / du
-        beta_u[:, zero] = bu[:, None]
-        edf[zero] = 1.0 + np.count_nonzero(lam > tol)
-        braw = np.linalg.solve(A.T, bu) if p else bu
-        beta_raw[:, zero] = braw[:, None]
-        w_std[:, zero] = (braw * d)[:, None]
+        lam, Q = np.linalg.eigh(Mff / (du[:, :, None] * du[:, None, :]))
+        tol = np.clip(lam[:, -1:], 0.0, None) * max(p, 10) * _EPS * 10
+        keep = lam > tol
+        inv = np.where(keep, 1.0 / np.where(keep, lam, 1.0), 0.0)
+        z = np.einsum("sji,sj->si", Q, Mfy / du) * inv
+        bu = np.einsum("sij,sj->si", Q, z) / du
+        braw = np.linalg.solve(A.T, bu.T).T
+        beta_u[:, :, zero] = bu[:, :, None]
+        beta_raw[:, :, zero] = braw[:, :, None]
+        w_std[:, :, zero] = (braw * d)[:, :, None]
+        edf[:, zero] = 1.0 + keep.sum(axis=1)[:, None]
         if keep_leverage:
             fit.lev_u = (du, Q, inv)
     if pos.any():
-        S = Mraw / np.outer(d, d)
-        c = craw / d
-        lam, Q = np.linalg.eigh(S)
+        lam, Q = np.linalg.eigh(Mraw / (d[:, :, None] * d[:, None, :]))
         lam = np.clip(lam, 0.0, None)
         al = penalties[pos]
-        W = Q @ ((Q.T @ c)[:, None] / (lam[:, None] + al[None, :]))
-        w_std[:, pos] = W
-        beta_raw[:, pos] = W / d[:, None]
-        beta_u[:, pos] = A.T @ beta_raw[:, pos]
-        edf[pos] = 1.0 + (lam[:, None] / (lam[:, None] + al[None, :])).sum(axis=0)
+        z = np.einsum("sji,sj->si", Q, craw / d)
+        shrink = 1.0 / (lam[:, :, None] + al[None, None, :])          # (S, p, K+)
+        W = Q @ (z[:, :, None] * shrink)
+        w_std[:, :, pos] = W
+        beta_raw[:, :, pos] = W / d[:, :, None]
+        beta_u[:, :, pos] = A.T @ beta_raw[:, :, pos]
+        edf[:, pos] = 1.0 + np.einsum("si,sik->sk", lam, shrink)
         if keep_leverage:
             fit.lev_raw = (d, Q, lam)
     # raw intercept: mean_y - mean(raw terms) . beta_raw
-    mean_raw = A @ mean_t[:p] + a0[:p]
-    fit.intercept_raw = mean_t[-1] - mean_raw @ beta_raw
+    mean_raw = mean_t[:, :p] @ A.T + a0[:p]
+    fit.intercept_raw = mean_t[:, -1:] - np.einsum("si,sik->sk", mean_raw, beta_raw)
     return fit
 
 
-def _sse(n_s: float, mean_s: np.ndarray, M_s: np.ndarray, p: int, mean_t: np.ndarray,
+def _sse(n_s: np.ndarray, mean_s: np.ndarray, M_s: np.ndarray, p: int, mean_t: np.ndarray,
          beta_u: np.ndarray) -> np.ndarray:
-    """Sum of squared errors on a row set from its summary, for each column of beta."""
-    myy = M_s[-1, -1]
+    """Sums of squared errors on row sets from their summaries, batched.
+
+    ``n_s`` (S,), ``mean_s`` (S, p+1), ``M_s`` (S, p+1, p+1): the row sets;
+    ``mean_t`` (S, p+1) the training means that fix each intercept;
+    ``beta_u`` (S, p, K). Returns (S, K).
+    """
+    myy = M_s[:, -1, -1][:, None]
+    dy = (mean_s[:, -1] - mean_t[:, -1])[:, None]
     if p == 0:
-        off = mean_s[-1] - mean_t[-1]
-        return np.full(beta_u.shape[1], myy + n_s * off * off)
-    Mff = M_s[:p, :p]
-    Mfy = M_s[:p, -1]
-    quad = myy - 2.0 * (Mfy @ beta_u) + np.einsum("ik,ik->k", beta_u, Mff @ beta_u)
-    off = (mean_s[-1] - mean_t[-1]) - (mean_s[:p] - mean_t[:p]) @ beta_u
-    return np.clip(quad + n_s * off * off, 0.0, None)
+        return np.repeat(myy + n_s[:, None] * dy * dy, beta_u.shape[2], axis=1)
+    Mff = M_s[:, :p, :p]
+    Mfy = M_s[:, :p, -1]
+    quad = (myy - 2.0 * np.einsum("si,sik->sk", Mfy, beta_u)
+            + np.einsum("sik,sik->sk", beta_u, Mff @ beta_u))
+    off = dy - np.einsum("si,sik->sk", mean_s[:, :p] - mean_t[:, :p], beta_u)
+    return np.clip(quad + n_s[:, None] * off * off, 0.0, None)
 
 
 # ---------------------------------------------------------------------------
@@ -148,30 +157,32 @@ class SweepResult:
     def validation_table(self) -> pd.DataFrame:
         """One row per (order, penalty): mean errors across splits and their SE."""
         O, K, S = self.valid_mse.shape
-        rows = []
-        for i, q in enumerate(self.orders):
-            for k, a in enumerate(self.penalties):
-                v = self.valid_mse[i, k]
-                t = self.train_mse[i, k]
-                if self.loo:
-                    v_se = float(self.loo_se[i, k])
-                    t_se = 0.0
-                else:
-                    v_se = float(np.std(v, ddof=1) / np.sqrt(S)) if S > 1 else float("nan")
-                    t_se = float(np.std(t, ddof=1) / np.sqrt(S)) if S > 1 else float("nan")
-                vm = float(np.mean(v))
-                rows.append({
-                    "order": q, "penalty": float(a),
-                    "parameters": int(self.parameters[i]),
-                    "effective_df": float(np.mean(self.edf[i, k])),
-                    "train_mse": float(np.mean(t)), "train_mse_se": t_se,
-                    "validation_mse": vm, "validation_mse_se": v_se,
-                    "validation_rmse": float(np.sqrt(vm)),
-                    "validation_r2": float(np.nanmean(self.valid_r2[i, k]))
-                    if np.isfinite(self.valid_r2[i, k]).any() else float("nan"),
-                    "folds": int(self.n_train.size),
-                })
-        return pd.DataFrame(rows)
+
+        def se(a):
+            if S < 2:
+                return np.full((O, K), np.nan)
+            return np.std(a, axis=2, ddof=1) / np.sqrt(S)
+
+        vm = self.valid_mse.mean(axis=2)
+        v_se = self.loo_se if self.loo else se(self.valid_mse)
+        t_se = np.zeros((O, K)) if self.loo else se(self.train_mse)
+        r2 = self.valid_r2
+        finite = np.isfinite(r2)
+        with np.errstate(invalid="ignore"):
+            r2m = np.where(finite, r2, 0.0).sum(axis=2) / finite.sum(axis=2)
+        return pd.DataFrame({
+            "order": np.repeat(np.asarray(self.orders, dtype=int), K),
+            "penalty": np.tile(self.penalties, O),
+            "parameters": np.repeat(self.parameters, K).astype(int),
+            "effective_df": self.edf.mean(axis=2).ravel(),
+            "train_mse": self.train_mse.mean(axis=2).ravel(),
+            "train_mse_se": t_se.ravel(),
+            "validation_mse": vm.ravel(),
+            "validation_mse_se": np.asarray(v_se).ravel(),
+            "validation_rmse": np.sqrt(vm).ravel(),
+            "validation_r2": r2m.ravel(),
+            "folds": int(self.n_train.size),
+        })
 
     def fold_table(self) -> pd.DataFrame:
         """Long table: one row per (order, penalty, split)."""
@@ -267,27 +278,33 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     for r, rnd in enumerate(plan.rounds):
         stats.append(piece_statistics(basis, X, y, rnd.pieces, rnd.n_pieces))
         if progress:
-            progress(0.5 * (r + 1) / len(plan.rounds), "Summarising rows")
-    for s, (r, j) in enumerate(plan.split_round):
-        rnd = plan.rounds[r]
-        n_t, m_t, M_t = combine(stats[r], rnd.train[j])
-        n_v, m_v, M_v = combine(stats[r], rnd.valid[j])
-        res.n_train[s], res.n_valid[s] = n_t, n_v
-        for i, p in enumerate(ps):
-            idx = np.r_[np.arange(p), M_t.shape[0] - 1]
-            mt, Mt = m_t[idx], M_t[np.ix_(idx, idx)]
-            mv, Mv = m_v[idx], M_v[np.ix_(idx, idx)]
-            fit = _fit_penalties(n_t, mt, Mt, p, A, a0, pen)
-            res.train_mse[i, :, s] = _sse(n_t, mt, Mt, p, mt, fit.beta_u) / n_t
-            sse_v = _sse(n_v, mv, Mv, p, mt, fit.beta_u)
-            res.valid_mse[i, :, s] = sse_v / n_v
-            res.valid_r2[i, :, s] = 1.0 - sse_v / Mv[-1, -1] if Mv[-1, -1] > 0 else np.nan
-            res.edf[i, :, s] = fit.edf
-            res.coef_std[i][:, s, :] = fit.w_std.T
-            res.coef_raw[i][:, s, :] = fit.beta_raw.T
-            res.intercept_raw[i, :, s] = fit.intercept_raw
+            progress(0.8 * (r + 1) / len(plan.rounds), "Summarising rows")
+    tr = [combine_batch(stats[r], plan.rounds[r].train[[j for rr, j in plan.split_round if rr == r]])
+          for r in range(len(plan.rounds))]
+    va = [combine_batch(stats[r], plan.rounds[r].valid[[j for rr, j in plan.split_round if rr == r]])
+          for r in range(len(plan.rounds))]
+    n_t, m_t, M_t = (np.concatenate([t[i] for t in tr]) for i in range(3))
+    n_v, m_v, M_v = (np.concatenate([v[i] for v in va]) for i in range(3))
+    res.n_train[:], res.n_valid[:] = n_t, n_v
+    last = M_t.shape[1] - 1
+    for i, p in enumerate(ps):
+        idx = np.r_[np.arange(p), last]
+        mt, Mt = m_t[:, idx], M_t[:, idx][:, :, idx]
+        mv, Mv = m_v[:, idx], M_v[:, idx][:, :, idx]
+        fit = _fit_penalties(n_t, mt, Mt, p, A, a0, pen)
+        res.train_mse[i] = (_sse(n_t, mt, Mt, p, mt, fit.beta_u) / n_t[:, None]).T
+        sse_v = _sse(n_v, mv, Mv, p, mt, fit.beta_u)
+        res.valid_mse[i] = (sse_v / n_v[:, None]).T
+        syy = Mv[:, -1, -1][:, None]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            res.valid_r2[i] = np.where(syy > 0, 1.0 - sse_v / np.where(syy > 0, syy, 1.0),
+                                       np.nan).T
+        res.edf[i] = fit.edf.T
+        res.coef_std[i][:] = fit.w_std.transpose(2, 0, 1)
+        res.coef_raw[i][:] = fit.beta_raw.transpose(2, 0, 1)
+        res.intercept_raw[i] = fit.intercept_raw.T
         if progress:
-            progress(0.5 + 0.5 * (s + 1) / S, f"Fitting split {s + 1} of {S}")
+            progress(0.8 + 0.2 * (i + 1) / len(ps), f"Fitting order {orders[i]}")
     return res
 
 
@@ -311,26 +328,27 @@ def _loo_sweep(X, y, basis, orders, pen, A, a0, progress, desc) -> SweepResult:
     res.loo = True
     res.loo_se = np.zeros((len(orders), pen.size))
     stats = piece_statistics(basis, X, y, np.zeros(n, dtype=np.int64), 1)
-    n_t, m_t, M_t = float(stats.n[0]), stats.mean[0], stats.comoment[0]
+    n_t, m_t, M_t = stats.n, stats.mean, stats.comoment      # one set: all rows
     res.n_train[0], res.n_valid[0] = n - 1, 1
     F = basis.expand(X)
-    Fc = F - m_t[:-1]
-    yc = y - m_t[-1]
-    sst = M_t[-1, -1]
+    Fc = F - m_t[0, :-1]
+    yc = y - m_t[0, -1]
+    sst = M_t[0, -1, -1]
     flagged = 0
+    last = M_t.shape[1] - 1
     for i, p in enumerate(ps):
-        idx = np.r_[np.arange(p), M_t.shape[0] - 1]
-        mt, Mt = m_t[idx], M_t[np.ix_(idx, idx)]
+        idx = np.r_[np.arange(p), last]
+        mt, Mt = m_t[:, idx], M_t[:, idx][:, :, idx]
         fit = _fit_penalties(n_t, mt, Mt, p, A, a0, pen, keep_leverage=True)
-        E = yc[:, None] - Fc[:, :p] @ fit.beta_u          # (n, K) residuals
+        E = yc[:, None] - Fc[:, :p] @ fit.beta_u[0]          # (n, K) residuals
         H = np.full((n, pen.size), 1.0 / n)
         if p:
             if fit.lev_u is not None:
-                du, Q, inv = fit.lev_u
+                du, Q, inv = (v[0] for v in fit.lev_u)
                 TQ = (Fc[:, :p] / du) @ Q
                 H[:, pen == 0] += ((TQ * TQ) @ inv)[:, None]
             if fit.lev_raw is not None:
-                d, Q, lam = fit.lev_raw
+                d, Q, lam = (v[0] for v in fit.lev_raw)
                 TQ = ((Fc[:, :p] @ A[:p, :p].T) / d) @ Q
                 H[:, pen > 0] += (TQ * TQ) @ (1.0 / (lam[:, None] + pen[pen > 0][None, :]))
         denom = 1.0 - H
@@ -342,10 +360,10 @@ def _loo_sweep(X, y, basis, orders, pen, A, a0, progress, desc) -> SweepResult:
         res.loo_se[i] = np.nanstd(sq, axis=0, ddof=1) / np.sqrt(np.sum(~bad, axis=0))
         res.valid_r2[i, :, 0] = 1.0 - np.nansum(sq, axis=0) / sst if sst > 0 else np.nan
         res.train_mse[i, :, 0] = np.mean(E * E, axis=0)
-        res.edf[i, :, 0] = fit.edf
-        res.coef_std[i][:, 0, :] = fit.w_std.T
-        res.coef_raw[i][:, 0, :] = fit.beta_raw.T
-        res.intercept_raw[i, :, 0] = fit.intercept_raw
+        res.edf[i, :, 0] = fit.edf[0]
+        res.coef_std[i][:, 0, :] = fit.w_std[0].T
+        res.coef_raw[i][:, 0, :] = fit.beta_raw[0].T
+        res.intercept_raw[i, :, 0] = fit.intercept_raw[0]
         if progress:
             progress((i + 1) / len(ps), f"Leave-one-out, order {orders[i]}")
     if flagged:
