@@ -679,45 +679,87 @@ _CSS = """
 * { box-sizing: border-box; }
 html { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
 body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-size: 7.6pt;
-       line-height: 1.28; color: #1d2330; margin: 0 auto; max-width: 190mm; }
-h1 { font-size: 13pt; margin: 0 0 1mm 0; color: #17324d; }
-h2 { font-size: 8.6pt; margin: 0 0 1mm 0; color: #17324d; text-transform: uppercase;
+       line-height: 1.28; color: #1d2330; margin: 0; }
+.page { width: 190mm; margin: 0 auto; }
+h1 { font-size: 13pt; margin: 0 0 .6mm 0; color: #17324d; }
+h2 { font-size: 8pt; margin: 0 0 1mm 0; color: #17324d; text-transform: uppercase;
      letter-spacing: .04em; border-bottom: 0.6pt solid #b8c4d2; padding-bottom: .4mm; }
-.sub { color: #4a5566; margin-bottom: 2mm; }
-.top { display: grid; grid-template-columns: 1.15fr 1fr; gap: 3.5mm; margin-bottom: 2.5mm; }
-.verdict { background: #eef4fa; border-left: 2.2mm solid #2f6f9f; padding: 2mm 3mm; }
-.verdict .big { font-size: 11.5pt; font-weight: bold; color: #17324d; margin-bottom: .8mm; }
-.verdict .fig { font-size: 8.4pt; margin-bottom: 1mm; }
-dl { display: grid; grid-template-columns: auto 1fr; gap: .3mm 2.5mm; margin: 0; }
+.sub { color: #4a5566; margin-bottom: 1.8mm; }
+.top { display: grid; grid-template-columns: 1.12fr 1fr; gap: 3.5mm; margin-bottom: 2mm; }
+.verdict { background: #eef4fa; border-left: 2.2mm solid #2f6f9f; padding: 1.8mm 3mm; }
+.verdict .big { font-size: 11pt; font-weight: bold; color: #17324d; margin-bottom: .6mm; }
+.verdict .fig { font-size: 8.2pt; margin-bottom: .8mm; }
+dl { display: grid; grid-template-columns: auto 1fr; gap: .2mm 2.5mm; margin: 0; }
 dt { color: #4a5566; white-space: nowrap; } dd { margin: 0; overflow-wrap: anywhere; }
 .charts { display: grid; grid-template-columns: 1fr 1fr; gap: 1.6mm 3.5mm; margin-bottom: 2mm; }
 figure { margin: 0; break-inside: avoid; }
 figure img { width: 100%; height: CHART_Hmm; object-fit: contain; display: block;
              border: 0.4pt solid #d5dbe3; }
-figcaption { font-weight: bold; color: #17324d; font-size: 7.6pt; margin-bottom: .4mm; }
+figcaption { font-weight: bold; color: #17324d; margin-bottom: .4mm; }
 table { border-collapse: collapse; width: 100%; font-size: 7.2pt; }
-th, td { padding: .35mm 1.2mm; text-align: right; border-bottom: 0.4pt solid #d5dbe3; }
+th, td { padding: .3mm 1.2mm; text-align: right; border-bottom: 0.4pt solid #d5dbe3; }
 th { color: #4a5566; font-weight: normal; border-bottom: 0.8pt solid #8a97a8; }
 td.l, th.l { text-align: left; }
 tr.rec td { background: #e1eef8; font-weight: bold; }
-.bottom { display: grid; grid-template-columns: 1fr 1fr; gap: 3.5mm; }
-ol.warn { margin: 0; padding-left: 4.5mm; } ol.warn li { margin-bottom: .6mm; }
-.sev { font-weight: bold; text-transform: uppercase; font-size: 6.6pt; padding: 0 .8mm;
+ol.warn { margin: 0 0 1.5mm 0; padding-left: 4.5mm; columns: 2; column-gap: 6mm;
+          font-size: 7.2pt; line-height: 1.24; }
+ol.warn li { margin-bottom: .6mm; break-inside: avoid; }
+ol.warn .adv { color: #4a5566; }
+.sev { font-weight: bold; text-transform: uppercase; font-size: 6.2pt; padding: 0 .8mm;
        border-radius: .6mm; color: #fff; background: #6b7685; }
 .sev.caution { background: #a86400; } .sev.serious { background: #a61b1b; }
-.caution { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: 1.2mm 2mm;
+.caution { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: 1mm 2mm;
            font-size: 6.9pt; line-height: 1.22; }
-.foot { color: #6b7685; font-size: 6.4pt; margin-top: 1.5mm; }
+.foot { color: #6b7685; font-size: 6.2pt; margin-top: 1.2mm; }
 code { font-size: 6.6pt; overflow-wrap: anywhere; }
-@media screen { body { padding: 6mm; } }
+@media screen { body { padding: 6mm 0; background: #f3f5f8; }
+                .page { background: #fff; padding: 6mm 8mm; width: 206mm; } }
+@media print { .page { zoom: var(--fit, 1); } }
 """
 
+#: Height (mm) the page content may take: a Letter page (279.4 mm) less the
+#: 9 mm top and bottom margins, less 3 mm of slack; A4 is taller.
+PAGE_BUDGET_MM = 258.0
 
-def _chart_height(n_findings: int, text_len: int) -> float:
-    """Chart box height (mm) so the page still fits as warnings grow (common practice: shrink
-    figures before text)."""
-    h = 60.0 - 3.0 * max(0, n_findings - 1) - max(0, text_len - 600) / 70.0
-    return max(28.0, min(60.0, h))
+# If the laid-out page is still taller than the budget (long warnings, long
+# column names), shrink it for printing. Measures only; touches no user text.
+_FIT_SCRIPT = """<script>
+(function () {
+  function fit() {
+    var page = document.querySelector('.page');
+    if (!page) { return; }
+    var mm = 96 / 25.4, budget = %BUDGET% * mm;
+    var pad = parseFloat(getComputedStyle(page).paddingTop) +
+              parseFloat(getComputedStyle(page).paddingBottom);
+    var h = page.getBoundingClientRect().height - pad;
+    var f = h > budget ? Math.max(0.5, budget / h) : 1;
+    document.documentElement.style.setProperty('--fit', f.toFixed(4));
+  }
+  if (document.readyState === 'complete') { fit(); } else { window.addEventListener('load', fit); }
+})();
+</script>"""
+
+
+def _warning_height_mm(warnings: list[dict]) -> float:
+    """Rough printed height of the warning list in two columns (mm)."""
+    if not warnings:
+        return 4.0
+    lines = 0.0
+    for w in warnings:
+        chars = len(str(w.get("message") or "")) + len(str(w.get("advice") or "")) + 24
+        lines += math.ceil(chars / 64.0) + 0.25
+    return 1.5 + 3.2 * math.ceil(lines / 2.0 + 0.5)
+
+
+def _chart_height(s: dict) -> float:
+    """Height (mm) of each chart box so that the page fits `PAGE_BUDGET_MM`."""
+    reason = len(str(s["recommended"].get("reason") or ""))
+    top = 30.0 + 3.3 * math.ceil(reason / 85.0)
+    roles = sum(1 for k in ("order_column", "group_column", "split_column") if s["roles"].get(k))
+    top = max(top, 36.0 + 3.3 * roles)
+    fixed = 10.0 + top + 2.0 + 5.0 + 13.0 + 4.0 + 4.0  # title, top, gaps, heading, caution, foot
+    free = PAGE_BUDGET_MM - fixed - _warning_height_mm(s["warnings"])
+    return max(26.0, min(62.0, free / 3.0 - 1.6))
 
 
 def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
@@ -736,14 +778,12 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
     for w in s["warnings"]:
         sev = str(w.get("severity") or "note")
         val = "" if w.get("value") is None else f" <i>(value: {_h(_value_words(w['value']))})</i>"
-        adv = f" {_h(w['advice'])}" if w.get("advice") else ""
+        adv = f" <span class=\"adv\">{_h(w['advice'])}</span>" if w.get("advice") else ""
         warn_items.append(f"<li><span class=\"sev {_h(sev.lower())}\">{_h(sev)}</span> "
                           f"{_h(w['message'])}{val}{adv}</li>")
     warn_html = (f"<ol class=\"warn\">{''.join(warn_items)}</ol>" if warn_items
-                 else "<p>No warnings.</p>")
-    text_len = sum(len(str(w.get("message", ""))) + len(str(w.get("advice") or ""))
-                   for w in s["warnings"])
-    chart_h = _chart_height(len(s["warnings"]), text_len)
+                 else "<p style=\"margin:0 0 1.5mm 0\">No warnings.</p>")
+    chart_h = _chart_height(s)
     rows = []
     for c in s["candidates"]:
         cls = " class=\"rec\"" if "recommended" in c["role"] else ""
@@ -757,23 +797,25 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
             b64 = base64.b64encode(pngs[stem]).decode("ascii")
             figs.append(f"<figure><img alt=\"{_h(title)}\" "
                         f"src=\"data:image/png;base64,{b64}\"></figure>")
+    ff = s["final_fit"]
     figs.append("<figure><figcaption>Leading candidates (by mean validation error)</figcaption>"
                 "<table><tr><th>order</th><th>penalty</th><th>val. MSE</th><th>± SE</th>"
                 "<th>val. R²</th><th>eff. par.</th><th class=\"l\">role</th></tr>"
                 + "".join(rows) + "</table>"
-                f"<p style=\"margin:1mm 0 0 0\">Recommended fit on all {s['final_fit']['rows']} "
-                f"rows: R² {_num(s['final_fit']['r2'])}, residual SD "
-                f"{_num(s['final_fit']['residual_sd'])}, condition number "
-                f"{_num(s['final_fit']['condition_number'], 3)}. Fitted on "
-                f"{_input_range_words(s, _h)}.</p></figure>")
+                f"<p style=\"margin:1mm 0 0 0\">Recommended model refitted on all {ff['rows']} "
+                f"rows: R² {_num(ff['r2'])}, residual SD {_num(ff['residual_sd'])}, condition "
+                f"number {_num(ff['condition_number'], 3)}. Fitted on "
+                f"{_input_range_words(s, _h)}; predictions outside that range were not "
+                "checked.</p></figure>")
     css = _CSS.replace("CHART_H", f"{chart_h:.1f}")
     sha = d["sha256"] or "not from a file"
+    script = _FIT_SCRIPT.replace("%BUDGET%", f"{PAGE_BUDGET_MM:g}")
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">
 <title>Model choice for {tgt}</title>
 <style>{css}</style></head>
-<body>
+<body><div class="page">
 <h1>Model choice for {tgt}</h1>
 <div class="sub">{_h(d['file'])} · {d['rows_used']} rows used · {_h(s['validation']['description'])}</div>
 <div class="top">
@@ -783,7 +825,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
    ± {_num(r['validation_mse_se'], 2)} (1 SE) · R² {_num(r['validation_r2'])} ·
    {_num(r['effective_df'], 3)} effective parameters</div>
   <div>{_h(r['reason'])}</div>
-  <div style="margin-top:1mm">Best cell: order {b['order']}, {_h(_penalty_words(b['penalty']))}
+  <div style="margin-top:.8mm">Best cell: order {b['order']}, {_h(_penalty_words(b['penalty']))}
    (MSE {_num(b['validation_mse'])} ± {_num(b['validation_mse_se'], 2)}).
    Chosen by the {_h(s['rule'].split(':')[0])}.</div>
  </div>
@@ -801,13 +843,11 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
  </div>
 </div>
 <div class="charts">{''.join(figs)}</div>
-<div class="bottom">
- <div><h2>Warnings ({len(s['warnings'])})</h2>{warn_html}</div>
- <div><h2>Caution</h2><div class="caution">{_h(CAUTION)}</div></div>
-</div>
+<h2>Warnings ({len(s['warnings'])})</h2>{warn_html}
+<div class="caution"><b>Before relying on this model.</b> {_h(CAUTION)}</div>
 <div class="foot">Fitladder {_h(generated)} · full numbers in summary.json and the CSV tables ·
  model.skops reproduces the recommended model in scikit-learn.</div>
-</body></html>
+</div>{script}</body></html>
 """
 
 
