@@ -565,6 +565,25 @@ def _decimal_hint(series: pd.Series, present: np.ndarray, decimal: str) -> str |
     return None
 
 
+def _mostly_numbers(n_parsed: int, n_present: int) -> bool:
+    """At least ``NUMERIC_SHARE`` of the filled cells are numbers (exact for 90%)."""
+    return n_parsed * 10 >= n_present * round(NUMERIC_SHARE * 10)
+
+
+def _looks_like_dates(series: pd.Series, present: np.ndarray, sample: int = 50) -> bool:
+    """Whether the first filled cells of a text column all read as dates or times."""
+    values = pd.Series(series.to_numpy(dtype=object)[present][:sample])
+    if values.empty or not all(isinstance(v, str) for v in values):
+        return False
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            parsed = pd.to_datetime(values, errors="coerce", format="mixed")
+    except (ValueError, TypeError, OverflowError):
+        return False
+    return bool(parsed.notna().all())
+
+
 def _build_columns(raw: pd.DataFrame, decimal: str, display: str
                    ) -> tuple[pd.DataFrame, list[str], list[str], dict[str, str], list[str]]:
     """Turn raw cells into the final frame; return (frame, numeric, ignored, reasons, notes)."""
@@ -584,7 +603,7 @@ def _build_columns(raw: pd.DataFrame, decimal: str, display: str
             reasons[col] = "no values"
             notes.append(f"Column '{col}' has no values.")
             continue
-        if kind == "number" or (kind == "text" and n_parsed >= NUMERIC_SHARE * n_present):
+        if kind == "number" or (kind == "text" and _mostly_numbers(n_parsed, n_present)):
             inf_rows = np.flatnonzero(np.isinf(values))
             if inf_rows.size:
                 row = int(inf_rows[0]) + 1
@@ -609,7 +628,8 @@ def _build_columns(raw: pd.DataFrame, decimal: str, display: str
         elif kind == "bool":
             reasons[col] = "true/false values"
         elif n_parsed == 0:
-            reasons[col] = _decimal_hint(series, present, decimal) or "text"
+            reasons[col] = (_decimal_hint(series, present, decimal)
+                            or ("dates or times" if _looks_like_dates(series, present) else "text"))
         else:
             pct = int(100 * n_parsed / n_present)
             reasons[col] = (_decimal_hint(series, present, decimal)
@@ -1102,8 +1122,10 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
         inputs = (inputs,)
     try:
         input_names = tuple(inputs)
+        hash((target, order_column, group_column, split_column) + input_names)
     except TypeError:
-        raise InputProblem("The inputs must be a list of column names.", code="no_inputs") from None
+        raise InputProblem("The target, inputs and other columns must be given as column "
+                           "names.", code="no_inputs") from None
     rows_in = int(len(frame))
     numeric_available = [str(c) for c in frame.columns if _usable_numeric(frame[c])]
 
@@ -1205,16 +1227,14 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
 
     if not keep.any():
         if rows_in == 0:
-            raise InputProblem("The table has no rows.", code="no_rows")
+            raise InputProblem("The table has no rows; load a file with data rows.",
+                               code="no_rows")
         worst = max(chosen, key=lambda c: int(masks[c].sum()))
         raise InputProblem(
             f"No rows are left: every row has a missing value in at least one chosen column. "
             f"Column '{worst}' is missing in {int(masks[worst].sum())} of {rows_in} rows. "
             "Choose other columns or fill in the missing values.",
             code="no_rows", column=str(worst))
-    if rows_dropped:
-        per = ", ".join(f"{c}: {n}" for c, n in drop_counts.items())
-        notes.append(f"Dropped {rows_dropped} of {rows_in} rows with missing values ({per}).")
 
     row_index = np.flatnonzero(keep).astype(np.int64)
     order = None
