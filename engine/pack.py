@@ -680,7 +680,9 @@ _CSS = """
 html { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
 body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-size: 7.6pt;
        line-height: 1.28; color: #1d2330; margin: 0; }
-.page { width: 190mm; margin: 0 auto; }
+.page { width: 190mm; height: PAGE_Hmm; margin: 0 auto; display: flex; flex-direction: column;
+        overflow: hidden; }
+.page > * { flex: 0 0 auto; }
 h1 { font-size: 13pt; margin: 0 0 .6mm 0; color: #17324d; }
 h2 { font-size: 8pt; margin: 0 0 1mm 0; color: #17324d; text-transform: uppercase;
      letter-spacing: .04em; border-bottom: 0.6pt solid #b8c4d2; padding-bottom: .4mm; }
@@ -691,10 +693,17 @@ h2 { font-size: 8pt; margin: 0 0 1mm 0; color: #17324d; text-transform: uppercas
 .verdict .fig { font-size: 8.2pt; margin-bottom: .8mm; }
 dl { display: grid; grid-template-columns: auto 1fr; gap: .2mm 2.5mm; margin: 0; }
 dt { color: #4a5566; white-space: nowrap; } dd { margin: 0; overflow-wrap: anywhere; }
-.charts { display: grid; grid-template-columns: 1fr 1fr; gap: 1.6mm 3.5mm; margin-bottom: 2mm; }
-figure { margin: 0; break-inside: avoid; }
-figure img { width: 100%; height: CHART_Hmm; object-fit: contain; display: block;
-             border: 0.4pt solid #d5dbe3; }
+.page > .charts { flex: 1 1 auto; min-height: 0; display: grid; grid-template-columns: 1fr 1fr;
+          grid-template-rows: minmax(0, 1fr) minmax(0, 1fr) minmax(min-content, 1fr);
+          gap: 1.6mm 3.5mm; margin-bottom: 2mm; }
+.page > .charts.three { grid-template-columns: 1fr 1fr 1fr;
+          grid-template-rows: minmax(0, 1fr) minmax(min-content, 1fr); gap: 1.6mm 2.5mm; }
+.charts.three table { font-size: 6.6pt; } .charts.three th, .charts.three td { padding: .3mm .7mm; }
+.charts.three figcaption, .charts.three p { font-size: 6.9pt; }
+figure { margin: 0; min-height: 0; break-inside: avoid; }
+figure.chart { border: 0.4pt solid #d5dbe3; position: relative; }
+figure.chart img { position: absolute; inset: 0; width: 100%; height: 100%; object-fit: contain;
+                   display: block; }
 figcaption { font-weight: bold; color: #17324d; margin-bottom: .4mm; }
 table { border-collapse: collapse; width: 100%; font-size: 7.2pt; }
 th, td { padding: .3mm 1.2mm; text-align: right; border-bottom: 0.4pt solid #d5dbe3; }
@@ -713,7 +722,8 @@ ol.warn .adv { color: #4a5566; }
 .foot { color: #6b7685; font-size: 6.2pt; margin-top: 1.2mm; }
 code { font-size: 6.6pt; overflow-wrap: anywhere; }
 @media screen { body { padding: 6mm 0; background: #f3f5f8; }
-                .page { background: #fff; padding: 6mm 8mm; width: 206mm; } }
+                .page { background: #fff; padding: 6mm 8mm; width: 206mm;
+                        height: calc(PAGE_Hmm + 12mm); } }
 @media print { .page { zoom: var(--fit, 1); } }
 """
 
@@ -721,18 +731,17 @@ code { font-size: 6.6pt; overflow-wrap: anywhere; }
 #: 9 mm top and bottom margins, less 3 mm of slack; A4 is taller.
 PAGE_BUDGET_MM = 258.0
 
-# If the laid-out page is still taller than the budget (long warnings, long
-# column names), shrink it for printing. Measures only; touches no user text.
+# The charts take whatever height the text leaves. Only if the text alone is
+# taller than the page (very many warnings) is the page shrunk for printing.
+# Measures only; touches no user text.
 _FIT_SCRIPT = """<script>
 (function () {
   function fit() {
     var page = document.querySelector('.page');
-    if (!page) { return; }
-    var mm = 96 / 25.4, budget = %BUDGET% * mm;
-    var pad = parseFloat(getComputedStyle(page).paddingTop) +
-              parseFloat(getComputedStyle(page).paddingBottom);
-    var h = page.getBoundingClientRect().height - pad;
-    var f = h > budget ? Math.max(0.5, budget / h) : 1;
+    if (!page || page.scrollHeight <= page.clientHeight + 1) { return; }
+    page.style.height = 'auto';
+    var f = Math.max(0.5, (page.clientHeight - 1) / page.scrollHeight);
+    page.style.height = '';
     document.documentElement.style.setProperty('--fit', f.toFixed(4));
   }
   if (document.readyState === 'complete') { fit(); } else { window.addEventListener('load', fit); }
@@ -740,26 +749,28 @@ _FIT_SCRIPT = """<script>
 </script>"""
 
 
-def _warning_height_mm(warnings: list[dict]) -> float:
-    """Rough printed height of the warning list in two columns (mm)."""
+def _warnings_height_mm(warnings: list[dict]) -> float:
+    """Rough printed height (mm) of the warning list set in two columns."""
     if not warnings:
-        return 4.0
+        return 6.0
     lines = 0.0
     for w in warnings:
-        chars = len(str(w.get("message") or "")) + len(str(w.get("advice") or "")) + 24
-        lines += math.ceil(chars / 64.0) + 0.25
-    return 1.5 + 3.2 * math.ceil(lines / 2.0 + 0.5)
+        chars = len(str(w.get("message") or "")) + len(str(w.get("advice") or "")) + 30
+        lines += math.ceil(chars / 66.0) + 0.2
+    return 5.0 + 3.2 * (lines / 2.0 + 0.6)
 
 
-def _chart_height(s: dict) -> float:
-    """Height (mm) of each chart box so that the page fits `PAGE_BUDGET_MM`."""
-    reason = len(str(s["recommended"].get("reason") or ""))
-    top = 30.0 + 3.3 * math.ceil(reason / 85.0)
-    roles = sum(1 for k in ("order_column", "group_column", "split_column") if s["roles"].get(k))
-    top = max(top, 36.0 + 3.3 * roles)
-    fixed = 10.0 + top + 2.0 + 5.0 + 13.0 + 4.0 + 4.0  # title, top, gaps, heading, caution, foot
-    free = PAGE_BUDGET_MM - fixed - _warning_height_mm(s["warnings"])
-    return max(26.0, min(62.0, free / 3.0 - 1.6))
+def chart_layout(s: dict) -> str:
+    """``'two'`` (3 rows of 2) or ``'three'`` (2 rows of 3) chart columns.
+
+    The charts get the height the text leaves; when little is left (many
+    warnings) three narrower columns show each chart larger than three short
+    rows would. Charts are about 1.5 times as wide as tall.
+    """
+    free = PAGE_BUDGET_MM - 95.0 - _warnings_height_mm(s["warnings"])
+    two = min(92.0, 1.5 * (free / 3.0))
+    three = min(60.0, 1.5 * (free / 2.0))
+    return "three" if three > two else "two"
 
 
 def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
@@ -783,7 +794,6 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
                           f"{_h(w['message'])}{val}{adv}</li>")
     warn_html = (f"<ol class=\"warn\">{''.join(warn_items)}</ol>" if warn_items
                  else "<p style=\"margin:0 0 1.5mm 0\">No warnings.</p>")
-    chart_h = _chart_height(s)
     rows = []
     for c in s["candidates"]:
         cls = " class=\"rec\"" if "recommended" in c["role"] else ""
@@ -791,23 +801,28 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
                     f"<td>{_num(c['validation_mse'])}</td><td>{_num(c['validation_mse_se'], 2)}</td>"
                     f"<td>{_num(c['validation_r2'])}</td><td>{_num(c['effective_df'], 3)}</td>"
                     f"<td class=\"l\">{_h(c['role'])}</td></tr>")
+    layout = chart_layout(s)
+    stems = (["validation_curve", "order_penalty_heatmap", "order_comparison", "learning_curve",
+              "coefficient_magnitudes"] if layout == "three" else list(CHART_FILES))
     figs = []
-    for stem, title in CHART_FILES.items():
+    for stem in stems:
+        title = CHART_FILES[stem]
         if stem in pngs:
             b64 = base64.b64encode(pngs[stem]).decode("ascii")
-            figs.append(f"<figure><img alt=\"{_h(title)}\" "
+            figs.append(f"<figure class=\"chart\"><img alt=\"{_h(title)}\" "
                         f"src=\"data:image/png;base64,{b64}\"></figure>")
     ff = s["final_fit"]
+    ranges = (f"Fitted on {_input_range_words(s, _h)}" if len(ff["input_range"]) <= 2 else
+              "Input ranges fitted on: see summary.json (final_fit)")
     figs.append("<figure><figcaption>Leading candidates (by mean validation error)</figcaption>"
                 "<table><tr><th>order</th><th>penalty</th><th>val. MSE</th><th>± SE</th>"
                 "<th>val. R²</th><th>eff. par.</th><th class=\"l\">role</th></tr>"
                 + "".join(rows) + "</table>"
                 f"<p style=\"margin:1mm 0 0 0\">Recommended model refitted on all {ff['rows']} "
                 f"rows: R² {_num(ff['r2'])}, residual SD {_num(ff['residual_sd'])}, condition "
-                f"number {_num(ff['condition_number'], 3)}. Fitted on "
-                f"{_input_range_words(s, _h)}; predictions outside that range were not "
-                "checked.</p></figure>")
-    css = _CSS.replace("CHART_H", f"{chart_h:.1f}")
+                f"number {_num(ff['condition_number'], 3)}. {ranges}; predictions outside "
+                "that range were not checked.</p></figure>")
+    css = _CSS.replace("PAGE_H", f"{PAGE_BUDGET_MM:g}")
     sha = d["sha256"] or "not from a file"
     script = _FIT_SCRIPT.replace("%BUDGET%", f"{PAGE_BUDGET_MM:g}")
     return f"""<!DOCTYPE html>
@@ -842,7 +857,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
   </dl>
  </div>
 </div>
-<div class="charts">{''.join(figs)}</div>
+<div class="charts {layout}">{''.join(figs)}</div>
 <h2>Warnings ({len(s['warnings'])})</h2>{warn_html}
 <div class="caution"><b>Before relying on this model.</b> {_h(CAUTION)}</div>
 <div class="foot">Fitladder {_h(generated)} · full numbers in summary.json and the CSV tables ·
