@@ -600,6 +600,14 @@ def _grid_words(s: dict) -> str:
     return f"{o} × {p}{inter} = {s['sweep']['cells']} cells"
 
 
+def _mse_words(c: dict, se_name: str = "") -> str:
+    """``0.926 ± 0.22 (1 SE)``, or a note that one split gives no standard error."""
+    if c.get("validation_mse_se") is None:
+        return f"{_num(c['validation_mse'])}, one split so no standard error"
+    tail = f" ({se_name})" if se_name else ""
+    return f"{_num(c['validation_mse'])} ± {_num(c['validation_mse_se'], 2)}{tail}"
+
+
 def _headline(s: dict) -> str:
     r = s["recommended"]
     return f"order {r['order']}, {_penalty_words(r['penalty'])}"
@@ -616,12 +624,12 @@ def render_markdown(s: dict) -> str:
     tgt = md_escape(roles["target"])
     lines = [f"# Model choice for {tgt}", ""]
     lines += [f"**Recommended: {_headline(s)}.** Validation RMSE {_num(r['validation_rmse'])} "
-              f"(MSE {_num(r['validation_mse'])} ± {_num(r['validation_mse_se'], 2)}, one "
-              f"standard error), validation R² {_num(r['validation_r2'])}, "
+              f"(MSE {_mse_words(r, 'one standard error')}), validation R² "
+              f"{_num(r['validation_r2'])}, "
               f"{_num(r['effective_df'], 3)} effective parameters.", "",
               f"Why: {md_escape(r['reason'])}", "",
               f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}: validation MSE "
-              f"{_num(b['validation_mse'])} ± {_num(b['validation_mse_se'], 2)}. "
+              f"{_mse_words(b)}. "
               f"Rule: {md_escape(s['rule'])}.", ""]
     lines += ["## Data", "",
               f"- File: {md_escape(d['file'])}",
@@ -836,12 +844,12 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
 <div class="top">
  <div class="verdict">
   <div class="big">Recommended: {_h(_headline(s))}</div>
-  <div class="fig">Validation RMSE <b>{_num(r['validation_rmse'])}</b> · MSE {_num(r['validation_mse'])}
-   ± {_num(r['validation_mse_se'], 2)} (1 SE) · R² {_num(r['validation_r2'])} ·
+  <div class="fig">Validation RMSE <b>{_num(r['validation_rmse'])}</b> ·
+   MSE {_h(_mse_words(r, '1 SE'))} · R² {_num(r['validation_r2'])} ·
    {_num(r['effective_df'], 3)} effective parameters</div>
   <div>{_h(r['reason'])}</div>
   <div style="margin-top:.8mm">Best cell: order {b['order']}, {_h(_penalty_words(b['penalty']))}
-   (MSE {_num(b['validation_mse'])} ± {_num(b['validation_mse_se'], 2)}).
+   (MSE {_h(_mse_words(b))}).
    Chosen by the {_h(s['rule'].split(':')[0])}.</div>
  </div>
  <div>

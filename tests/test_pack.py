@@ -1,0 +1,373 @@
+"""The meeting pack: every file, valid images, one printed page, exact numbers, safe text."""
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import json
+import math
+import operator
+import re
+import struct
+import xml.etree.ElementTree as ET
+import zipfile
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from engine import ArrayData, SchemeSpec, SweepSpec, fit_cell
+from engine.errors import InputProblem
+from engine.loading import load_table, prepare
+from engine.pack import (CHART_FILES, FORMULA_START, PACK_FILES, build_pack, escape_csv_cell,
+                         load_pipeline, md_escape, pack_zip_bytes, sklearn_pipeline)
+
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG signature, ISO/IEC 15948 section 5.2
+CHROMIUM = "/usr/bin/chromium"
+CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking"]
+
+NASTY_X1 = '=HYPERLINK("x")'
+NASTY_X2 = "@SUM(A1)"
+NASTY_Y = "<script>alert(1)</script>"
+NASTY_FILE = "<img src=x onerror=alert(2)>=cmd.csv"
+
+
+def _reject_constant(name):
+    raise AssertionError(f"summary.json holds the non-JSON constant {name}")
+
+
+@pytest.fixture(scope="module")
+def demo_pack(tmp_path_factory, demo_dir):
+    """Pack of the calibration demo: k-fold, orders 0-8, a short penalty grid."""
+    path = demo_dir / "calibration_curve.csv"
+    loaded = load_table(path)
+    data = prepare(loaded.frame, "bath_temp_C", ["probe_mV"])
+    spec = SweepSpec("bath_temp_C", ("probe_mV",), max_order=8,
+                     penalties=(0.0, 1e-3, 1e-1, 10.0), scheme=SchemeSpec("kfold"))
+    out = tmp_path_factory.mktemp("demo_pack")
+    res = build_pack(out, loaded=loaded, source_name=loaded.report.source_name, data=data,
+                     spec=spec, load_options={"decimal": None, "sheet": None},
+                     source_path=str(path))
+    return res, data, spec, path
+
+
+@pytest.fixture(scope="module")
+def nasty_pack(tmp_path_factory):
+    """Column and file names that are spreadsheet formulas and HTML; holdout (one split)."""
+    rng = np.random.default_rng(7)
+    n = 40
+    x1 = rng.uniform(-2, 3, n)
+    x2 = rng.uniform(10, 20, n)
+    y = -5.0 + 2.0 * x1 - 0.3 * x1 * x2 + rng.normal(0, 0.2, n)
+    folder = tmp_path_factory.mktemp("nasty_src")
+    path = folder / NASTY_FILE
+    pd.DataFrame({NASTY_X1: x1, NASTY_X2: x2, NASTY_Y: y}).to_csv(path, index=False)
+    loaded = load_table(path)
+    data = prepare(loaded.frame, NASTY_Y, [NASTY_X1, NASTY_X2])
+    spec = SweepSpec(NASTY_Y, (NASTY_X1, NASTY_X2), orders=(0, 1, 2), interactions=True,
+                     penalties=(0.0, 0.1), scheme=SchemeSpec("holdout", holdout_fraction=0.25))
+    out = tmp_path_factory.mktemp("nasty_pack")
+    res = build_pack(out, loaded=loaded, source_name=loaded.report.source_name, data=data,
+                     spec=spec)
+    return res, data, spec, path
+
+
+# ---------------------------------------------------------------------------
+# files and images
+# ---------------------------------------------------------------------------
+def test_pack_holds_every_file(demo_pack):
+    res, *_ = demo_pack
+    names = sorted(p.name for p in res.out_dir.iterdir())
+    assert names == sorted(PACK_FILES)
+    assert [p.name for p in res.files] == list(PACK_FILES)
+    for p in res.files:
+        assert p.stat().st_size > 0, p.name
+
+
+def test_zip_holds_the_same_files(demo_pack):
+    res, *_ = demo_pack
+    blob = pack_zip_bytes(res.out_dir)
+    with zipfile.ZipFile(io.BytesIO(blob)) as zf:
+        assert zf.testzip() is None
+        names = zf.namelist()
+        assert names == [f"{res.out_dir.name}/{n}" for n in PACK_FILES]
+        assert zf.read(f"{res.out_dir.name}/summary.json") == (res.out_dir / "summary.json").read_bytes()
+
+
+def test_charts_are_valid_png_and_svg(demo_pack):
+    res, *_ = demo_pack
+    for stem in CHART_FILES:
+        png = (res.out_dir / f"{stem}.png").read_bytes()
+        assert png[:8] == PNG_MAGIC, stem
+        # IHDR is the first chunk: width and height as big-endian 32-bit (ISO/IEC 15948, 11.2.2)
+        assert png[12:16] == b"IHDR"
+        width, height = struct.unpack(">II", png[16:24])
+        assert width > 200 and height > 100, (stem, width, height)
+        root = ET.fromstring((res.out_dir / f"{stem}.svg").read_text(encoding="utf-8"))
+        assert root.tag.split("}")[-1] == "svg", stem
+
+
+# ---------------------------------------------------------------------------
+# numbers
+# ---------------------------------------------------------------------------
+def test_summary_json_carries_full_precision_numbers(demo_pack):
+    res, data, spec, path = demo_pack
+    text = (res.out_dir / "summary.json").read_text(encoding="utf-8")
+    s = json.loads(text, parse_constant=_reject_constant)
+    a = res.analysis
+    assert len(s["grid"]) == len(a.validation)
+    for cell, (_, row) in zip(s["grid"], a.validation.iterrows()):
+        for key in ("order", "penalty", "train_mse", "validation_mse", "validation_mse_se",
+                    "validation_r2", "effective_df", "parameters"):
+            assert cell[key] == row[key], key  # exact: no rounding on the way to JSON
+    rec, best = a.recommendation.recommended, a.recommendation.best
+    for key in ("order", "penalty", "validation_mse", "validation_mse_se", "parameters",
+                "effective_df"):
+        assert s["recommended"][key] == getattr(rec, key)
+        assert s["best"][key] == getattr(best, key)
+    assert s["coefficients"]["terms"] == list(res.model.terms)
+    assert s["coefficients"]["terms"][:2] == ["intercept", "probe_mV"]
+    assert s["coefficients"]["values"] == [float(v) for v in res.model.coefficients]
+    # SHA-256 computed independently with hashlib
+    assert s["data"]["sha256"] == hashlib.sha256(path.read_bytes()).hexdigest()
+    assert s["data"]["rows_used"] == 24 and s["data"]["rows_dropped"] == 0
+    assert s["warnings"], "order 8 on 24 rows should draw at least one warning"
+    for i, w in enumerate(s["warnings"], start=1):
+        assert w["number"] == i and w["code"] and w["message"] and "value" in w
+
+
+def test_nan_becomes_null(nasty_pack):
+    res, *_ = nasty_pack
+    text = (res.out_dir / "summary.json").read_text(encoding="utf-8")
+    assert "NaN" not in text and "Infinity" not in text
+    s = json.loads(text, parse_constant=_reject_constant)
+    # one holdout split: the standard error across splits does not exist
+    assert all(c["validation_mse_se"] is None for c in s["grid"])
+    assert all(isinstance(c["validation_mse"], float) for c in s["grid"])
+
+
+def _csv_columns(path: Path) -> dict[str, list[str]]:
+    with open(path, newline="", encoding="utf-8") as fh:
+        rows = list(csv.reader(fh))
+    return {name: [r[j] for r in rows[1:]] for j, name in enumerate(rows[0])}
+
+
+def test_csv_tables_round_trip_exactly(demo_pack):
+    res, *_ = demo_pack
+    grid = _csv_columns(res.out_dir / "validation_grid.csv")
+    a = res.analysis.validation
+    assert list(grid) == list(a.columns)
+    # Python's float() of the written text gives back the very same double
+    assert [float(v) for v in grid["validation_mse"]] == list(a["validation_mse"])
+    assert [float(v) for v in grid["train_mse"]] == list(a["train_mse"])
+    coefs = _csv_columns(res.out_dir / "model_coefficients.csv")
+    assert coefs["term"] == list(res.model.terms)
+    assert [float(v) for v in coefs["coefficient"]] == list(res.model.coefficients)
+    lc = pd.read_csv(res.out_dir / "learning_curve.csv")
+    assert {"order", "penalty", "train_size", "validation_mse"} <= set(lc.columns)
+    rec = res.analysis.recommendation.recommended
+    assert ((lc["order"] == rec.order) & np.isclose(lc["penalty"], rec.penalty)).any()
+
+
+def test_record_holds_what_a_rerun_needs(demo_pack):
+    res, data, spec, path = demo_pack
+    r = json.loads((res.out_dir / "record.json").read_text(encoding="utf-8"))
+    assert SweepSpec.from_dict(r["spec"]) == spec
+    assert r["seed"] == spec.seed
+    assert r["data"]["sha256"] == hashlib.sha256(path.read_bytes()).hexdigest()
+    assert r["data"]["file"] == "calibration_curve.csv" and r["data"]["rows_used"] == 24
+    assert r["roles"]["target"] == "bath_temp_C" and r["roles"]["inputs"] == ["probe_mV"]
+    assert set(r["versions"]) >= {"numpy", "pandas", "scikit-learn", "python", "fitladder"}
+    assert set(r["load_options"]) == {"decimal", "sheet"}
+    assert r["compare_cells"][0] == [res.model.order, res.model.penalty]
+
+
+# ---------------------------------------------------------------------------
+# the saved model
+# ---------------------------------------------------------------------------
+def _rel_gap(pred_a, pred_b, y) -> float:
+    return float(np.max(np.abs(pred_a - pred_b)) / np.ptp(y))
+
+
+def test_saved_pipeline_reproduces_predictions(demo_pack, nasty_pack):
+    for res, data in ((demo_pack[0], demo_pack[1]), (nasty_pack[0], nasty_pack[1])):
+        pipe = load_pipeline(res.out_dir / "model.skops")
+        lo, hi = data.X.min(axis=0), data.X.max(axis=0)
+        grid = np.random.default_rng(1).uniform(lo - 0.25 * (hi - lo), hi + 0.25 * (hi - lo),
+                                                size=(300, data.X.shape[1]))
+        for X in (data.X, grid):
+            assert _rel_gap(pipe.predict(X), res.model.predict(X), data.y) <= 1e-9
+
+
+@pytest.mark.parametrize("interactions,order,penalty", [
+    (False, 0, 0.0), (False, 1, 0.0), (False, 3, 0.0), (False, 4, 0.5),
+    (True, 2, 0.0), (True, 3, 0.01)])
+def test_pipeline_matches_the_engine_for_several_inputs(interactions, order, penalty):
+    rng = np.random.default_rng(3)
+    X = rng.uniform([0.0, 100.0, -1.0], [5.0, 300.0, 1.0], size=(80, 3))
+    y = 1 + X[:, 0] ** 2 - 0.01 * X[:, 1] + X[:, 0] * X[:, 2] + rng.normal(0, 0.1, 80)
+    data = ArrayData(X, y, inputs=("a", "b", "c"))
+    spec = SweepSpec("y", ("a", "b", "c"), interactions=interactions)
+    model = fit_cell(data, spec, order, penalty)
+    pipe = sklearn_pipeline(model)
+    Xt = rng.uniform([-1.0, 50.0, -2.0], [6.0, 350.0, 2.0], size=(200, 3))
+    assert _rel_gap(pipe.predict(Xt), model.predict(Xt), y) <= 1e-9
+
+
+def test_pipeline_agrees_with_an_independent_scikit_learn_fit(demo_pack):
+    """Unpenalised order-2 fit: the exported pipeline against scikit-learn's own
+    PolynomialFeatures + LinearRegression fitted on the same rows (external reference)."""
+    from sklearn.linear_model import LinearRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import PolynomialFeatures
+
+    _, data, spec, _ = demo_pack
+    model = fit_cell(data, spec, 2, 0.0)
+    ours = sklearn_pipeline(model)
+    theirs = make_pipeline(PolynomialFeatures(2), LinearRegression()).fit(data.X, data.y)
+    grid = np.linspace(data.X.min(), data.X.max(), 50)[:, None]
+    assert _rel_gap(ours.predict(grid), theirs.predict(grid), data.y) <= 1e-9
+
+
+def test_loading_refuses_foreign_objects(tmp_path):
+    import skops.io as sio
+    from sklearn.pipeline import Pipeline
+    from sklearn.preprocessing import FunctionTransformer
+
+    unsafe = tmp_path / "unsafe.skops"
+    sio.dump(Pipeline([("f", FunctionTransformer(operator.neg))]), str(unsafe))
+    with pytest.raises(InputProblem, match="does not use"):
+        load_pipeline(unsafe)
+    other = tmp_path / "other.skops"
+    sio.dump(Pipeline([("f", FunctionTransformer(np.log1p))]), str(other))
+    with pytest.raises(InputProblem, match="not a Fitladder model"):
+        load_pipeline(other)
+
+
+# ---------------------------------------------------------------------------
+# escaping
+# ---------------------------------------------------------------------------
+def test_escape_csv_cell_keeps_numbers_and_defuses_formulas():
+    # common practice (OWASP "CSV injection"): a leading ' stops formula evaluation
+    assert escape_csv_cell(-3.5) == -3.5
+    assert escape_csv_cell(np.float64(-2.0)) == -2.0
+    assert escape_csv_cell(7) == 7
+    for text in ("=1+2", "+1", "-1+2", "@SUM(A1)", "\tx", "\rx"):
+        assert escape_csv_cell(text) == "'" + text
+    assert escape_csv_cell("probe_mV") == "probe_mV"
+
+
+def _csv_cells(path: Path):
+    with open(path, newline="", encoding="utf-8") as fh:
+        for row in csv.reader(fh):
+            yield from row
+
+
+def _is_number(text: str) -> bool:
+    try:
+        return math.isfinite(float(text)) or text.lower() in ("nan", "inf", "-inf")
+    except ValueError:
+        return False
+
+
+def test_csv_files_hold_no_live_formula(nasty_pack):
+    res, *_ = nasty_pack
+    negative_numbers = 0
+    for name in PACK_FILES:
+        if not name.endswith(".csv"):
+            continue
+        for cell in _csv_cells(res.out_dir / name):
+            if cell.startswith(FORMULA_START):
+                assert _is_number(cell), (name, cell)  # only plain numbers may start so
+                negative_numbers += cell.startswith("-")
+    assert negative_numbers > 0  # negative numbers stayed numbers, not quoted text
+    terms = list(_csv_cells(res.out_dir / "model_coefficients.csv"))
+    assert "'" + NASTY_X1 in terms and "'" + NASTY_X2 in terms
+    assert f"'{NASTY_X1}*{NASTY_X2}" in terms
+
+
+def test_summary_html_and_markdown_escape_names(nasty_pack):
+    res, *_ = nasty_pack
+    page = (res.out_dir / "summary.html").read_text(encoding="utf-8")
+    assert "<script>alert" not in page
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in page
+    assert "<img src=x" not in page and "&lt;img src=x onerror=alert(2)&gt;=cmd.csv" in page
+    assert '=HYPERLINK("x")' not in page and "=HYPERLINK(&quot;x&quot;)" in page
+    md = (res.out_dir / "summary.md").read_text(encoding="utf-8")
+    assert "<script>" not in md and "<img" not in md
+    assert md_escape(NASTY_Y) in md and md_escape(NASTY_FILE) in md
+    assert md_escape(NASTY_X1) == r'=HYPERLINK\("x"\)'
+
+
+def test_svg_charts_carry_no_script(nasty_pack):
+    res, *_ = nasty_pack
+    for stem in CHART_FILES:
+        root = ET.fromstring((res.out_dir / f"{stem}.svg").read_text(encoding="utf-8"))
+        assert not [el for el in root.iter() if el.tag.split("}")[-1].lower() == "script"]
+
+
+def test_markdown_summary_content(demo_pack):
+    res, *_ = demo_pack
+    md = (res.out_dir / "summary.md").read_text(encoding="utf-8")
+    s = res.summary
+    assert s["data"]["sha256"] in md
+    assert "calibration\\_curve\\.csv" in md
+    rec = s["recommended"]
+    assert f"Recommended: order {rec['order']}" in md
+    for w in s["warnings"]:
+        assert f"{w['number']}. " in md
+    assert "future data resemble" in md and "your organisation's own standards" in md
+
+
+def test_unknown_compare_order_is_refused(demo_pack, tmp_path):
+    res, data, spec, _ = demo_pack
+    with pytest.raises(InputProblem, match="not in this sweep"):
+        build_pack(tmp_path, loaded=None, source_name="x.csv", data=data, spec=spec,
+                   analysis=res.analysis, compare_orders=[12])
+
+
+# ---------------------------------------------------------------------------
+# in a real browser: one printed page, no script from the data runs
+# ---------------------------------------------------------------------------
+def _pdf_pages(pdf: bytes) -> int:
+    # page objects carry "/Type /Page" (PDF 32000-1:2008, 7.7.3.3); "/Pages" is the tree node
+    return len(re.findall(rb"/Type\s*/Page(?![a-zA-Z])", pdf))
+
+
+@pytest.fixture(scope="module")
+def browser():
+    sync_api = pytest.importorskip("playwright.sync_api", reason="playwright is not installed")
+    if not Path(CHROMIUM).exists():
+        pytest.skip(f"chromium is not installed at {CHROMIUM}")
+    with sync_api.sync_playwright() as p:
+        b = p.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
+        yield b
+        b.close()
+
+
+@pytest.mark.browser
+@pytest.mark.parametrize("which", ["demo_pack", "nasty_pack"])
+def test_summary_prints_on_one_page(browser, which, request, output_dir):
+    res = request.getfixturevalue(which)[0]
+    url = (res.out_dir / "summary.html").as_uri()
+    for js in (True, False):  # the layout fits without the script that shrinks overflow
+        ctx = browser.new_context(java_script_enabled=js, viewport={"width": 900, "height": 1200})
+        page = ctx.new_page()
+        dialogs = []
+        page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
+        page.goto(url)
+        page.wait_for_load_state("load")
+        for fmt in ("A4", "Letter"):
+            pdf = page.pdf(format=fmt, print_background=True)
+            assert pdf[:5] == b"%PDF-"
+            assert _pdf_pages(pdf) == 1, (which, fmt, js)
+        if js:
+            page.emulate_media(media="print")
+            page.screenshot(path=str(output_dir / f"pack_summary_{which}.png"), full_page=True)
+            body = page.inner_text("body")
+            assert "Recommended:" in body and "Before relying on this model" in body
+            if which == "nasty_pack":
+                assert NASTY_Y in body and NASTY_FILE in body  # shown as text ...
+                assert dialogs == []     # ... and never run
+        ctx.close()
