@@ -25,7 +25,7 @@ from .final_fit import FinalModel
 from .recommend import Cell
 
 __all__ = [
-    "PALETTE", "MODEL_COLOURS", "STEEP_RATIO", "SCATTER_LIMIT", "column_units", "plain_name",
+    "PALETTE", "MODEL_COLOURS", "STEEP_RATIO", "STEEP_MIN_TERMS", "SCATTER_LIMIT", "column_units", "plain_name",
     "penalty_text", "coefficient_view", "validation_curve_chart", "heatmap_chart",
     "learning_curve_chart", "comparison_chart", "coefficient_chart", "chart_to_png",
     "chart_to_svg",
@@ -54,8 +54,10 @@ MODEL_COLOURS = ["#c2502f", "#2a7f8e", "#4b2e83", "#d99a00", "#5c7f2a", "#8a5a44
 #: Sequential colour ramp for error heat maps: low error light, high error dark.
 ERROR_RAMP = ["#f6f1de", "#e8c98a", "#d58a4f", "#a8483a", "#5b2338"]
 #: A term is "steep" when its standardised magnitude is more than this many
-#: times the median magnitude of the other terms of the same cell.
+#: times the median magnitude of the other terms of the same cell (cells
+#: with at least `STEEP_MIN_TERMS` terms besides the intercept).
 STEEP_RATIO = 3.0
+STEEP_MIN_TERMS = 3
 #: Most data points drawn in one scatter panel; larger tables are sampled.
 SCATTER_LIMIT = 1500
 FONT = "DejaVu Sans, Verdana, sans-serif"
@@ -65,7 +67,12 @@ _HEIGHT = 300
 
 
 def _finish(chart: alt.TopLevelMixin) -> alt.TopLevelMixin:
-    """Apply the product look to a top-level chart."""
+    """Apply the product look to a top-level chart.
+
+    The size is fixed by the chart (``autosize: pad``): titles, legends and
+    axes are added around the plotting area, never squeezed into it.
+    """
+    chart = chart.properties(autosize=alt.AutoSizeParams(type="pad"))
     return (chart.configure(font=FONT, background="#ffffff")
             .configure_view(stroke=None)
             .configure_axis(labelColor=PALETTE["ink"], titleColor=PALETTE["ink"],
@@ -608,7 +615,8 @@ def coefficient_view(coef_table: pd.DataFrame, order: int, penalty: float) -> pd
     -------
     DataFrame with term, std_mean, std_sd, raw_mean, raw_sd (when present),
     magnitude (= |std_mean|), ratio_to_median (magnitude over the median
-    magnitude of the other terms) and steep (ratio above `STEEP_RATIO`),
+    magnitude of the other terms) and steep (ratio above `STEEP_RATIO`, in
+    cells with at least `STEEP_MIN_TERMS` terms besides the intercept),
     largest magnitude first. The intercept is left out (it has no
     standardised value).
     """
@@ -626,7 +634,7 @@ def coefficient_view(coef_table: pd.DataFrame, order: int, penalty: float) -> pd
         ratio[i] = mag[i] / med if med > 0 else (np.inf if mag[i] > 0 and others.size else np.nan)
     t["magnitude"] = mag
     t["ratio_to_median"] = ratio
-    t["steep"] = np.nan_to_num(ratio, nan=0.0) > STEEP_RATIO
+    t["steep"] = (np.nan_to_num(ratio, nan=0.0) > STEEP_RATIO) & (mag.size >= STEEP_MIN_TERMS)
     cols = [c for c in ["term", "std_mean", "std_sd", "raw_mean", "raw_sd", "magnitude",
                         "ratio_to_median", "steep"] if c in t.columns]
     return t[cols].sort_values("magnitude", ascending=False, kind="stable").reset_index(drop=True)
@@ -647,7 +655,7 @@ def coefficient_chart(coef_table: pd.DataFrame, order: int, penalty: float,
     """
     v = coefficient_view(coef_table, order, penalty)
     notes = [f"Steep (highlighted): magnitude more than {STEEP_RATIO:g} times the median "
-             "magnitude of the other terms."]
+             f"magnitude of the other terms (cells with {STEEP_MIN_TERMS} or more terms)."]
     unit = units if units is not None else (column_units(target) if target else None)
     xtitle = ("|coefficient| per standard deviation of the term"
               + (f" ({unit})" if unit else ""))

@@ -132,6 +132,8 @@ def test_coefficient_chart_and_steep_rule(calibration):
     chart = C.coefficient_chart(coef, 8, 0.0, target="bath_temp_C")
     assert "more than 3 times the median" in _spec_text(chart)
     _check_outputs(chart)
+    two = C.coefficient_view(coef, 2, 0.0)  # two terms: too few for the rule
+    assert len(two) == 2 and not two["steep"].any()
     _check_outputs(C.coefficient_chart(coef, 0, 0.0))  # intercept only: a note, no bars
 
 

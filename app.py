@@ -1,0 +1,889 @@
+"""Fitladder dashboard: choose model order and penalty, and show why.
+
+Lays out widgets and calls the engine; all computing happens in `engine`.
+Heavy steps are cached (``st.cache_data``; the sweep itself in a small
+in-process store so its progress bar can move) keyed on the SHA-256 of the
+file's bytes, the roles and the request, so changing only a view does not
+recompute.
+
+Uploaded files are kept as ``st.session_state["upload"] = (name, bytes)``:
+changing roles or settings never loses them, and tests can put a file there
+directly. Uploaded bytes are only ever parsed as data (`engine.loading`).
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+import tempfile
+import threading
+import traceback
+from collections import OrderedDict
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from engine import (SCHEME_HELP, InputProblem, SchemeSpec, SweepSpec, analyse,
+                    default_penalties, learning_curve)
+from engine import charts as C
+from engine.compare import fit_candidates
+from engine.loading import DEFAULT_MAX_BYTES, load_table, prepare
+
+HERE = Path(__file__).resolve().parent
+DEMO_DIR = HERE / "demo_data"
+UPLOAD = "upload"
+
+# ---------------------------------------------------------------------------
+# demo data sets and their sensible settings
+# ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Preset:
+    """Default roles and setup for a data set."""
+
+    target: str | None = None
+    inputs: tuple[str, ...] = ()
+    all_inputs: bool = False
+    order_column: str | None = None
+    group_column: str | None = None
+    split_column: str | None = None
+    scheme: str = "kfold"
+    folds: int = 5
+    repeats: int = 3
+    gap: int = 0
+    holdout_fraction: float = 0.2
+    max_order: int = 4
+    interactions: bool = False
+    pen_low: float = 1e-4
+    pen_high: float = 1e3
+    pen_count: int = 15
+    pen_zero: bool = True
+    seed: int = 0
+
+
+@dataclass(frozen=True)
+class Demo:
+    file: str
+    title: str
+    blurb: str
+    preset: Preset = field(default_factory=Preset)
+
+
+DEMOS: dict[str, Demo] = {
+    "demo:calibration": Demo(
+        "calibration_curve.csv", "Demo: probe calibration (24 rows)",
+        "A temperature probe read against a reference thermometer in a bath. Small table of "
+        "independent readings, so leave-one-out fits.",
+        Preset(target="bath_temp_C", inputs=("probe_mV",), scheme="loo", max_order=10)),
+    "demo:drift": Demo(
+        "drifting_line_sensors.csv", "Demo: reactor line log (3,000 rows)",
+        "One reading a minute for two days; neighbouring minutes resemble each other and the "
+        "feed changes late on, so folds are contiguous time blocks with a gap.",
+        Preset(target="yield_pct", all_inputs=True, order_column="minute", scheme="blocked",
+               folds=5, gap=30, max_order=3)),
+    "demo:wide": Demo(
+        "wide_spectra.csv", "Demo: dye-bath spectra (60 rows, 150 channels)",
+        "More inputs than rows: a straight-line fit needs a penalty to hold up on new samples.",
+        Preset(target="analyte_mg_L", all_inputs=True, scheme="kfold", folds=5, max_order=1)),
+}
+
+SCHEME_NAMES = {
+    "kfold": "Shuffled folds",
+    "repeated": "Shuffled folds, repeated",
+    "loo": "Leave-one-out",
+    "blocked": "Time blocks with a gap",
+    "grouped": "Whole groups held out",
+    "holdout": "Later period held out",
+    "column": "My own split column",
+}
+PENALTY_STEPS = [10.0 ** k for k in range(-8, 7)]
+NONE = "(none)"
+SETUP_KEYS = ("target", "inputs", "all_inputs", "order_column", "group_column", "split_column",
+              "scheme", "folds", "repeats", "gap", "holdout_fraction", "max_order",
+              "interactions", "pen_range", "pen_count", "pen_zero", "seed")
+
+# ---------------------------------------------------------------------------
+# errors: readable messages, never a traceback
+# ---------------------------------------------------------------------------
+
+
+def md(text: Any) -> str:
+    """Text from data or the engine, made safe for Markdown (no formatting, no maths)."""
+    out = str(text)
+    for ch in ("\\", "`", "*", "_", "[", "]", "$", "<", ">", "#", "|", "~"):
+        out = out.replace(ch, "\\" + ch)
+    return out
+
+
+def show_problem(exc: BaseException, where: str = "") -> None:
+    """Show an exception as a short message (InputProblem: its own words)."""
+    if isinstance(exc, InputProblem):
+        st.error(md(exc.message), icon=":material/error:")
+    else:
+        detail = str(exc).strip().splitlines()[0][:300] if str(exc).strip() else ""
+        st.error(f"Sorry, something went wrong{(' while ' + where) if where else ''}: "
+                 f"{type(exc).__name__}{(': ' + md(detail)) if detail else ''}. "
+                 "The rest of the page still works; try other settings or another file.",
+                 icon=":material/report:")
+        # keep the full story in the server log, not on the page
+        print(traceback.format_exc())
+
+
+def guarded(where: str, fn: Callable[..., Any], *args: Any, **kwargs: Any) -> Any:
+    """Run ``fn``; on any error show a message and return None."""
+    try:
+        return fn(*args, **kwargs)
+    except InputProblem as exc:
+        show_problem(exc, where)
+    except Exception as exc:  # noqa: BLE001 - the page must stay usable
+        show_problem(exc, where)
+    return None
+
+
+# ---------------------------------------------------------------------------
+# cached engine calls
+# ---------------------------------------------------------------------------
+
+
+@st.cache_data(show_spinner=False, max_entries=4)
+def read_demo(file: str) -> bytes:
+    return (DEMO_DIR / file).read_bytes()
+
+
+@st.cache_data(show_spinner=False, max_entries=8)
+def cached_load(digest: str, name: str, _raw: bytes):
+    """`engine.loading.load_table` of the bytes whose SHA-256 is ``digest``."""
+    return load_table(_raw, name=name)
+
+
+@st.cache_data(show_spinner=False, max_entries=16)
+def cached_prepare(digest: str, roles: tuple, _frame: pd.DataFrame):
+    target, inputs, order_col, group_col, split_col = roles
+    return prepare(_frame, target, list(inputs), order_column=order_col,
+                   group_column=group_col, split_column=split_col)
+
+
+@st.cache_resource(show_spinner=False)
+def _sweep_store() -> tuple[OrderedDict, threading.Lock]:
+    """In-process store of finished sweeps (most recent last)."""
+    return OrderedDict(), threading.Lock()
+
+
+SWEEPS_KEPT = 16
+
+
+def cached_analysis(digest: str, roles: tuple, spec_dict: dict, data,
+                    progress: Callable[[float, str], None] | None = None):
+    """The sweep, keyed on the file hash, the roles and the request.
+
+    Kept in a small in-process store rather than ``st.cache_data`` so that the
+    progress bar can be driven from the engine's callback on a first run
+    (elements cannot be updated from inside ``st.cache_data``). Analyses are
+    never modified after they are made, so sharing them is safe.
+    """
+    key = (digest, repr(roles), json.dumps(spec_dict, sort_keys=True, default=str))
+    store, lock = _sweep_store()
+    with lock:
+        if key in store:
+            store.move_to_end(key)
+            return store[key]
+    result = analyse(data, SweepSpec.from_dict(spec_dict), progress=progress)
+    with lock:
+        store[key] = result
+        while len(store) > SWEEPS_KEPT:
+            store.popitem(last=False)
+    return result
+
+
+@st.cache_data(show_spinner=False, max_entries=16)
+def cached_learning_curve(digest: str, roles: tuple, spec_dict: dict, orders: tuple, _data):
+    return learning_curve(_data, SweepSpec.from_dict(spec_dict), orders=list(orders))
+
+
+@st.cache_data(show_spinner=False, max_entries=32)
+def cached_models(digest: str, roles: tuple, spec_dict: dict, cells: tuple, _data):
+    return fit_candidates(_data, SweepSpec.from_dict(spec_dict), list(cells))
+
+
+# ---------------------------------------------------------------------------
+# data source
+# ---------------------------------------------------------------------------
+
+
+def take_upload() -> None:
+    """Callback of the file uploader: keep the bytes in session state."""
+    f = st.session_state.get("uploader")
+    if f is None:
+        return
+    st.session_state[UPLOAD] = (f.name, f.getvalue())
+    st.session_state["source_choice"] = UPLOAD
+
+
+def upload_cap_mb() -> int:
+    try:
+        return int(st.get_option("server.maxUploadSize"))
+    except Exception:  # noqa: BLE001
+        return DEFAULT_MAX_BYTES // (1024 * 1024)
+
+
+def source_bytes(choice: str) -> tuple[str, bytes] | None:
+    """(name, bytes) of the chosen data set."""
+    if choice == UPLOAD:
+        up = st.session_state.get(UPLOAD)
+        return (str(up[0]), bytes(up[1])) if up else None
+    demo = DEMOS[choice]
+    return demo.file, read_demo(demo.file)
+
+
+def source_label(choice: str) -> str:
+    if choice == UPLOAD:
+        up = st.session_state.get(UPLOAD)
+        return f"Your file: {up[0]}" if up else "Your file"
+    return DEMOS[choice].title
+
+
+# ---------------------------------------------------------------------------
+# roles and setup
+# ---------------------------------------------------------------------------
+
+
+def guess_preset(frame: pd.DataFrame, numeric: list[str]) -> Preset:
+    """Defaults for an uploaded table: last numeric column as target, the rest as inputs.
+
+    A numeric column whose name reads like a clock or a counter (time,
+    minute, index, ...) and whose values only ever increase is offered as the
+    order column instead of an input, when another input remains.
+    """
+    if not numeric:
+        return Preset()
+    target = numeric[-1]
+    order_col = None
+    clock = re.compile(r"(?i)(time|minute|hour|second|date|day|index|seq|step|sample|^t$|^row)")
+    for c in numeric[:-1]:
+        v = frame[c].to_numpy(float)
+        v = v[np.isfinite(v)]
+        if (clock.search(c) and v.size > 2 and np.all(np.diff(v) > 0)
+                and len(numeric) > 2):
+            order_col = c
+            break
+    inputs = tuple(c for c in numeric if c not in (target, order_col))[:40]
+    many = len([c for c in numeric if c not in (target, order_col)]) > 12
+    return Preset(target=target, inputs=() if many else inputs, all_inputs=many,
+                  order_column=order_col, scheme="blocked" if order_col else "kfold",
+                  max_order=1 if many else 4)
+
+
+def apply_preset(p: Preset) -> None:
+    """Put a preset into the widget state (used when the data set changes)."""
+    ss = st.session_state
+    ss["target"] = p.target
+    ss["inputs"] = list(p.inputs)
+    ss["all_inputs"] = p.all_inputs
+    ss["order_column"] = p.order_column or NONE
+    ss["group_column"] = p.group_column or NONE
+    ss["split_column"] = p.split_column or NONE
+    ss["scheme"] = p.scheme
+    ss["folds"] = p.folds
+    ss["repeats"] = p.repeats
+    ss["gap"] = p.gap
+    ss["holdout_fraction"] = p.holdout_fraction
+    ss["max_order"] = p.max_order
+    ss["interactions"] = p.interactions
+    ss.pop("pen_range", None)  # a range slider takes its start from ``value=``
+    ss["pen_count"] = p.pen_count
+    ss["pen_zero"] = p.pen_zero
+    ss["seed"] = p.seed
+    ss["_preset"] = p
+
+
+def keep(key: str, default: Any) -> None:
+    """Give a widget key a value when it has none (widgets not shown lose theirs)."""
+    if key not in st.session_state:
+        st.session_state[key] = st.session_state.get("_preset", Preset()).__dict__.get(key, default)
+
+
+@dataclass
+class Choices:
+    """What the sidebar asked for."""
+
+    roles: tuple  # (target, inputs, order, group, split)
+    spec: SweepSpec | None
+
+
+def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
+    """Sidebar widgets for roles and setup; returns the request."""
+    ss = st.session_state
+    columns = [str(c) for c in frame.columns]
+    st.sidebar.subheader("2 · Roles")
+    keep("target", numeric[-1])
+    if ss["target"] not in numeric:
+        ss["target"] = numeric[-1]
+    target = st.sidebar.selectbox("Target: the column to predict", numeric, key="target")
+    others = [c for c in numeric if c != target]
+    keep("all_inputs", False)
+    all_inputs = st.sidebar.checkbox(f"Use every other numeric column as an input",
+                                     key="all_inputs")
+    keep("order_column", NONE)
+    if ss["order_column"] not in [NONE] + columns:
+        ss["order_column"] = NONE
+    if all_inputs:
+        order_pick = ss.get("order_column", NONE)
+        inputs = [c for c in others if c != order_pick]
+        st.sidebar.caption(f"{len(inputs)} input columns.")
+    else:
+        keep("inputs", others[:1])
+        current = list(ss["inputs"])
+        valid = [c for c in current if c in others]
+        # drop inputs that are no longer allowed (e.g. now the target); an emptied
+        # list the user made stays empty and gets a message below
+        ss["inputs"] = valid or (others[:1] if current else [])
+        inputs = st.sidebar.multiselect("Inputs", others, key="inputs")
+    order_col = st.sidebar.selectbox(
+        "Order / time column (optional)", [NONE] + [c for c in columns if c != target],
+        key="order_column", help="Rows are sorted by it; time blocks and the later-period "
+                                 "holdout follow it.")
+    keep("group_column", NONE)
+    keep("split_column", NONE)
+    for k in ("group_column", "split_column"):
+        if ss[k] not in [NONE] + columns:
+            ss[k] = NONE
+    group_col = st.sidebar.selectbox("Group column (optional)", [NONE] + columns,
+                                     key="group_column",
+                                     help="Batch, subject or site labels, for whole-group folds.")
+    split_col = ss.get("split_column", NONE)
+
+    st.sidebar.subheader("3 · Validation")
+    keep("scheme", "kfold")
+    scheme = st.sidebar.selectbox("How to hold data out", list(SCHEME_NAMES),
+                                  format_func=SCHEME_NAMES.get, key="scheme")
+    st.sidebar.caption(SCHEME_HELP[scheme])
+    folds = repeats = gap = None
+    frac = 0.2
+    if scheme in ("kfold", "repeated", "blocked", "grouped"):
+        keep("folds", 5)
+        folds = st.sidebar.number_input("Folds", min_value=2, max_value=100, step=1, key="folds")
+    if scheme == "repeated":
+        keep("repeats", 3)
+        repeats = st.sidebar.number_input("Repeats", min_value=1, max_value=50, step=1,
+                                          key="repeats")
+    if scheme == "blocked":
+        keep("gap", 0)
+        gap = st.sidebar.number_input("Gap (rows left out on each side of a block)",
+                                      min_value=0, max_value=100000, step=1, key="gap")
+    if scheme == "holdout":
+        keep("holdout_fraction", 0.2)
+        frac = st.sidebar.slider("Share of rows held out at the end", 0.05, 0.5, step=0.05,
+                                 key="holdout_fraction")
+    if scheme in ("blocked", "holdout") and order_col == NONE:
+        st.sidebar.caption("No order column chosen: the row order of the file is used.")
+    if scheme == "column":
+        split_col = st.sidebar.selectbox("Split column", [NONE] + columns, key="split_column")
+    if scheme == "grouped" and group_col == NONE:
+        st.sidebar.caption("Choose a group column above.")
+
+    st.sidebar.subheader("4 · Models")
+    keep("max_order", 4)
+    max_order = st.sidebar.number_input("Highest polynomial order", min_value=0, max_value=30,
+                                        step=1, key="max_order")
+    keep("interactions", False)
+    interactions = st.sidebar.checkbox("Products of inputs (interactions)", key="interactions")
+    preset = ss.get("_preset", Preset())
+    pen_range = st.sidebar.select_slider("Ridge penalty range", PENALTY_STEPS,
+                                         value=(preset.pen_low, preset.pen_high),
+                                         format_func=lambda v: f"{v:.0e}".replace("e-0", "e-")
+                                         .replace("e+0", "e"), key="pen_range")
+    keep("pen_count", 15)
+    pen_count = st.sidebar.number_input("Penalties in the range (log-spaced)", min_value=1,
+                                        max_value=60, step=1, key="pen_count")
+    keep("pen_zero", True)
+    pen_zero = st.sidebar.checkbox("Also fit without a penalty", key="pen_zero")
+    keep("seed", 0)
+    seed = st.sidebar.number_input("Seed for the shuffles", min_value=0, max_value=2**31 - 1,
+                                   step=1, key="seed")
+
+    order_c = None if order_col == NONE else order_col
+    group_c = None if group_col == NONE else group_col
+    split_c = None if split_col in (NONE, None) or scheme != "column" else split_col
+    roles = (target, tuple(inputs), order_c, group_c, split_c)
+    lo, hi = sorted(float(v) for v in pen_range)
+    spec = SweepSpec(
+        target=target, inputs=tuple(inputs), max_order=int(max_order),
+        interactions=bool(interactions),
+        penalties=default_penalties(lo, hi, int(pen_count), bool(pen_zero)),
+        scheme=SchemeSpec(kind=scheme, folds=int(folds or 5), repeats=int(repeats or 3),
+                          gap=int(gap or 0), holdout_fraction=float(frac),
+                          order_column=order_c, group_column=group_c, split_column=split_c),
+        seed=int(seed))
+    return Choices(roles=roles, spec=spec)
+
+
+# ---------------------------------------------------------------------------
+# downloads
+# ---------------------------------------------------------------------------
+
+
+def _csv_safe(frame: pd.DataFrame) -> pd.DataFrame:
+    """Text cells that a spreadsheet would run as a formula get a leading quote."""
+    out = frame.copy()
+    for c in out.columns:
+        if out[c].dtype == object or pd.api.types.is_string_dtype(out[c].dtype):
+            out[c] = [("'" + v) if isinstance(v, str) and v[:1] in ("=", "+", "-", "@", "\t", "\r")
+                      else v for v in out[c]]
+    return out
+
+
+def downloads_row():
+    """A horizontal row for download buttons."""
+    return st.container(horizontal=True, gap="small")
+
+
+def table_download(frame: pd.DataFrame, stem: str, what: str) -> None:
+    st.download_button(f"{what} (CSV)", data=lambda: _csv_safe(frame).to_csv(index=False),
+                       file_name=f"{stem}.csv", mime="text/csv", key=f"csv_{stem}",
+                       icon=":material/table:", on_click="ignore")
+
+
+def chart_block(chart, stem: str, what: str,
+                tables: list[tuple[pd.DataFrame, str, str]] = ()) -> None:
+    """A chart with its PNG and SVG downloads (rendered only when clicked) and table CSVs."""
+    st.altair_chart(chart, theme=None, width="content")
+    with downloads_row():
+        st.download_button(f"{what} (PNG)", data=lambda: C.chart_to_png(chart),
+                           file_name=f"{stem}.png", mime="image/png", key=f"png_{stem}",
+                           icon=":material/image:", on_click="ignore")
+        st.download_button(f"{what} (SVG)", data=lambda: C.chart_to_svg(chart),
+                           file_name=f"{stem}.svg", mime="image/svg+xml", key=f"svg_{stem}",
+                           icon=":material/draw:", on_click="ignore")
+        for frame, tstem, twhat in tables:
+            table_download(frame, tstem, twhat)
+
+
+def choose(label: str, options: list, default: Any, key: str, *, slider: bool = False,
+           fmt: Callable[[Any], str] = str, multi: bool = False, help: str | None = None):
+    """A selector whose stored value is reset when it is no longer among the options."""
+    ss = st.session_state
+    if multi:
+        cur = [v for v in ss.get(key, default) if v in options]
+        ss[key] = cur or list(default)
+        return st.multiselect(label, options, key=key, format_func=fmt, help=help,
+                              max_selections=4)
+    if ss.get(key) not in options:
+        ss[key] = default
+    if slider:
+        return st.select_slider(label, options, key=key, format_func=fmt, help=help)
+    return st.selectbox(label, options, key=key, format_func=fmt, help=help)
+
+
+# ---------------------------------------------------------------------------
+# panels
+# ---------------------------------------------------------------------------
+
+
+def recommendation_panel(analysis, target: str) -> None:
+    rec = analysis.recommendation
+    r, b = rec.recommended, rec.best
+    unit = C.column_units(target)
+    with st.container(border=True):
+        st.markdown(f"#### Recommended: {C.cell_text(r.order, r.penalty)}")
+        rmse = float(np.sqrt(r.validation_mse))
+        se_rmse = float(r.validation_mse_se / (2 * rmse)) if rmse > 0 else float("nan")
+        m1, m2, m3, m4 = st.columns(4)
+        m1.metric("Validation error (RMSE)", f"{rmse:.4g}" + (f" {unit}" if unit else ""),
+                  help=f"Root of the mean validation MSE {r.validation_mse:.4g} ± "
+                       f"{r.validation_mse_se:.2g} (one standard error across splits). "
+                       f"The ± on the RMSE is that SE carried through the square root.")
+        m1.caption(f"± {se_rmse:.2g} (one SE) · R² {r.validation_r2:.4f}")
+        m2.metric("Samples per parameter", f"{r.samples_per_parameter:.1f}",
+                  help="Average training rows per split divided by the number of parameters "
+                       f"({r.parameters}).")
+        m2.caption(f"{r.parameters} parameters · {r.effective_df:.1f} effective")
+        gap = r.validation_mse - r.train_mse
+        ratio = r.validation_mse / r.train_mse if r.train_mse > 0 else float("inf")
+        m3.metric("Train–validation gap (MSE)", f"{gap:.3g}",
+                  help="Mean validation MSE minus mean training MSE: how much worse the "
+                       "model does on rows it did not see.")
+        m3.caption(f"validation error is {ratio:.2f}× training error" if np.isfinite(ratio)
+                   else "training error is zero")
+        m4.metric("Lowest-error cell", C.cell_text(b.order, b.penalty).replace(", ", ",\n"),
+                  help=b.reason)
+        m4.caption(f"MSE {b.validation_mse:.4g} ± {b.validation_mse_se:.2g}")
+        st.markdown(md(r.reason))
+        st.caption(md(f"{analysis.plan.description} Rule: {rec.rule}."))
+        st.caption("Where this model feeds a safety or compliance decision (a calibration "
+                   "used on a plant, say), check it against your own acceptance standards "
+                   "and uncertainty budget; this dashboard does not replace them.")
+
+
+@st.cache_data(show_spinner=False, max_entries=16)
+def cached_checks(digest: str, roles: tuple, spec_dict: dict, _data, _analysis):
+    from engine import checks
+
+    return checks.run_checks(_data, _analysis)
+
+
+def warnings_panel(digest: str, roles: tuple, spec_dict: dict, data, analysis) -> None:
+    """Warnings near the recommendation (from `engine.checks`, when present).
+
+    Calls ``engine.checks.run_checks(data, analysis)`` (candidates: the
+    recommended and the best cell) and shows each finding with its advice.
+    Nested cross-validation and selection stability (``engine.trust``) are
+    offered on request, as they refit.
+    """
+    try:
+        from engine import checks  # noqa: F401 - provided by the checks module, when present
+    except ImportError:
+        return
+    try:
+        report = cached_checks(digest, roles, spec_dict, data, analysis)
+    except InputProblem as exc:
+        st.info(f"Checks could not run: {exc.message}")
+        return
+    except Exception as exc:  # noqa: BLE001
+        show_problem(exc, "running the checks")
+        return
+    findings = list(getattr(report, "findings", []) or [])
+    if not findings:
+        st.success("No warnings from the checks on data and fit.", icon=":material/check:")
+    else:
+        with st.expander(f"Warnings ({len(findings)})", expanded=True):
+            for f in findings:
+                sev = str(getattr(f, "severity", "info")).lower()
+                text = f"**{md(getattr(f, 'message', ''))}**"
+                advice = getattr(f, "advice", "")
+                if advice:
+                    text += f"  \n{md(advice)}"
+                if sev in ("serious", "high", "severe", "critical"):
+                    st.warning(text, icon=":material/warning:")
+                else:
+                    st.info(text, icon=":material/info:")
+            summary = getattr(report, "tables", {}).get("summary")
+            if isinstance(summary, pd.DataFrame) and not summary.empty:
+                if st.toggle("Show every check, fired or not", key="show_all_checks"):
+                    st.dataframe(summary, hide_index=True)
+                    table_download(summary, "checks", "Checks table")
+
+
+def trust_panel(data, analysis, run_key: str = "") -> None:
+    """Nested cross-validation and selection stability (from `engine.trust`, when present).
+
+    Both refit the whole sweep many times, so they run only when asked; the
+    results are kept for this data and request while the page is open.
+    """
+    try:
+        from engine import trust
+    except ImportError:
+        return
+    ss = st.session_state
+    store = ss.setdefault("_trust", {})
+    with st.expander("How much to trust the choice (refits the sweep; takes longer)"):
+        st.caption("Nested cross-validation repeats the whole choice inside outer folds and "
+                   "scores it on rows the choice never saw. Selection stability repeats the "
+                   "choice on resampled rows and counts how often each cell wins.")
+        if st.button("Run both checks", key="run_trust", icon=":material/replay:"):
+            bar = st.progress(0.0, text="Nested cross-validation…")
+            nested = guarded("running nested cross-validation", trust.nested_cv, data,
+                             analysis.spec, 5,
+                             lambda f, m: bar.progress(min(1.0, 0.5 * float(f)), text=str(m)),
+                             analysis=analysis)
+            stab = guarded("repeating the choice", trust.selection_stability, data,
+                           analysis.spec, 20, "repeated", None,
+                           lambda f, m: bar.progress(min(1.0, 0.5 + 0.5 * float(f)),
+                                                     text=str(m)))
+            bar.empty()
+            store[run_key] = (nested, stab)
+        nested, stab = store.get(run_key, (None, None))
+        if nested is not None:
+            st.markdown(
+                f"**Nested cross-validation.** Error of the whole choice on unseen rows: MSE "
+                f"{nested.outer_mse:.4g} ± {nested.outer_se:.2g}, against the sweep's own "
+                f"estimate {nested.inner_mse:.4g} (ratio {nested.ratio:.2f}; about 1 when "
+                "the sweep's estimate holds).")
+            st.caption(" ".join([nested.description] + list(nested.notes)))
+            st.dataframe(nested.per_fold, hide_index=True)
+            table_download(nested.per_fold, "nested_cv", "Nested cross-validation")
+        if stab is not None:
+            rec = analysis.recommendation.recommended
+            t = stab.table
+            hit = t[(t["order"] == rec.order) & np.isclose(t["penalty"], rec.penalty)]
+            share = float(hit["share"].iloc[0]) if not hit.empty else 0.0
+            st.markdown(f"**Selection stability** ({stab.method}, {len(stab.chosen)} "
+                        f"repetitions). The recommended cell was chosen in {share:.0%} of them.")
+            if stab.notes:
+                st.caption(" ".join(stab.notes))
+            st.dataframe(t, hide_index=True)
+            table_download(stab.chosen, "selection_stability", "Choices per repetition")
+
+
+def pack_panel(loaded, source_name: str, data, analysis, spec: SweepSpec,
+               compare_orders: list[int]) -> None:
+    """The meeting-pack button (from `engine.pack`, when present)."""
+    try:
+        from engine import pack
+    except ImportError:
+        return
+    key = ("pack", analysis.spec.to_dict().__repr__(), source_name, tuple(compare_orders))
+    if st.button("Prepare meeting pack", key="make_pack", icon=":material/folder_zip:",
+                 help="Writes a one-page summary, every chart and table, and the model."):
+        bar = st.progress(0.0, text="Preparing the pack…")
+        with tempfile.TemporaryDirectory() as tmp:
+            out = Path(tmp) / "fitladder_pack"
+            res = guarded("writing the pack", pack.build_pack, out, loaded=loaded,
+                          source_name=source_name, data=data, spec=spec, analysis=analysis,
+                          compare_orders=compare_orders,
+                          progress=lambda f, m: bar.progress(min(1.0, float(f)), text=m))
+            blob = guarded("zipping the pack", pack.pack_zip_bytes, out) if res else None
+        bar.empty()
+        if blob:
+            st.session_state["pack_zip"] = (key, blob)
+    stored = st.session_state.get("pack_zip")
+    if stored and stored[0] == key:
+        st.download_button("Download meeting pack (ZIP)", data=stored[1],
+                           file_name="fitladder_pack.zip", mime="application/zip",
+                           key="pack_download", icon=":material/download:", on_click="ignore")
+
+
+# ---------------------------------------------------------------------------
+# result tabs
+# ---------------------------------------------------------------------------
+
+
+def tab_validation(analysis, target: str) -> None:
+    rec = analysis.recommendation
+    pens = list(analysis.spec.penalties)
+    c1, c2 = st.columns([3, 1])
+    with c1:
+        pen = choose("Penalty shown", pens, rec.recommended.penalty, "view_penalty",
+                     slider=len(pens) > 1, fmt=C.penalty_text)
+    with c2:
+        metric = st.radio("Error as", ["mse", "rmse"], key="metric", horizontal=True,
+                          format_func={"mse": "MSE", "rmse": "RMSE"}.get)
+    chart = C.validation_curve_chart(analysis.validation, pen, rec.best, rec.recommended,
+                                     target, metric)
+    chart_block(chart, "validation_curve", "Validation curve",
+                [(analysis.validation, "validation_grid", "Validation table, every cell")])
+    if analysis.notes:
+        st.caption(" ".join(analysis.notes))
+
+
+def tab_heatmap(analysis, target: str) -> None:
+    rec = analysis.recommendation
+    chart = C.heatmap_chart(analysis.validation, rec.best, rec.recommended, target)
+    chart_block(chart, "heat_map", "Heat map",
+                [(analysis.sweep.fold_table(), "validation_per_split", "Errors per split")])
+
+
+def tab_learning(digest, roles, spec_dict, data, analysis, target: str) -> None:
+    rec = analysis.recommendation.recommended
+    orders = analysis.spec.order_list()
+    pens = list(analysis.spec.penalties)
+    st.caption(f"Recommended cell ({C.cell_text(rec.order, rec.penalty)}) and one of your choice.")
+    c1, c2 = st.columns([1, 3])
+    with c1:
+        q = choose("Order", orders, max(orders), "lc_order")
+    with c2:
+        a = choose("Penalty", pens, pens[0], "lc_penalty", slider=len(pens) > 1,
+                   fmt=C.penalty_text)
+    cells = [(rec.order, rec.penalty)] + ([(q, a)] if (q, a) != (rec.order, rec.penalty) else [])
+    lc = cached_learning_curve(digest, roles, spec_dict,
+                               tuple(sorted({int(c[0]) for c in cells})), data)
+    chart = C.learning_curve_chart(lc.table, cells, target, note=lc.note)
+    chart_block(chart, "learning_curve", "Learning curve",
+                [(lc.table, "learning_curve", "Learning-curve table")])
+
+
+def default_compare_orders(analysis) -> list[int]:
+    orders = analysis.spec.order_list()
+    rec = analysis.recommendation.recommended.order
+    pick = sorted({min(1, max(orders)), rec, max(orders)} & set(orders))
+    if len(pick) < 2 and len(orders) > 1:
+        pick = sorted(set(orders[-2:]) | {rec})
+    return pick[:4]
+
+
+def tab_compare(digest, roles, spec_dict, data, analysis, target: str) -> list[int]:
+    rec = analysis.recommendation.recommended
+    orders = analysis.spec.order_list()
+    pens = list(analysis.spec.penalties)
+    c1, c2 = st.columns([2, 2])
+    with c1:
+        picked = choose("Orders side by side (2 to 4)", orders, default_compare_orders(analysis),
+                        "cmp_orders", multi=True)
+    with c2:
+        a = choose("Penalty for all of them", pens, rec.penalty, "cmp_penalty",
+                   slider=len(pens) > 1, fmt=C.penalty_text)
+    if not picked:
+        st.info("Pick at least one order.")
+        return []
+    cells = tuple((int(q), float(a)) for q in sorted(picked))
+    models = cached_models(digest, roles, spec_dict, cells, data)
+    chart = C.comparison_chart(data, models, target)
+    chart_block(chart, "side_by_side", "Side by side")
+    rows = []
+    for (q, p), m in models.items():
+        rows.append({"model": C.cell_text(q, p), "order": q, "penalty": p,
+                     "r2_on_training_rows": m.r2, "residual_sd": m.residual_sd,
+                     "effective_df": m.effective_df, "condition_number": m.condition_number})
+    summary = pd.DataFrame(rows)
+    st.dataframe(summary, hide_index=True, column_config={
+        c: st.column_config.NumberColumn(format="%.4g") for c in
+        ("penalty", "r2_on_training_rows", "residual_sd", "effective_df", "condition_number")})
+    table_download(summary, "side_by_side_fits", "Fit summary")
+    return [int(q) for q in sorted(picked)]
+
+
+def tab_coefficients(analysis, target: str) -> None:
+    rec = analysis.recommendation.recommended
+    orders = [o for o in analysis.spec.order_list() if o > 0] or analysis.spec.order_list()
+    pens = list(analysis.spec.penalties)
+    c1, c2 = st.columns([1, 3])
+    with c1:
+        q = choose("Order", orders, rec.order if rec.order in orders else orders[-1], "coef_order")
+    with c2:
+        a = choose("Penalty", pens, rec.penalty, "coef_penalty", slider=len(pens) > 1,
+                   fmt=C.penalty_text)
+    coef = analysis.sweep.coefficient_table()
+    view = C.coefficient_view(coef, q, a)
+    chart = C.coefficient_chart(coef, q, a, target=target)
+    chart_block(chart, "coefficients", "Coefficient chart")
+    st.caption(f"Standardised: change in {target} for one standard deviation of the term, "
+               "averaged over the validation splits. Steep: more than "
+               f"{C.STEEP_RATIO:g} times the median magnitude of the other terms, in cells "
+               f"with {C.STEEP_MIN_TERMS} or more terms.")
+    st.dataframe(view, hide_index=True, column_config={
+        c: st.column_config.NumberColumn(format="%.4g") for c in
+        ("std_mean", "std_sd", "raw_mean", "raw_sd", "magnitude", "ratio_to_median")})
+    table_download(view, "coefficients_cell", "Coefficients of this cell")
+
+
+def tab_data(loaded, data) -> None:
+    rep = loaded.report
+    st.markdown(f"**{md(rep.source_name)}** · {rep.rows_read:,} rows × {rep.columns_read:,} columns "
+                f"read as {rep.file_format.upper()} · {len(rep.numeric_columns)} numeric.")
+    used = f"{data.n_rows:,} rows used"
+    if data.rows_dropped:
+        per = ", ".join(f"{c}: {n}" for c, n in data.drop_counts.items())
+        st.warning(f"{used}; {data.rows_dropped:,} of {data.rows_in:,} dropped because a chosen "
+                   f"column was empty ({md(per)}).", icon=":material/filter_alt:")
+    else:
+        st.caption(f"{used}; no rows dropped.")
+    if rep.ignored_columns:
+        st.caption("Not usable for modelling: " + "; ".join(
+            md(f"{c} ({rep.ignored_reasons.get(c, '')})") for c in rep.ignored_columns[:20])
+            + ("…" if len(rep.ignored_columns) > 20 else ""))
+    for note in list(rep.notes) + list(data.notes):
+        st.caption(md(note))
+    st.dataframe(loaded.frame.head(500), height=320)
+    st.caption(f"First {min(500, len(loaded.frame))} rows. SHA-256 {rep.sha256[:16]}…")
+
+
+# ---------------------------------------------------------------------------
+# page
+# ---------------------------------------------------------------------------
+
+
+def sidebar_data() -> tuple[str, tuple[str, bytes] | None]:
+    ss = st.session_state
+    st.sidebar.subheader("1 · Data")
+    choices = list(DEMOS) + ([UPLOAD] if ss.get(UPLOAD) else [])
+    up = ss.get(UPLOAD)
+    if up:  # a file that arrived since the last run is shown at once
+        tag = (str(up[0]), len(up[1]), hashlib.sha256(bytes(up[1])).hexdigest())
+        if ss.get("_upload_seen") != tag:
+            ss["_upload_seen"] = tag
+            ss["source_choice"] = UPLOAD
+    if ss.get("source_choice") not in choices:
+        ss["source_choice"] = choices[0]
+    labels = {c: source_label(c) for c in choices}
+    choice = st.sidebar.selectbox("Data set", choices, format_func=labels.get,
+                                  key="source_choice")
+    cap = upload_cap_mb()
+    st.sidebar.file_uploader(f"Or upload your own table (up to {cap} MB)",
+                             type=["csv", "tsv", "txt", "xlsx", "parquet"], key="uploader",
+                             on_change=take_upload)
+    if choice in DEMOS:
+        st.sidebar.caption(DEMOS[choice].blurb)
+    return choice, source_bytes(choice)
+
+
+def main() -> None:
+    st.set_page_config(page_title="Fitladder", page_icon=":material/stairs:", layout="wide")
+    st.markdown(
+        "<style>div[data-testid='stMetricValue']{font-size:1.45rem;}</style>",
+        unsafe_allow_html=True)
+    st.title("Fitladder")
+    st.caption("How complex a model can your data carry, and how hard to penalise it — "
+               "judged on rows the fit never saw.")
+    choice, src = guarded("choosing the data", sidebar_data) or ("", None)
+    if src is None:
+        st.info("Choose a demo data set or upload a table in the sidebar.")
+        return
+    name, raw = src
+    digest = hashlib.sha256(raw).hexdigest()
+    try:
+        loaded = cached_load(digest, name, raw)
+    except Exception as exc:  # noqa: BLE001
+        show_problem(exc, "reading the file")
+        st.info("Pick a demo data set or upload another file in the sidebar.")
+        return
+    numeric = list(loaded.report.numeric_columns)
+    dataset_id = f"{choice}:{digest}"
+    if st.session_state.get("_dataset") != dataset_id:
+        preset = DEMOS[choice].preset if choice in DEMOS else guess_preset(loaded.frame, numeric)
+        apply_preset(preset)
+        st.session_state["_dataset"] = dataset_id
+    choices = guarded("reading the settings", roles_and_setup, loaded.frame, numeric)
+    if choices is None:
+        return
+    roles, spec = choices.roles, choices.spec
+    try:
+        data = cached_prepare(digest, roles, loaded.frame)
+        spec_dict = spec.to_dict()
+        bar = st.progress(0.0, text="Sweeping orders and penalties…")
+        analysis = cached_analysis(
+            digest, roles, spec_dict, data,
+            lambda f, msg: bar.progress(min(1.0, max(0.0, float(f))), text=str(msg)))
+        bar.empty()
+    except Exception as exc:  # noqa: BLE001
+        show_problem(exc, "running the sweep")
+        with st.expander("Data", expanded=True):
+            guarded("showing the data", st.dataframe, loaded.frame.head(200))
+        return
+
+    target = spec.target
+    drop = (f" · {data.rows_dropped:,} dropped for missing values (see Data)"
+            if data.rows_dropped else "")
+    st.caption(md(f"{loaded.report.source_name} · {data.n_rows:,} of {data.rows_in:,} rows used"
+                  f"{drop} · target {target} from {len(spec.inputs)} input"
+                  f"{'s' if len(spec.inputs) != 1 else ''}"))
+    guarded("showing the recommendation", recommendation_panel, analysis, target)
+    guarded("running the checks", warnings_panel, digest, roles, spec_dict, data, analysis)
+    guarded("checking the choice", trust_panel, data, analysis,
+            f"{digest}|{roles!r}|{spec_dict!r}")
+    tabs = st.tabs(["Validation curve", "Order × penalty", "Learning curve", "Side by side",
+                    "Coefficients", "Data"])
+    with tabs[0]:
+        guarded("drawing the validation curve", tab_validation, analysis, target)
+    with tabs[1]:
+        guarded("drawing the heat map", tab_heatmap, analysis, target)
+    with tabs[2]:
+        guarded("drawing the learning curve", tab_learning, digest, roles, spec_dict, data,
+                analysis, target)
+    with tabs[3]:
+        compare_orders = guarded("comparing orders", tab_compare, digest, roles, spec_dict,
+                                 data, analysis, target) or default_compare_orders(analysis)
+    with tabs[4]:
+        guarded("drawing the coefficients", tab_coefficients, analysis, target)
+    with tabs[5]:
+        guarded("showing the data", tab_data, loaded, data)
+    with st.sidebar:
+        st.subheader("5 · Meeting pack")
+        guarded("preparing the pack", pack_panel, loaded, name, data, analysis, spec,
+                compare_orders)
+
+
+main()

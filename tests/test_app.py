@@ -1,0 +1,181 @@
+"""The dashboard, driven headless with Streamlit's AppTest."""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from streamlit.testing.v1 import AppTest
+
+from engine import SchemeSpec, SweepSpec, analyse, default_penalties
+from engine import charts as C
+from engine.loading import load_table, prepare
+
+TIMEOUT = 60
+
+
+def _app(repo_root) -> AppTest:
+    return AppTest.from_file(str(repo_root / "app.py"), default_timeout=TIMEOUT)
+
+
+def _texts(at) -> str:
+    parts = [m.value for m in at.markdown] + [c.value for c in at.caption]
+    parts += [str(m.label) + " " + str(m.value) for m in at.metric]
+    return "\n".join(parts)
+
+
+def _recommended_heading(at) -> str:
+    heads = [m.value for m in at.markdown if m.value.startswith("#### Recommended:")]
+    assert len(heads) == 1, heads
+    return heads[0].removeprefix("#### Recommended: ")
+
+
+def _no_failures(at) -> None:
+    assert not at.exception, [e.value for e in at.exception]
+    assert not [e.value for e in at.error], [e.value for e in at.error]
+
+
+def _engine_recommendation(path, target, inputs, scheme, max_order, order_column=None):
+    table = load_table(path)
+    data = prepare(table.frame, target, inputs, order_column=order_column)
+    spec = SweepSpec(target, tuple(inputs), max_order=max_order, scheme=scheme,
+                     penalties=default_penalties())
+    return analyse(data, spec).recommendation.recommended
+
+
+def test_opens_on_a_demo_with_a_recommendation(repo_root, demo_dir):
+    at = _app(repo_root).run()
+    _no_failures(at)
+    rec = _engine_recommendation(demo_dir / "calibration_curve.csv", "bath_temp_C",
+                                 ["probe_mV"], SchemeSpec("loo"), 10)
+    assert _recommended_heading(at) == C.cell_text(rec.order, rec.penalty)
+    labels = [m.label for m in at.metric]
+    assert "Samples per parameter" in labels and "Train–validation gap (MSE)" in labels
+    spp = [m.value for m in at.metric if m.label == "Samples per parameter"][0]
+    assert spp == f"{rec.samples_per_parameter:.1f}"
+    rmse = [m.value for m in at.metric if m.label.startswith("Validation error")][0]
+    assert rmse.startswith(f"{np.sqrt(rec.validation_mse):.4g}")
+    assert "Leave-one-out" in _texts(at)
+    # the data preview and load report are on the page
+    assert any("24 rows × 2 columns" in m.value for m in at.markdown)
+
+
+def test_changing_the_scheme_updates_the_recommendation(repo_root, demo_dir):
+    at = _app(repo_root).run()
+    at.selectbox(key="source_choice").set_value("demo:drift").run()
+    _no_failures(at)
+    path = demo_dir / "drifting_line_sensors.csv"
+    inputs = ["inlet_temp_C", "jacket_temp_C", "feed_pressure_kPa", "feed_flow_L_min",
+              "stirrer_speed_rpm", "coolant_flow_L_min"]
+    blocked = _engine_recommendation(path, "yield_pct", inputs,
+                                     SchemeSpec("blocked", folds=5, gap=30,
+                                                order_column="minute"), 3, "minute")
+    assert _recommended_heading(at) == C.cell_text(blocked.order, blocked.penalty)
+    assert "Contiguous" in _texts(at) or "block" in _texts(at).lower()
+
+    at.selectbox(key="scheme").set_value("kfold").run()
+    _no_failures(at)
+    shuffled = _engine_recommendation(path, "yield_pct", inputs,
+                                      SchemeSpec("kfold", folds=5, order_column="minute"), 3,
+                                      "minute")
+    assert _recommended_heading(at) == C.cell_text(shuffled.order, shuffled.penalty)
+    assert "Shuffled 5-fold" in _texts(at)
+    # shuffled folds flatter this serially dependent log (demo_data/README.md)
+    assert shuffled.validation_mse < blocked.validation_mse
+    rmse = [m.value for m in at.metric if m.label.startswith("Validation error")][0]
+    assert rmse.startswith(f"{np.sqrt(shuffled.validation_mse):.4g}")
+
+    at.number_input(key="folds").set_value(3).run()
+    _no_failures(at)
+    assert "Shuffled 3-fold" in _texts(at)
+
+
+def test_bad_upload_shows_a_message_and_the_page_still_works(repo_root):
+    at = _app(repo_root).run()
+    # the uploader keeps its file as session_state["upload"] = (name, bytes)
+    at.session_state["upload"] = ("readings.csv", b"\x00\x01\x02\xff\xfe binary \x00" * 50)
+    at.run()
+    assert not at.exception
+    errors = [e.value for e in at.error]
+    assert errors and "readings.csv" in errors[0]
+    assert "Traceback" not in "\n".join(errors)
+    assert not [m for m in at.markdown if m.value.startswith("#### Recommended:")]
+    # the page is still usable: pick a demo and get a recommendation back
+    at.selectbox(key="source_choice").set_value("demo:calibration").run()
+    _no_failures(at)
+    assert _recommended_heading(at)
+
+
+def test_upload_is_kept_when_roles_change(repo_root):
+    rng = np.random.default_rng(3)
+    x = np.linspace(0, 10, 40)
+    frame = pd.DataFrame({"dose_mg": x, "note": ["ok"] * 40,
+                          "response_V": 1.5 + 0.8 * x - 0.05 * x ** 2 + rng.normal(0, 0.1, 40)})
+    frame.loc[5, "response_V"] = np.nan  # one row to drop
+    at = _app(repo_root).run()
+    at.session_state["upload"] = ("dose.csv", frame.to_csv(index=False).encode())
+    at.run()
+    _no_failures(at)
+    assert at.selectbox(key="target").value == "response_V"
+    assert at.multiselect(key="inputs").value == ["dose_mg"]
+    assert "39 of 40 rows used" in _texts(at)
+    assert any("dropped" in w.value for w in at.warning)
+    first = _recommended_heading(at)
+    at.number_input(key="max_order").set_value(2).run()
+    _no_failures(at)
+    assert at.selectbox(key="source_choice").value == "upload"
+    assert at.session_state["upload"][0] == "dose.csv"
+    assert _recommended_heading(at)
+    # a role that cannot work gives a message naming the column, not a traceback
+    at.selectbox(key="target").set_value("dose_mg").run()
+    at.multiselect(key="inputs").set_value([]).run()
+    assert not at.exception
+    assert any("input" in e.value.lower() for e in at.error)
+    at.multiselect(key="inputs").set_value(["response_V"]).run()
+    _no_failures(at)
+    assert first  # the first request produced a recommendation too
+
+
+def test_unexpected_failure_shows_an_apology_not_a_traceback(repo_root, monkeypatch):
+    def broken(*args, **kwargs):
+        raise RuntimeError("heat map exploded")
+
+    monkeypatch.setattr(C, "heatmap_chart", broken)
+    at = _app(repo_root).run()
+    assert not at.exception
+    errors = [e.value for e in at.error]
+    assert len(errors) == 1 and errors[0].startswith("Sorry, something went wrong")
+    assert "heat map exploded" in errors[0] and "Traceback" not in errors[0]
+    # everything else is still drawn
+    assert _recommended_heading(at)
+    assert len(at.get("download_button")) >= 10
+
+
+def test_download_buttons_for_every_chart_and_table(repo_root):
+    at = _app(repo_root).run()
+    _no_failures(at)
+    labels = [b.proto.label for b in at.get("download_button")]
+    for chart in ("Validation curve", "Heat map", "Learning curve", "Side by side",
+                  "Coefficient chart"):
+        assert f"{chart} (PNG)" in labels, labels
+        assert f"{chart} (SVG)" in labels, labels
+    for table in ("Validation table, every cell", "Errors per split", "Learning-curve table",
+                  "Fit summary", "Coefficients of this cell"):
+        assert f"{table} (CSV)" in labels, labels
+
+
+def test_view_changes_do_not_rerun_the_sweep(repo_root, monkeypatch):
+    import engine
+
+    at = _app(repo_root).run()
+    calls = []
+    real = engine.analyse
+
+    def counting(*args, **kwargs):
+        calls.append(1)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(engine, "analyse", counting)
+    at.radio(key="metric").set_value("rmse").run()
+    _no_failures(at)
+    assert any("root mean squared error" in c.proto.spec for c in at.get("vega_lite_chart"))
+    assert calls == []
