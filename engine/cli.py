@@ -393,6 +393,18 @@ def command_rerun(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _option_hint(exc: InputProblem) -> str:
+    """Name the command-line option that fixes a problem the engine words for any front end."""
+    text = exc.message
+    if "decimal ','" in text or "decimal comma" in text:
+        return " On the command line: add --decimal-comma."
+    if exc.code == "bad_scheme" and "group column" in text:
+        return " On the command line: --group-column COL."
+    if exc.code == "bad_scheme" and "split column" in text:
+        return " On the command line: --split-column COL."
+    return ""
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``fitladder`` command; returns the exit status."""
     parser = build_parser()
@@ -402,7 +414,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             return command_run(args)
         return command_rerun(args)
     except InputProblem as exc:
-        print(f"{PROG}: {exc.message}", file=sys.stderr)
+        print(f"{PROG}: {exc.message}{_option_hint(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print(f"{PROG}: interrupted.", file=sys.stderr)

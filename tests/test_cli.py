@@ -1,0 +1,234 @@
+"""The fitladder command line: a pack from the demo data, exact re-runs, clear exits."""
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+
+import engine.pack
+from engine import default_penalties
+from engine.cli import build_parser, main, parse_penalty_range
+from engine.pack import PACK_FILES
+
+PY = sys.executable
+SCRIPT = Path(sys.executable).parent / "fitladder"
+FAST = ["--max-order", "6", "--penalties", "0,0.001,0.1"]
+
+
+def _run(args, **kw):
+    env = dict(os.environ, **kw.pop("env", {}))
+    return subprocess.run(args, capture_output=True, text=True, env=env, timeout=300, **kw)
+
+
+def _call(argv, capsys) -> tuple[int, str, str]:
+    """Run ``main`` in this process; argparse's own exits count as return codes."""
+    try:
+        code = main(argv)
+    except SystemExit as exc:
+        code = exc.code
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+@pytest.fixture(scope="module")
+def cli_pack(tmp_path_factory, demo_dir):
+    """One real run of the console script on the calibration demo."""
+    out = tmp_path_factory.mktemp("cli") / "pack"
+    data = demo_dir / "calibration_curve.csv"
+    proc = _run([str(SCRIPT), "run", str(data), "--target", "bath_temp_C", *FAST,
+                 "--out", str(out)])
+    return proc, out, data
+
+
+# ---------------------------------------------------------------------------
+# help
+# ---------------------------------------------------------------------------
+def test_help_documents_every_option(capsys):
+    parser = build_parser()
+    code, out, _ = _call(["--help"], capsys)
+    assert code == 0 and "run" in out and "rerun" in out
+    sub = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+    for name, sp in sub.choices.items():
+        code, out, _ = _call([name, "--help"], capsys)
+        assert code == 0
+        flat = " ".join(out.split())
+        for action in sp._actions:
+            assert action.help, (name, action.dest)
+            for opt in action.option_strings or [action.metavar]:
+                assert opt in out, (name, opt)
+            assert " ".join(action.help.split()[:4]) in flat, (name, action.dest)
+
+
+def test_console_script_and_module_entry_point():
+    assert _run([str(SCRIPT), "--help"]).returncode == 0
+    proc = _run([PY, "-m", "engine", "run", "--help"])
+    assert proc.returncode == 0 and "--penalty-range" in proc.stdout
+
+
+# ---------------------------------------------------------------------------
+# a real run and its re-run
+# ---------------------------------------------------------------------------
+def test_run_writes_the_whole_pack(cli_pack):
+    proc, out, _ = cli_pack
+    assert proc.returncode == 0, proc.stderr
+    assert "Recommended: order" in proc.stdout and str(out) in proc.stdout
+    assert "[100%] Pack written" in proc.stderr  # progress goes to stderr
+    assert sorted(p.name for p in out.iterdir()) == sorted(PACK_FILES)
+    s = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    assert s["sweep"]["penalties"] == [0.0, 0.001, 0.1]
+    assert s["sweep"]["orders"] == list(range(7))
+    assert s["roles"]["inputs"] == ["probe_mV"]  # default: every numeric column but the target
+
+
+def test_rerun_reproduces_summary_json_exactly(cli_pack, tmp_path):
+    proc, out, _ = cli_pack
+    assert proc.returncode == 0, proc.stderr
+    again = tmp_path / "again"
+    proc2 = _run([PY, "-m", "engine", "rerun", str(out / "record.json"), "--out", str(again)])
+    assert proc2.returncode == 0, proc2.stderr
+    assert (again / "summary.json").read_bytes() == (out / "summary.json").read_bytes()
+    for name in ("validation_grid.csv", "model_coefficients.csv", "learning_curve.csv"):
+        assert (again / name).read_bytes() == (out / name).read_bytes(), name
+
+
+def test_rerun_with_changed_data_is_refused(cli_pack, tmp_path, capsys):
+    proc, out, data = cli_pack
+    assert proc.returncode == 0, proc.stderr
+    changed = tmp_path / "calibration_curve.csv"
+    changed.write_bytes(data.read_bytes().replace(b"56.11", b"56.12"))
+    code, _, err = _call(["rerun", str(out / "record.json"), "--data", str(changed),
+                          "--out", str(tmp_path / "x")], capsys)
+    assert code == 2
+    assert "SHA-256" in err and "Traceback" not in err
+    assert not (tmp_path / "x").exists()
+
+
+def test_unpenalised_run_matches_numpy_polyfit(tmp_path, demo_dir, capsys):
+    data = demo_dir / "calibration_curve.csv"
+    out = tmp_path / "plain"
+    code, _, err = _call(["run", str(data), "--target", "bath_temp_C", "--inputs", "probe_mV",
+                          "--penalties", "none", "--max-order", "4", "--scheme", "loo",
+                          "--out", str(out)], capsys)
+    assert code == 0, err
+    s = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    assert s["sweep"]["penalties"] == [0.0] and s["recommended"]["penalty"] == 0.0
+    q = s["recommended"]["order"]
+    table = np.genfromtxt(data, delimiter=",", names=True)
+    # reference: numpy's least-squares polynomial fit, highest power first
+    ref = np.polyfit(table["probe_mV"], table["bath_temp_C"], q)[::-1]
+    rows = (out / "model_coefficients.csv").read_text(encoding="utf-8").splitlines()[1:]
+    got = np.array([float(r.split(",")[-1]) for r in rows])
+    np.testing.assert_allclose(got, ref, rtol=1e-8, atol=1e-10 * np.abs(ref).max())
+
+
+# ---------------------------------------------------------------------------
+# bad input -> 2, internal error -> 1
+# ---------------------------------------------------------------------------
+@pytest.mark.parametrize("argv,words", [
+    (["run", "no_such_file.csv", "--target", "y"], "no file"),
+    (["run", "{demo}", "--target", "bath_temp"], "no column named 'bath_temp'"),
+    (["run", "{demo}", "--target", "bath_temp_C", "--inputs", "probe_V"], "probe_V"),
+    (["run", "{demo}", "--target", "bath_temp_C", "--penalty-range", "1e-3:1e2"], "LO:HI:COUNT"),
+    (["run", "{demo}", "--target", "bath_temp_C", "--penalty-range", "0:1e2:5"], "positive"),
+    (["run", "{demo}", "--target", "bath_temp_C", "--penalty-range", "1e2:1e-3:5"], "HI"),
+    (["run", "{demo}", "--target", "bath_temp_C", "--penalty-range", "a:b:c"], "LO:HI:COUNT"),
+    (["run", "{demo}", "--target", "bath_temp_C", "--penalties", "none",
+      "--penalty-range", "1:10:3"], "--penalties ridge"),
+    (["run", "{demo}", "--target", "bath_temp_C", "--penalties", "0,-1"], "0 or more"),
+    (["run", "{demo}", "--target", "bath_temp_C", "--scheme", "grouped"], "--group-column"),
+    (["run", "{demo}", "--target", "bath_temp_C", "--max-order", "2", "--orders", "1"],
+     "not allowed with"),
+    (["run", "{demo}", "--target", "bath_temp_C", "--scheme", "weekly"], "invalid choice"),
+    (["rerun", "no_such_pack/record.json"], "no record file"),
+    (["rerun", "{demo}"], "not a readable record"),
+])
+def test_bad_input_exits_2_with_one_message(argv, words, demo_dir, tmp_path, capsys):
+    demo = str(demo_dir / "calibration_curve.csv")
+    argv = [demo if a == "{demo}" else a for a in argv] + ["--out", str(tmp_path / "out")]
+    code, _, err = _call(argv, capsys)
+    assert code == 2
+    assert words in err
+    assert "Traceback" not in err
+
+
+def test_internal_error_exits_1_without_traceback(monkeypatch, demo_dir, tmp_path, capsys):
+    def broken(*args, **kwargs):
+        raise RuntimeError("chart renderer missing")
+
+    monkeypatch.setattr(engine.pack, "build_pack", broken)
+    argv = ["run", str(demo_dir / "calibration_curve.csv"), "--target", "bath_temp_C",
+            "--out", str(tmp_path / "o")]
+    monkeypatch.delenv("FITLADDER_DEBUG", raising=False)
+    code, _, err = _call(argv, capsys)
+    assert code == 1 and "internal error" in err and "chart renderer missing" in err
+    assert "Traceback" not in err
+    monkeypatch.setenv("FITLADDER_DEBUG", "1")
+    code, _, err = _call(argv, capsys)
+    assert code == 1 and "Traceback" in err
+
+
+# ---------------------------------------------------------------------------
+# how options become a request (the sweep itself is replaced by a recorder)
+# ---------------------------------------------------------------------------
+@pytest.fixture
+def recorded(monkeypatch):
+    calls = []
+
+    def record(out_dir, **kw):
+        calls.append(kw)
+        r = {"order": 1, "penalty": 0.0, "validation_rmse": 1.0}
+        return SimpleNamespace(out_dir=Path(out_dir), files=[], summary={
+            "recommended": r, "roles": {"target": kw["spec"].target}, "warnings": []})
+
+    monkeypatch.setattr(engine.pack, "build_pack", record)
+    return calls
+
+
+def test_options_become_the_request(recorded, demo_dir, tmp_path, capsys):
+    argv = ["run", str(demo_dir / "drifting_line_sensors.csv"), "--target", "yield_pct",
+            "--order-column", "minute", "--scheme", "blocked", "--folds", "4", "--gap", "30",
+            "--orders", "1,3", "--interactions", "--penalty-range", "1e-2:1e2:5",
+            "--seed", "11", "--compare", "1", "--out", str(tmp_path / "o")]
+    code, out, err = _call(argv, capsys)
+    assert code == 0, err
+    kw = recorded[0]
+    spec = kw["spec"]
+    assert spec.inputs == ("inlet_temp_C", "jacket_temp_C", "feed_pressure_kPa",
+                           "feed_flow_L_min", "stirrer_speed_rpm", "coolant_flow_L_min")
+    assert spec.orders == (1, 3) and spec.interactions and spec.seed == 11
+    assert spec.penalties == default_penalties(1e-2, 1e2, 5, include_zero=True)
+    assert (spec.scheme.kind, spec.scheme.folds, spec.scheme.gap,
+            spec.scheme.order_column) == ("blocked", 4, 30, "minute")
+    assert kw["compare_orders"] == (1,)
+    assert kw["source_name"] == "drifting_line_sensors.csv"
+
+
+def test_default_penalties_are_the_documented_grid(recorded, demo_dir, tmp_path, capsys):
+    code, _, err = _call(["run", str(demo_dir / "calibration_curve.csv"), "--target",
+                          "bath_temp_C", "--out", str(tmp_path / "o")], capsys)
+    assert code == 0, err
+    spec = recorded[0]["spec"]
+    assert spec.penalties == default_penalties(1e-4, 1e3, 15, include_zero=True)
+    assert spec.max_order == 6 and spec.scheme.kind == "kfold" and spec.scheme.folds == 5
+    assert parse_penalty_range("1e-4:1e3:15") == (1e-4, 1e3, 15)
+
+
+def test_decimal_comma_files(recorded, tmp_path, capsys):
+    path = tmp_path / "comma.csv"
+    path.write_text("x;y\n1,5;2,25\n2,5;6,25\n3,5;12,25\n4,5;20,25\n", encoding="utf-8")
+    code, _, err = _call(["run", str(path), "--target", "y", "--decimal-comma",
+                          "--out", str(tmp_path / "o")], capsys)
+    assert code == 0, err
+    data = recorded[0]["data"]
+    np.testing.assert_array_equal(data.X[:, 0], [1.5, 2.5, 3.5, 4.5])
+    assert recorded[0]["load_options"]["decimal"] == ","
+    code, _, err = _call(["run", str(path), "--target", "y", "--out", str(tmp_path / "p")],
+                         capsys)
+    assert code == 2 and "--decimal-comma" in err and "Traceback" not in err
