@@ -139,11 +139,18 @@ def write_csv(frame: pd.DataFrame, path: Path) -> Path:
     return path
 
 
-_MD_SPECIAL = re.compile(r"([\\`*_{}\[\]()#+\-.!|~>^$])")
+_MD_SPECIAL = re.compile(r"([\\`*_\[\]|~])")
 
 
 def md_escape(text: Any) -> str:
-    """Escape user text for Markdown: HTML-escape it, then backslash Markdown marks."""
+    """Escape text for Markdown.
+
+    ``<``, ``>`` and ``&`` become HTML entities (no raw HTML reaches a
+    renderer); backslash, backtick, ``*``, ``_``, ``[``, ``]``, ``|`` and
+    ``~`` are backslash-escaped (no emphasis, code, links, table cells or
+    strike-through). The text is always placed after other text on its line,
+    so marks that count only at the start of a line need no escape.
+    """
     s = html.escape(str(text), quote=False)
     s = s.replace("\r", " ").replace("\n", " ")
     return _MD_SPECIAL.sub(r"\\\1", s)
@@ -623,9 +630,9 @@ def render_markdown(s: dict) -> str:
     d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
     tgt = md_escape(roles["target"])
     lines = [f"# Model choice for {tgt}", ""]
-    lines += [f"**Recommended: {_headline(s)}.** Validation RMSE {_num(r['validation_rmse'])} "
-              f"(MSE {_mse_words(r, 'one standard error')}), validation R² "
-              f"{_num(r['validation_r2'])}, "
+    lines += [f"**Recommended: {_headline(s)}.** Validation RMSE {_num(r['validation_rmse'])}; "
+              f"MSE {_mse_words(r, 'one standard error')}; validation R² "
+              f"{_num(r['validation_r2'])}; "
               f"{_num(r['effective_df'], 3)} effective parameters.", "",
               f"Why: {md_escape(r['reason'])}", "",
               f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}: validation MSE "

@@ -297,7 +297,8 @@ def test_summary_html_and_markdown_escape_names(nasty_pack):
     md = (res.out_dir / "summary.md").read_text(encoding="utf-8")
     assert "<script>" not in md and "<img" not in md
     assert md_escape(NASTY_Y) in md and md_escape(NASTY_FILE) in md
-    assert md_escape(NASTY_X1) == r'=HYPERLINK\("x"\)'
+    assert md_escape(NASTY_X1) == '=HYPERLINK("x")'
+    assert md_escape("a_b*c") == r"a\_b\*c"
 
 
 def test_svg_charts_carry_no_script(nasty_pack):
@@ -312,7 +313,7 @@ def test_markdown_summary_content(demo_pack):
     md = (res.out_dir / "summary.md").read_text(encoding="utf-8")
     s = res.summary
     assert s["data"]["sha256"] in md
-    assert "calibration\\_curve\\.csv" in md
+    assert "calibration\\_curve.csv" in md
     rec = s["recommended"]
     assert f"Recommended: order {rec['order']}" in md
     for w in s["warnings"]:
