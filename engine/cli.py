@@ -213,7 +213,7 @@ def build_parser() -> argparse.ArgumentParser:
                      help="worksheet of an Excel file (name or 0-based number; default the first)")
     run.add_argument("--compare", type=parse_orders, default=None, metavar="1,2,6",
                      help="orders to show side by side, at the recommended penalty (default: "
-                          "the recommended order, the one below, the best cell's and the highest)")
+                          "order 1, the recommended order and the highest)")
     run.add_argument("--out", required=True, metavar="DIR",
                      help="folder to write the pack into (created if missing)")
 

@@ -340,6 +340,18 @@ def _cell_key(order: int, penalty: float) -> tuple[int, float]:
     return int(order), float(penalty)
 
 
+def default_compare_orders(analysis: Analysis) -> list[int]:
+    """Orders shown side by side when none are chosen: the straight line (order 1),
+    the recommended order and the highest order of the sweep (the same rule as the
+    dashboard's default)."""
+    orders = analysis.spec.order_list()
+    rec = analysis.recommendation.recommended.order
+    pick = sorted({min(1, max(orders)), rec, max(orders)} & set(orders))
+    if len(pick) < 2 and len(orders) > 1:
+        pick = sorted(set(orders[-2:]) | {rec})
+    return pick[:4]
+
+
 def compare_cells(analysis: Analysis,
                   compare_orders: Iterable[int | tuple[int, float]] | None = None
                   ) -> list[tuple[int, float]]:
@@ -347,22 +359,14 @@ def compare_cells(analysis: Analysis,
 
     Plain orders are taken at the recommended penalty, so the comparison
     isolates the effect of the order; ``(order, penalty)`` pairs are taken as
-    given. Without ``compare_orders``: the recommended order, the order just
-    below it, the best cell's order and the highest order of the sweep. The
+    given. Without ``compare_orders``: `default_compare_orders`. The
     recommended cell always comes first.
     """
     rec = analysis.recommendation.recommended
-    best = analysis.recommendation.best
     orders = analysis.spec.order_list()
     cells: list[tuple[int, float]] = [_cell_key(rec.order, rec.penalty)]
-    if compare_orders is None:
-        wanted: list[Any] = []
-        if rec.order - 1 in orders and rec.order - 1 >= 1:
-            wanted.append(rec.order - 1)
-        wanted.append((best.order, best.penalty))
-        wanted.append(max(orders))
-    else:
-        wanted = list(compare_orders)
+    wanted = list(default_compare_orders(analysis) if compare_orders is None
+                  else compare_orders)
     for w in wanted:
         if isinstance(w, (tuple, list)):
             key = _cell_key(w[0], w[1])

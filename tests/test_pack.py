@@ -20,8 +20,9 @@ import pytest
 from engine import ArrayData, SchemeSpec, SweepSpec, fit_cell
 from engine.errors import InputProblem
 from engine.loading import load_table, prepare
-from engine.pack import (CHART_FILES, FORMULA_START, PACK_FILES, build_pack, escape_csv_cell,
-                         load_pipeline, md_escape, pack_zip_bytes, sklearn_pipeline)
+from engine.pack import (CHART_FILES, FORMULA_START, PACK_FILES, build_pack,
+                         default_compare_orders, escape_csv_cell, load_pipeline, md_escape,
+                         pack_zip_bytes, sklearn_pipeline)
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG signature, ISO/IEC 15948 section 5.2
 CHROMIUM = "/usr/bin/chromium"
@@ -319,6 +320,20 @@ def test_markdown_summary_content(demo_pack):
     for w in s["warnings"]:
         assert f"{w['number']}. " in md
     assert "future data resemble" in md and "your organisation's own standards" in md
+
+
+def test_dashboard_style_call_gives_the_same_pack(demo_pack, tmp_path):
+    """The dashboard passes its finished analysis and its default orders; the command
+    line passes neither. Same request, same data: the same summary and tables."""
+    res, data, spec, path = demo_pack
+    loaded = load_table(path)
+    again = build_pack(tmp_path, loaded=loaded, source_name=loaded.report.source_name,
+                       data=data, spec=spec, analysis=res.analysis,
+                       compare_orders=default_compare_orders(res.analysis))
+    for name in ("summary.json", "validation_grid.csv", "learning_curve.csv",
+                 "model_coefficients.csv", "coefficients.csv", "warnings.csv"):
+        assert (tmp_path / name).read_bytes() == (res.out_dir / name).read_bytes(), name
+    assert again.summary["compared_cells"] == res.summary["compared_cells"]
 
 
 def test_unknown_compare_order_is_refused(demo_pack, tmp_path):
