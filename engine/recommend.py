@@ -45,6 +45,10 @@ class Recommendation:
                 "threshold": self.threshold, "rule": self.rule}
 
 
+def _penalty_text(a: float) -> str:
+    return "no penalty" if a == 0 else f"penalty {a:.3g}"
+
+
 def _cell(row: pd.Series, n_train: float, reason: str) -> Cell:
     params = int(row["parameters"])
     return Cell(order=int(row["order"]), penalty=float(row["penalty"]),
@@ -86,10 +90,19 @@ def recommend(table: pd.DataFrame, mean_train_rows: float) -> Recommendation:
         rec_reason = ("It has the lowest validation error, and no simpler cell comes within "
                       "one standard error of it.")
     else:
-        rec_reason = (f"Its validation error ({r['validation_mse']:.4g}) is within one standard "
-                      f"error of the best ({b['validation_mse']:.4g} + {se:.2g}), and it uses "
-                      f"{r['effective_df']:.1f} effective degrees of freedom against "
-                      f"{b['effective_df']:.1f}: the simpler model is as good as the data can tell.")
+        within = (f"Its validation error ({r['validation_mse']:.4g}) is within one standard "
+                  f"error of the best ({b['validation_mse']:.4g} + {se:.2g})")
+        if int(r["order"]) == int(b["order"]):
+            rec_reason = (f"{within}, with the same order and a stronger penalty "
+                          f"({_penalty_text(float(r['penalty']))} against "
+                          f"{_penalty_text(float(b['penalty']))}), which leaves "
+                          f"{r['effective_df']:.2f} effective degrees of freedom against "
+                          f"{b['effective_df']:.2f}: the data cannot tell them apart, so the "
+                          "more restrained fit is preferred.")
+        else:
+            rec_reason = (f"{within}, and it uses {r['effective_df']:.2f} effective degrees of "
+                          f"freedom against {b['effective_df']:.2f} for order {int(b['order'])}: "
+                          "the simpler model is as good as the data can tell.")
     return Recommendation(best=_cell(b, mean_train_rows, best_reason),
                           recommended=_cell(r, mean_train_rows, rec_reason),
                           threshold=threshold,
