@@ -17,6 +17,8 @@ import json
 import re
 import tempfile
 import threading
+import time
+from concurrent.futures import Future, ThreadPoolExecutor
 import traceback
 from collections import OrderedDict
 from dataclasses import dataclass, field
@@ -103,6 +105,8 @@ SCHEME_NAMES = {
 }
 PENALTY_STEPS = [10.0 ** k for k in range(-8, 7)]
 NONE = "(none)"
+VIEW_KEYS = ("view_penalty", "lc_order", "lc_penalty", "cmp_orders", "cmp_penalty",
+             "coef_order", "coef_penalty")
 SETUP_KEYS = ("target", "inputs", "all_inputs", "order_column", "group_column", "split_column",
               "scheme", "folds", "repeats", "gap", "holdout_fraction", "max_order",
               "interactions", "pen_range", "pen_count", "pen_zero", "seed")
@@ -200,16 +204,6 @@ def cached_analysis(digest: str, roles: tuple, spec_dict: dict, data,
     return result
 
 
-@st.cache_data(show_spinner=False, max_entries=16)
-def cached_learning_curve(digest: str, roles: tuple, spec_dict: dict, orders: tuple, _data):
-    return learning_curve(_data, SweepSpec.from_dict(spec_dict), orders=list(orders))
-
-
-@st.cache_data(show_spinner=False, max_entries=32)
-def cached_models(digest: str, roles: tuple, spec_dict: dict, cells: tuple, _data):
-    return fit_candidates(_data, SweepSpec.from_dict(spec_dict), list(cells))
-
-
 # ---------------------------------------------------------------------------
 # data source
 # ---------------------------------------------------------------------------
@@ -235,7 +229,7 @@ def source_bytes(choice: str) -> tuple[str, bytes] | None:
     """(name, bytes) of the chosen data set."""
     if choice == UPLOAD:
         up = st.session_state.get(UPLOAD)
-        return (str(up[0]), bytes(up[1])) if up else None
+        return (str(up[0]), up[1]) if up else None
     demo = DEMOS[choice]
     return demo.file, read_demo(demo.file)
 
@@ -509,9 +503,8 @@ def recommendation_panel(analysis, target: str) -> None:
                        "model does on rows it did not see.")
         m3.caption(f"validation error is {ratio:.2f}× training error" if np.isfinite(ratio)
                    else "training error is zero")
-        m4.metric("Lowest-error cell", C.cell_text(b.order, b.penalty).replace(", ", ",\n"),
-                  help=b.reason)
-        m4.caption(f"MSE {b.validation_mse:.4g} ± {b.validation_mse_se:.2g}")
+        m4.metric("Lowest validation error (MSE)", f"{b.validation_mse:.4g}", help=b.reason)
+        m4.caption(f"± {b.validation_mse_se:.2g} · {C.cell_text(b.order, b.penalty)}")
         st.markdown(md(r.reason))
         st.caption(md(f"{analysis.plan.description} Rule: {rec.rule}."))
         st.caption("Where this model feeds a safety or compliance decision (a calibration "
@@ -519,29 +512,132 @@ def recommendation_panel(analysis, target: str) -> None:
                    "and uncertainty budget; this dashboard does not replace them.")
 
 
-@st.cache_data(show_spinner=False, max_entries=16)
-def cached_checks(digest: str, roles: tuple, spec_dict: dict, _data, _analysis):
-    from engine import checks
+@st.cache_resource(show_spinner=False)
+def _background() -> tuple[ThreadPoolExecutor, OrderedDict, threading.Lock]:
+    """One background worker for slow engine calls, and what it made (most recent last).
 
-    return checks.run_checks(_data, _analysis)
+    One worker, so jobs run in the order they were asked for: the page asks
+    for the side-by-side fits first and the checks second, and draws the
+    quick charts meanwhile.
+    """
+    return ThreadPoolExecutor(max_workers=1, thread_name_prefix="fitladder-work"), \
+        OrderedDict(), threading.Lock()
 
 
-def warnings_panel(digest: str, roles: tuple, spec_dict: dict, data, analysis) -> None:
-    """Warnings near the recommendation (from `engine.checks`, when present).
+JOBS_KEPT = 48
 
-    Calls ``engine.checks.run_checks(data, analysis)`` (candidates: the
-    recommended and the best cell) and shows each finding with its advice.
-    Nested cross-validation and selection stability (``engine.trust``) are
-    offered on request, as they refit.
+
+def run_once(key: tuple, fn: Callable[..., Any], *args: Any) -> Future:
+    """Start ``fn(*args)`` in the background unless a job with ``key`` exists; its future.
+
+    Finished results stay in the store (like a cache) for later reruns.
+    """
+    pool, store, lock = _background()
+    with lock:
+        fut = store.get(key)
+        if fut is None:
+            fut = pool.submit(fn, *args)
+            store[key] = fut
+            while len(store) > JOBS_KEPT:
+                store.popitem(last=False)
+        else:
+            store.move_to_end(key)
+    return fut
+
+
+def run_here(key: tuple, fn: Callable[..., Any], *args: Any) -> Future:
+    """Like `run_once`, but a new job runs now, in this thread (kept in the same store)."""
+    pool, store, lock = _background()
+    with lock:
+        fut = store.get(key)
+        if fut is not None:
+            store.move_to_end(key)
+            return fut
+    fut = Future()
+    try:
+        fut.set_result(fn(*args))
+    except InputProblem as exc:  # remembered like a result; other errors are not kept
+        fut.set_exception(exc)
+    with lock:
+        store[key] = fut
+        while len(store) > JOBS_KEPT:
+            store.popitem(last=False)
+    return fut
+
+
+def start_checks(key: str, data, analysis) -> Future | None:
+    """Start ``engine.checks.run_checks(data, analysis)`` in the background (once per key).
+
+    Returns None when the checks module is not installed.
     """
     try:
-        from engine import checks  # noqa: F401 - provided by the checks module, when present
+        from engine import checks
     except ImportError:
-        return
+        return None
+    return run_once(("checks", key), checks.run_checks, data, analysis)
+
+
+def compare_cells(analysis) -> tuple[tuple[int, float], ...]:
+    """The cells the side-by-side tab will show (its widgets' values, or the defaults)."""
+    ss = st.session_state
+    orders = analysis.spec.order_list()
+    pens = list(analysis.spec.penalties)
+    picked = [q for q in ss.get("cmp_orders", []) if q in orders] or \
+        default_compare_orders(analysis)
+    a = ss.get("cmp_penalty")
+    if a not in pens:
+        a = analysis.recommendation.recommended.penalty
+    return tuple((int(q), float(a)) for q in sorted(picked)[:4])
+
+
+def learning_cells(analysis) -> list[tuple[int, float]]:
+    """The learning-curve cells: the recommended one and the user's pick (or the default)."""
+    ss = st.session_state
+    rec = analysis.recommendation.recommended
+    orders = analysis.spec.order_list()
+    pens = list(analysis.spec.penalties)
+    q = ss.get("lc_order") if ss.get("lc_order") in orders else max(orders)
+    a = ss.get("lc_penalty") if ss.get("lc_penalty") in pens else pens[0]
+    cells = [(int(rec.order), float(rec.penalty))]
+    if (int(q), float(a)) != cells[0]:
+        cells.append((int(q), float(a)))
+    return cells
+
+
+def learning_job(key: str, data, analysis, cells) -> Future:
+    """`engine.analysis.learning_curve` for the orders of ``cells`` (run here, kept)."""
+    orders = tuple(sorted({int(c[0]) for c in cells}))
+    return run_here(("learning", key, orders), learning_curve, data, analysis.spec,
+                    list(orders))
+
+
+def wait_for(job: Future, message: str):
+    """The job's result, with a spinner while it is still running."""
+    if job.done():
+        return job.result()
+    with st.spinner(message):
+        return job.result()
+
+
+def start_fits(key: str, data, analysis, cells: tuple) -> Future:
+    """Fit ``cells`` on all rows in the background (`engine.compare.fit_candidates`)."""
+    return run_once(("fits", key, cells), fit_candidates, data, analysis.spec, list(cells))
+
+
+def warnings_panel(pending: Future) -> None:
+    """Warnings near the recommendation, from `engine.checks`.
+
+    ``pending`` runs ``engine.checks.run_checks(data, analysis)`` (candidates:
+    the recommended and the best cell); each finding is shown with its advice.
+    """
     try:
-        report = cached_checks(digest, roles, spec_dict, data, analysis)
+        if not pending.done():
+            with st.spinner("Checking data and fit for warning signs…"):
+                report = pending.result()
+        else:
+            report = pending.result()
     except InputProblem as exc:
-        st.info(f"Checks could not run: {exc.message}")
+        st.info(f"Checks could not run: {md(exc.message)}")
         return
     except Exception as exc:  # noqa: BLE001
         show_problem(exc, "running the checks")
@@ -677,20 +773,19 @@ def tab_heatmap(analysis, target: str) -> None:
                 [(analysis.sweep.fold_table(), "validation_per_split", "Errors per split")])
 
 
-def tab_learning(digest, roles, spec_dict, data, analysis, target: str) -> None:
+def tab_learning(analysis_key: str, data, analysis, target: str) -> None:
     rec = analysis.recommendation.recommended
     orders = analysis.spec.order_list()
     pens = list(analysis.spec.penalties)
     st.caption(f"Recommended cell ({C.cell_text(rec.order, rec.penalty)}) and one of your choice.")
     c1, c2 = st.columns([1, 3])
     with c1:
-        q = choose("Order", orders, max(orders), "lc_order")
+        choose("Order", orders, max(orders), "lc_order")
     with c2:
-        a = choose("Penalty", pens, pens[0], "lc_penalty", slider=len(pens) > 1,
-                   fmt=C.penalty_text)
-    cells = [(rec.order, rec.penalty)] + ([(q, a)] if (q, a) != (rec.order, rec.penalty) else [])
-    lc = cached_learning_curve(digest, roles, spec_dict,
-                               tuple(sorted({int(c[0]) for c in cells})), data)
+        choose("Penalty", pens, pens[0], "lc_penalty", slider=len(pens) > 1,
+               fmt=C.penalty_text)
+    cells = learning_cells(analysis)  # the recommended cell and the two choices above
+    lc = learning_job(analysis_key, data, analysis, cells).result()
     chart = C.learning_curve_chart(lc.table, cells, target, note=lc.note)
     chart_block(chart, "learning_curve", "Learning curve",
                 [(lc.table, "learning_curve", "Learning-curve table")])
@@ -705,7 +800,7 @@ def default_compare_orders(analysis) -> list[int]:
     return pick[:4]
 
 
-def tab_compare(digest, roles, spec_dict, data, analysis, target: str) -> list[int]:
+def tab_compare(analysis_key: str, data, analysis, target: str) -> list[int]:
     rec = analysis.recommendation.recommended
     orders = analysis.spec.order_list()
     pens = list(analysis.spec.penalties)
@@ -720,7 +815,8 @@ def tab_compare(digest, roles, spec_dict, data, analysis, target: str) -> list[i
         st.info("Pick at least one order.")
         return []
     cells = tuple((int(q), float(a)) for q in sorted(picked))
-    models = cached_models(digest, roles, spec_dict, cells, data)
+    models = wait_for(start_fits(analysis_key, data, analysis, cells),
+                      "Fitting the chosen orders on all rows…")
     chart = C.comparison_chart(data, models, target)
     chart_block(chart, "side_by_side", "Side by side")
     rows = []
@@ -786,13 +882,28 @@ def tab_data(loaded, data) -> None:
 # ---------------------------------------------------------------------------
 
 
+def digest_of(raw: bytes) -> str:
+    """SHA-256 of the bytes, remembered for the same bytes object during the session."""
+    memo = st.session_state.get("_digest_memo")
+    if memo and memo[0] is raw:
+        return memo[1]
+    digest = hashlib.sha256(raw).hexdigest()
+    st.session_state["_digest_memo"] = (raw, digest)
+    return digest
+
+
+def mark(name: str) -> None:
+    """Record when a stage of the page finished (read by benchmarks/dashboard_latency.py)."""
+    st.session_state.setdefault("_marks", {})[name] = time.perf_counter()
+
+
 def sidebar_data() -> tuple[str, tuple[str, bytes] | None]:
     ss = st.session_state
     st.sidebar.subheader("1 · Data")
     choices = list(DEMOS) + ([UPLOAD] if ss.get(UPLOAD) else [])
     up = ss.get(UPLOAD)
     if up:  # a file that arrived since the last run is shown at once
-        tag = (str(up[0]), len(up[1]), hashlib.sha256(bytes(up[1])).hexdigest())
+        tag = (str(up[0]), len(up[1]), digest_of(up[1]))
         if ss.get("_upload_seen") != tag:
             ss["_upload_seen"] = tag
             ss["source_choice"] = UPLOAD
@@ -812,6 +923,7 @@ def sidebar_data() -> tuple[str, tuple[str, bytes] | None]:
 
 def main() -> None:
     st.set_page_config(page_title="Fitladder", page_icon=":material/stairs:", layout="wide")
+    st.session_state["_marks"] = {"start": time.perf_counter()}
     st.markdown(
         "<style>div[data-testid='stMetricValue']{font-size:1.45rem;}</style>",
         unsafe_allow_html=True)
@@ -823,9 +935,10 @@ def main() -> None:
         st.info("Choose a demo data set or upload a table in the sidebar.")
         return
     name, raw = src
-    digest = hashlib.sha256(raw).hexdigest()
+    digest = digest_of(raw)
     try:
         loaded = cached_load(digest, name, raw)
+        mark("loaded")
     except Exception as exc:  # noqa: BLE001
         show_problem(exc, "reading the file")
         st.info("Pick a demo data set or upload another file in the sidebar.")
@@ -854,32 +967,50 @@ def main() -> None:
             guarded("showing the data", st.dataframe, loaded.frame.head(200))
         return
 
+    analysis_key = f"{digest}|{roles!r}|{spec_dict!r}"
+    if st.session_state.get("_analysis_key") != analysis_key:
+        # a new result: the views start again from its recommendation
+        for k in VIEW_KEYS:
+            st.session_state.pop(k, None)
+        st.session_state["_analysis_key"] = analysis_key
     target = spec.target
     drop = (f" · {data.rows_dropped:,} dropped for missing values (see Data)"
             if data.rows_dropped else "")
     st.caption(md(f"{loaded.report.source_name} · {data.n_rows:,} of {data.rows_in:,} rows used"
                   f"{drop} · target {target} from {len(spec.inputs)} input"
                   f"{'s' if len(spec.inputs) != 1 else ''}"))
+    mark("sweep")
     guarded("showing the recommendation", recommendation_panel, analysis, target)
-    guarded("running the checks", warnings_panel, digest, roles, spec_dict, data, analysis)
-    guarded("checking the choice", trust_panel, data, analysis,
-            f"{digest}|{roles!r}|{spec_dict!r}")
+    # slow engine calls run in the background, in this order, while the quick
+    # charts are drawn: side-by-side fits, then checks. The warnings panel sits
+    # here and is filled at the end.
+    guarded("starting the fits", start_fits, analysis_key, data, analysis,
+            compare_cells(analysis))
+    pending = guarded("starting the checks", start_checks, analysis_key, data, analysis)
+    warn_slot = st.container()
+    guarded("checking the choice", trust_panel, data, analysis, analysis_key)
     tabs = st.tabs(["Validation curve", "Order × penalty", "Learning curve", "Side by side",
                     "Coefficients", "Data"])
     with tabs[0]:
         guarded("drawing the validation curve", tab_validation, analysis, target)
     with tabs[1]:
         guarded("drawing the heat map", tab_heatmap, analysis, target)
-    with tabs[2]:
-        guarded("drawing the learning curve", tab_learning, digest, roles, spec_dict, data,
-                analysis, target)
-    with tabs[3]:
-        compare_orders = guarded("comparing orders", tab_compare, digest, roles, spec_dict,
-                                 data, analysis, target) or default_compare_orders(analysis)
     with tabs[4]:
         guarded("drawing the coefficients", tab_coefficients, analysis, target)
+    with tabs[2]:
+        guarded("drawing the learning curve", tab_learning, analysis_key, data, analysis,
+                target)
     with tabs[5]:
         guarded("showing the data", tab_data, loaded, data)
+    mark("quick tabs")
+    with tabs[3]:  # last: it fits models on all rows
+        compare_orders = guarded("comparing orders", tab_compare, analysis_key, data,
+                                 analysis, target) or default_compare_orders(analysis)
+    mark("charts")
+    if pending is not None:
+        with warn_slot:
+            guarded("running the checks", warnings_panel, pending)
+    mark("checks")
     with st.sidebar:
         st.subheader("5 · Meeting pack")
         guarded("preparing the pack", pack_panel, loaded, name, data, analysis, spec,

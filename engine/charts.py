@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import math
 import re
+from types import SimpleNamespace
 from typing import Any
 
 import altair as alt
@@ -72,19 +73,22 @@ def _finish(chart: alt.TopLevelMixin) -> alt.TopLevelMixin:
     The size is fixed by the chart (``autosize: pad``): titles, legends and
     axes are added around the plotting area, never squeezed into it.
     """
-    chart = chart.properties(autosize=alt.AutoSizeParams(type="pad"))
-    return (chart.configure(font=FONT, background="#ffffff")
-            .configure_view(stroke=None)
-            .configure_axis(labelColor=PALETTE["ink"], titleColor=PALETTE["ink"],
-                            gridColor=PALETTE["grid"], domainColor="#9a9a9a",
-                            tickColor="#9a9a9a", titleFontWeight="normal", titleFontSize=12,
-                            labelFontSize=11)
-            .configure_legend(labelColor=PALETTE["ink"], titleColor=PALETTE["ink"],
-                              titleFontWeight="normal", orient="bottom", columns=4)
-            .configure_title(color=PALETTE["ink"], fontSize=14, subtitleFontSize=11,
-                             subtitleColor="#5a5d63", anchor="start")
-            .configure_header(labelColor=PALETTE["ink"], titleColor=PALETTE["ink"],
-                              labelFontSize=12))
+    return chart.properties(autosize=alt.AutoSizeParams(type="pad"), config=_CONFIG)
+
+
+_CONFIG = alt.Config(
+    font=FONT, background="#ffffff",
+    view=alt.ViewConfig(stroke=None),
+    axis=alt.AxisConfig(labelColor=PALETTE["ink"], titleColor=PALETTE["ink"],
+                        gridColor=PALETTE["grid"], domainColor="#9a9a9a", tickColor="#9a9a9a",
+                        titleFontWeight="normal", titleFontSize=12, labelFontSize=11),
+    legend=alt.LegendConfig(labelColor=PALETTE["ink"], titleColor=PALETTE["ink"],
+                            titleFontWeight="normal", orient="bottom", columns=4),
+    title=alt.TitleConfig(color=PALETTE["ink"], fontSize=14, subtitleFontSize=11,
+                          subtitleColor="#5a5d63", anchor="start"),
+    header=alt.HeaderConfig(labelColor=PALETTE["ink"], titleColor=PALETTE["ink"],
+                            labelFontSize=12),
+)
 
 
 def _title(text: str, notes: list[str] | None = None) -> alt.TitleParams:
@@ -483,6 +487,22 @@ def _relabel(table: pd.DataFrame) -> pd.DataFrame:
     return table
 
 
+def _segments(curves: pd.DataFrame, lo: float, hi: float) -> pd.DataFrame:
+    """Split each curve into below / inside / above the training range.
+
+    The end points ``lo`` and ``hi`` are repeated in the neighbouring outside
+    segment, so the dashed parts meet the solid part without a gap.
+    """
+    parts = []
+    for model, g in curves.groupby("model", sort=False):
+        below = g[g["x"] <= lo].assign(inside=False, segment=f"{model} below")
+        inside = g[(g["x"] >= lo) & (g["x"] <= hi)].assign(inside=True,
+                                                           segment=f"{model} inside")
+        above = g[g["x"] >= hi].assign(inside=False, segment=f"{model} above")
+        parts += [below, inside, above]
+    return pd.concat(parts, ignore_index=True)
+
+
 def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
                      target: str = "y", *, units: str | None = None,
                      input_units: str | None = None,
@@ -517,14 +537,14 @@ def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
         xname = getattr(data, "inputs", ("x",))[0]
         xtitle = plain_name(xname, input_units)
         lo, hi = float(X[:, 0].min()), float(X[:, 0].max())
-        curves = _relabel(curve_table(models, lo, hi))
+        curves = _segments(_relabel(curve_table(models, lo, hi)), lo, hi)
         span = float(y.max() - y.min()) or 1.0
         ylo, yhi = float(y.min()) - 0.35 * span, float(y.max()) + 0.35 * span
         cut = curves[(curves["prediction"] < ylo) | (curves["prediction"] > yhi)]
         notes = ["Shaded: range of the training data; curves continue past it."]
         if not cut.empty:
             notes.append("Curves leaving the plotted range are cut at the edge: "
-                         + ", ".join(dict.fromkeys(cut["model"])) + ".")
+                         + "; ".join(dict.fromkeys(cut["model"])) + ".")
         if sample_note:
             notes.append(sample_note)
         pts = pd.DataFrame({"x": X[keep, 0], "y": y[keep]})
@@ -542,22 +562,23 @@ def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
         curve = alt.Chart(curves).mark_line(strokeWidth=2.2, clip=True).encode(
             x=alt.X("x:Q", scale=xscale, title=xtitle),
             y=alt.Y("prediction:Q", scale=yscale, title=tname),
-            color=mcol, detail="model:N",
+            color=mcol, detail="segment:N",
             strokeDash=alt.StrokeDash("inside:N", title=None,
                                       scale=alt.Scale(domain=[True, False], range=[[1, 0], [5, 3]]),
                                       legend=None),
             tooltip=[alt.Tooltip("model:N"), alt.Tooltip("x:Q", title=xtitle, format=".4g"),
                      alt.Tooltip("prediction:Q", title=f"predicted {tname}", format=".4g"),
                      alt.Tooltip("inside:N", title="inside training range")])
-        chart = alt.layer(shade, curve, scatter).properties(
+        chart = alt.layer(shade, scatter, curve).properties(
             width=_WIDTH + 60, height=_HEIGHT + 40,
             title=_title("Fitted curves over the data", notes))
         return _finish(chart)
 
-    table = _relabel(prediction_table(models, data))
+    # predict only the rows drawn: the models are evaluated on the sample, not the table
+    sample = SimpleNamespace(X=X[keep], y=y[keep])
+    table = _relabel(prediction_table(models, sample))
+    table["row"] = (keep + 1)[table["row"].to_numpy() - 1]
     nm = len(order)
-    rows_kept = set((keep + 1).tolist())
-    table = table[table["row"].isin(rows_kept)]
     notes = ["Top: predicted against actual (line: perfect agreement). Bottom: residual "
              "(actual minus predicted) against predicted. In-sample, fitted on all rows."]
     if sample_note:
