@@ -106,7 +106,7 @@ SCHEME_NAMES = {
 PENALTY_STEPS = [10.0 ** k for k in range(-8, 7)]
 NONE = "(none)"
 VIEW_KEYS = ("view_penalty", "lc_order", "lc_penalty", "cmp_orders", "cmp_penalty",
-             "coef_order", "coef_penalty")
+             "cmp_zero", "coef_order", "coef_penalty")
 SETUP_KEYS = ("target", "inputs", "all_inputs", "order_column", "group_column", "split_column",
               "scheme", "folds", "repeats", "gap", "holdout_fraction", "max_order",
               "interactions", "pen_range", "pen_count", "pen_zero", "seed")
@@ -212,7 +212,9 @@ def cached_analysis(digest: str, roles: tuple, spec_dict: dict, data,
 def take_upload() -> None:
     """Callback of the file uploader: keep the bytes in session state."""
     f = st.session_state.get("uploader")
-    if f is None:
+    if f is None:  # the user removed the file from the uploader
+        st.session_state.pop(UPLOAD, None)
+        st.session_state["source_choice"] = next(iter(DEMOS))
         return
     st.session_state[UPLOAD] = (f.name, f.getvalue())
     st.session_state["source_choice"] = UPLOAD
@@ -587,7 +589,17 @@ def compare_cells(analysis) -> tuple[tuple[int, float], ...]:
     a = ss.get("cmp_penalty")
     if a not in pens:
         a = analysis.recommendation.recommended.penalty
-    return tuple((int(q), float(a)) for q in sorted(picked)[:4])
+    zero = bool(ss.get("cmp_zero", default_compare_zero(analysis))) and 0.0 in pens and a != 0.0
+    keep_orders = sorted(picked)[:2 if zero else 4]  # at most four models side by side
+    cells = [(int(q), float(a)) for q in keep_orders]
+    if zero:
+        cells += [(int(q), 0.0) for q in keep_orders]
+    return tuple(cells)
+
+
+def default_compare_zero(analysis) -> bool:
+    """Show the unpenalised fits too by default when only straight lines are swept."""
+    return max(analysis.spec.order_list()) <= 1
 
 
 def learning_cells(analysis) -> list[tuple[int, float]]:
@@ -646,7 +658,9 @@ def warnings_panel(pending: Future) -> None:
     if not findings:
         st.success("No warnings from the checks on data and fit.", icon=":material/check:")
     else:
-        with st.expander(f"Warnings ({len(findings)})", expanded=True):
+        serious = sum(str(getattr(f, "severity", "")).lower() == "serious" for f in findings)
+        title = f"Warnings ({len(findings)}" + (f", {serious} serious)" if serious else ")")
+        with st.expander(title, expanded=bool(serious)):
             for f in findings:
                 sev = str(getattr(f, "severity", "info")).lower()
                 text = f"**{md(getattr(f, 'message', ''))}**"
@@ -716,8 +730,12 @@ def trust_panel(data, analysis, run_key: str = "") -> None:
 
 
 def pack_panel(loaded, source_name: str, data, analysis, spec: SweepSpec,
-               compare_orders: list[int]) -> None:
-    """The meeting-pack button (from `engine.pack`, when present)."""
+               compare_orders: list[int], pending: Future | None = None) -> None:
+    """The meeting-pack button (from `engine.pack`, when present).
+
+    The pack reuses the page's sweep and, when finished, its checks; it is
+    written to a temporary folder and offered as one ZIP file.
+    """
     try:
         from engine import pack
     except ImportError:
@@ -728,9 +746,12 @@ def pack_panel(loaded, source_name: str, data, analysis, spec: SweepSpec,
         bar = st.progress(0.0, text="Preparing the pack…")
         with tempfile.TemporaryDirectory() as tmp:
             out = Path(tmp) / "fitladder_pack"
+            report = None
+            if pending is not None and pending.done() and pending.exception() is None:
+                report = pending.result()
             res = guarded("writing the pack", pack.build_pack, out, loaded=loaded,
                           source_name=source_name, data=data, spec=spec, analysis=analysis,
-                          compare_orders=compare_orders,
+                          checks=report, compare_orders=compare_orders,
                           progress=lambda f, m: bar.progress(min(1.0, float(f)), text=m))
             blob = guarded("zipping the pack", pack.pack_zip_bytes, out) if res else None
         bar.empty()
@@ -795,6 +816,8 @@ def default_compare_orders(analysis) -> list[int]:
     orders = analysis.spec.order_list()
     rec = analysis.recommendation.recommended.order
     pick = sorted({min(1, max(orders)), rec, max(orders)} & set(orders))
+    if max(orders) == 1 and rec == 1 and analysis.recommendation.recommended.penalty > 0:
+        return [1]  # straight lines only: compare with and without the penalty instead
     if len(pick) < 2 and len(orders) > 1:
         pick = sorted(set(orders[-2:]) | {rec})
     return pick[:4]
@@ -811,23 +834,30 @@ def tab_compare(analysis_key: str, data, analysis, target: str) -> list[int]:
     with c2:
         a = choose("Penalty for all of them", pens, rec.penalty, "cmp_penalty",
                    slider=len(pens) > 1, fmt=C.penalty_text)
+    if a != 0.0 and 0.0 in pens:
+        if "cmp_zero" not in st.session_state:
+            st.session_state["cmp_zero"] = default_compare_zero(analysis)
+        st.checkbox("Also show each order without a penalty (first two orders)", key="cmp_zero")
     if not picked:
         st.info("Pick at least one order.")
         return []
-    cells = tuple((int(q), float(a)) for q in sorted(picked))
+    cells = compare_cells(analysis)
     models = wait_for(start_fits(analysis_key, data, analysis, cells),
                       "Fitting the chosen orders on all rows…")
     chart = C.comparison_chart(data, models, target)
     chart_block(chart, "side_by_side", "Side by side")
+    st.caption("Fitted on all rows and drawn in-sample: a model that reproduces every row "
+               "here can still fail on rows it never saw; the validation curve is the judge.")
     rows = []
     for (q, p), m in models.items():
         rows.append({"model": C.cell_text(q, p), "order": q, "penalty": p,
                      "r2_on_training_rows": m.r2, "residual_sd": m.residual_sd,
                      "effective_df": m.effective_df, "condition_number": m.condition_number})
     summary = pd.DataFrame(rows)
-    st.dataframe(summary, hide_index=True, column_config={
+    shown = summary.assign(condition_number=[f"{v:.3g}" for v in summary["condition_number"]])
+    st.dataframe(shown, hide_index=True, column_config={
         c: st.column_config.NumberColumn(format="%.4g") for c in
-        ("penalty", "r2_on_training_rows", "residual_sd", "effective_df", "condition_number")})
+        ("penalty", "r2_on_training_rows", "residual_sd", "effective_df")})
     table_download(summary, "side_by_side_fits", "Fit summary")
     return [int(q) for q in sorted(picked)]
 
@@ -1014,7 +1044,7 @@ def main() -> None:
     with st.sidebar:
         st.subheader("5 · Meeting pack")
         guarded("preparing the pack", pack_panel, loaded, name, data, analysis, spec,
-                compare_orders)
+                compare_orders, pending)
 
 
 main()

@@ -703,7 +703,7 @@ def coefficient_chart(coef_table: pd.DataFrame, order: int, penalty: float,
         notes.append("Magnitudes span a wide range: logarithmic axis, drawn as stems.")
     else:
         xscale = alt.Scale(zero=True)
-        xaxis = alt.Axis()
+        xaxis = alt.Axis(tickCount=6, labelOverlap=True)
         v["base"] = 0.0
     y = alt.Y("term:N", sort=list(v["term"]), title=None)
     tips = [alt.Tooltip("term:N"), alt.Tooltip("std_mean:Q", title="standardised", format=".4g"),

@@ -1,6 +1,10 @@
 """The dashboard, driven headless with Streamlit's AppTest."""
 from __future__ import annotations
 
+import io
+import json
+import zipfile
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -179,3 +183,39 @@ def test_view_changes_do_not_rerun_the_sweep(repo_root, monkeypatch):
     _no_failures(at)
     assert any("root mean squared error" in c.proto.spec for c in at.get("vega_lite_chart"))
     assert calls == []
+
+
+def test_trust_checks_and_meeting_pack(repo_root):
+    at = _app(repo_root).run()
+    heading = _recommended_heading(at)
+    at.button(key="run_trust").click().run()
+    _no_failures(at)
+    texts = _texts(at)
+    assert "Nested cross-validation." in texts and "ratio" in texts
+    assert "Selection stability" in texts
+
+    at.button(key="make_pack").click().run()
+    _no_failures(at)
+    labels = [b.proto.label for b in at.get("download_button")]
+    assert "Download meeting pack (ZIP)" in labels
+    blob = at.session_state["pack_zip"][1]
+    with zipfile.ZipFile(io.BytesIO(blob)) as z:
+        names = z.namelist()
+        assert "fitladder_pack/summary.html" in names
+        assert "fitladder_pack/validation_curve.png" in names
+        summary = json.loads(z.read("fitladder_pack/summary.json"))
+    rec = summary["recommended"]
+    assert C.cell_text(rec["order"], rec["penalty"]) == heading
+
+
+def test_server_settings_keep_the_dashboard_local(repo_root):
+    import tomllib
+
+    from engine.loading import DEFAULT_MAX_BYTES
+
+    cfg = tomllib.loads((repo_root / ".streamlit" / "config.toml").read_text())
+    assert cfg["server"]["address"] == "127.0.0.1"
+    assert cfg["server"]["headless"] is True
+    assert cfg["browser"]["gatherUsageStats"] is False
+    # the upload cap (MiB) matches what the loader accepts
+    assert cfg["server"]["maxUploadSize"] * 1024 * 1024 == DEFAULT_MAX_BYTES
