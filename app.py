@@ -444,6 +444,15 @@ def table_download(frame: pd.DataFrame, stem: str, what: str) -> None:
                        icon=":material/table:", on_click="ignore")
 
 
+def roomy(chart, width: int = 760, height: int = 380):
+    """A single-panel chart drawn larger on the page (its downloads follow)."""
+    import altair as alt
+
+    if isinstance(chart, alt.LayerChart):
+        return chart.properties(width=width, height=height)
+    return chart
+
+
 def chart_block(chart, stem: str, what: str,
                 tables: list[tuple[pd.DataFrame, str, str]] = ()) -> None:
     """A chart with its PNG and SVG downloads (rendered only when clicked) and table CSVs."""
@@ -779,8 +788,8 @@ def tab_validation(analysis, target: str) -> None:
     with c2:
         metric = st.radio("Error as", ["mse", "rmse"], key="metric", horizontal=True,
                           format_func={"mse": "MSE", "rmse": "RMSE"}.get)
-    chart = C.validation_curve_chart(analysis.validation, pen, rec.best, rec.recommended,
-                                     target, metric)
+    chart = roomy(C.validation_curve_chart(analysis.validation, pen, rec.best, rec.recommended,
+                                           target, metric))
     chart_block(chart, "validation_curve", "Validation curve",
                 [(analysis.validation, "validation_grid", "Validation table, every cell")])
     if analysis.notes:
@@ -844,7 +853,7 @@ def tab_compare(analysis_key: str, data, analysis, target: str) -> list[int]:
     cells = compare_cells(analysis)
     models = wait_for(start_fits(analysis_key, data, analysis, cells),
                       "Fitting the chosen orders on all rows…")
-    chart = C.comparison_chart(data, models, target)
+    chart = roomy(C.comparison_chart(data, models, target), 800, 420)
     chart_block(chart, "side_by_side", "Side by side")
     st.caption("Fitted on all rows and drawn in-sample: a model that reproduces every row "
                "here can still fail on rows it never saw; the validation curve is the judge.")
