@@ -607,8 +607,13 @@ def compare_cells(analysis) -> tuple[tuple[int, float], ...]:
 
 
 def default_compare_zero(analysis) -> bool:
-    """Show the unpenalised fits too by default when only straight lines are swept."""
-    return max(analysis.spec.order_list()) <= 1
+    """Show the unpenalised fits too by default for straight lines on wide tables.
+
+    Wide: fewer than 3 training rows per parameter of the recommended cell,
+    where the penalty is what keeps the fit honest.
+    """
+    rec = analysis.recommendation.recommended
+    return max(analysis.spec.order_list()) <= 1 and rec.samples_per_parameter < 3.0
 
 
 def learning_cells(analysis) -> list[tuple[int, float]]:
@@ -825,7 +830,8 @@ def default_compare_orders(analysis) -> list[int]:
     orders = analysis.spec.order_list()
     rec = analysis.recommendation.recommended.order
     pick = sorted({min(1, max(orders)), rec, max(orders)} & set(orders))
-    if max(orders) == 1 and rec == 1 and analysis.recommendation.recommended.penalty > 0:
+    if (max(orders) == 1 and rec == 1 and analysis.recommendation.recommended.penalty > 0
+            and default_compare_zero(analysis)):
         return [1]  # straight lines only: compare with and without the penalty instead
     if len(pick) < 2 and len(orders) > 1:
         pick = sorted(set(orders[-2:]) | {rec})
