@@ -72,8 +72,20 @@ class FinalModel:
                                code="bad_predict_input")
         U = (X - self.centre) / self.half_range
         out = np.full(X.shape[0], self.scaled_intercept)
+        if not len(self.exponents):
+            return out
+        top = self.exponents.max(axis=0)
+        powers = []
+        for j in range(U.shape[1]):      # u_j^0 .. u_j^top_j, built once
+            col = [None, U[:, j]]
+            for _ in range(2, int(top[j]) + 1):
+                col.append(col[-1] * U[:, j])
+            powers.append(col)
         for e, b in zip(self.exponents, self.scaled_coefficients):
-            out += b * np.prod(U ** e, axis=1)
+            term = None
+            for j in np.flatnonzero(e):
+                term = powers[j][int(e[j])] if term is None else term * powers[j][int(e[j])]
+            out += b * term
         return out
 
 
