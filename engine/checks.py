@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats as _stats
 
+from .jsonable import json_ready
 from .analysis import Analysis, DataLike, analyse
 from .compare import cell_label, fit_candidates
 from .design import PolynomialBasis
@@ -107,17 +108,7 @@ _SHUFFLING = ("kfold", "repeated", "loo")
 # ---------------------------------------------------------------------------
 # results
 # ---------------------------------------------------------------------------
-def _plain(v: Any) -> Any:
-    """Numpy scalars and arrays to plain Python, for JSON records."""
-    if isinstance(v, dict):
-        return {str(k): _plain(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [_plain(x) for x in v]
-    if isinstance(v, np.ndarray):
-        return [_plain(x) for x in v.tolist()]
-    if isinstance(v, np.generic):
-        return v.item()
-    return v
+_plain = json_ready   # numpy values to plain Python; NaN and inf become None
 
 
 @dataclass

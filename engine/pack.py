@@ -34,6 +34,7 @@ from typing import Any, Callable, Iterable, Sequence
 import numpy as np
 import pandas as pd
 
+from .jsonable import json_ready
 from .analysis import Analysis, DataLike, analyse, learning_curve
 from .compare import cell_label, fit_candidates
 from .errors import InputProblem
@@ -160,28 +161,7 @@ def _h(text: Any) -> str:
     return html.escape(str(text), quote=True)
 
 
-def plain(obj: Any) -> Any:
-    """Turn numpy and pandas values into JSON-ready Python; NaN and inf become None."""
-    if isinstance(obj, dict):
-        return {str(k): plain(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [plain(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return [plain(v) for v in obj.tolist()]
-    if isinstance(obj, (bool, np.bool_)):
-        return bool(obj)
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        f = float(obj)
-        return f if math.isfinite(f) else None
-    if obj is None or isinstance(obj, str):
-        return obj
-    if obj is pd.NA or obj is pd.NaT:
-        return None
-    if isinstance(obj, Path):
-        return str(obj)
-    return str(obj)
+plain = json_ready   # JSON-ready values: NaN and inf become None
 
 
 def dump_json(obj: Any) -> str:
