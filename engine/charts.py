@@ -21,6 +21,7 @@ import altair as alt
 import numpy as np
 import pandas as pd
 
+from .labels import cell_text, penalty_text  # noqa: F401  (part of this module's API)
 from .compare import cell_label, curve_table, prediction_table
 from .final_fit import FinalModel
 from .recommend import Cell
@@ -141,22 +142,6 @@ def _squared(unit: str | None) -> str | None:
     if not unit:
         return None
     return f"{unit}²" if re.fullmatch(r"[A-Za-zµ°%]+", unit) else f"({unit})²"
-
-
-def cell_text(order: int, penalty: float) -> str:
-    """Label of a cell in charts, e.g. ``'order 2, no penalty'``, ``'order 3, penalty 0.1'``."""
-    p = float(penalty)
-    return f"order {int(order)}, " + ("no penalty" if p == 0 else f"penalty {penalty_text(p)}")
-
-
-def penalty_text(penalty: float) -> str:
-    """Short text of a penalty: ``'none'`` for 0, else 3 significant digits."""
-    p = float(penalty)
-    if p == 0:
-        return "none"
-    if 1e-3 <= abs(p) < 1e4:
-        return f"{p:.3g}"
-    return f"{p:.1e}".replace("e-0", "e-").replace("e+0", "e")
 
 
 def _metric_words(metric: str, target: str, units: str | None) -> tuple[str, str]:

@@ -6,6 +6,7 @@ import pandas as pd
 
 from .analysis import DataLike, fit_cell
 from .final_fit import FinalModel
+from .labels import penalty_text
 from .spec import SweepSpec
 
 
@@ -27,7 +28,7 @@ def fit_candidates(data: DataLike, spec: SweepSpec,
 
 def cell_label(order: int, penalty: float) -> str:
     """Short label of a cell, e.g. ``order 3, penalty 0.1``."""
-    return f"order {order}" + ("" if penalty == 0 else f", penalty {penalty:.3g}")
+    return f"order {order}" + ("" if penalty == 0 else f", penalty {penalty_text(penalty)}")
 
 
 def curve_table(models: dict[tuple[int, float], FinalModel], x_min: float, x_max: float,

@@ -6,6 +6,8 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import pandas as pd
 
+from .labels import cell_text, penalty_text
+
 
 @dataclass(frozen=True)
 class Cell:
@@ -27,8 +29,7 @@ class Cell:
 
     @property
     def label(self) -> str:
-        return f"order {self.order}, " + ("no penalty" if self.penalty == 0
-                                          else f"penalty {self.penalty:.3g}")
+        return cell_text(self.order, self.penalty)
 
 
 @dataclass(frozen=True)
@@ -46,7 +47,7 @@ class Recommendation:
 
 
 def _penalty_text(a: float) -> str:
-    return "no penalty" if a == 0 else f"penalty {a:.3g}"
+    return "no penalty" if a == 0 else f"penalty {penalty_text(a)}"
 
 
 def _cell(row: pd.Series, n_train: float, reason: str) -> Cell:
