@@ -155,7 +155,11 @@ class PolynomialBasis:
         map of a lower order is the leading block.
         """
         p = self.n_terms if order is None else self.n_terms_at(order)
-        entries, a0 = _raw_map_entries(self.terms[:p], self.centre, self.half_range, exact=False)
+        try:
+            entries, a0 = _raw_map_entries(self.terms[:p], self.centre, self.half_range,
+                                           exact=False)
+        except OverflowError:
+            entries, a0 = {(0, 0): float("inf")}, [float("inf")] * p
         A = np.zeros((p, p))
         for (i, j), v in entries.items():
             A[i, j] = float(v)

@@ -173,6 +173,13 @@ def _lstsq_refined(V: np.ndarray, y: np.ndarray, V_ext: np.ndarray, y_ext: np.nd
     return g / norms, rank
 
 
+def _too_large(order: int) -> InputProblem:
+    return InputProblem(
+        f"Raw powers up to order {order} of these inputs are too large to compute in "
+        "double precision. Rescale the inputs (for example to thousands, or subtract a "
+        "reference value) or lower the order.", code="values_too_large")
+
+
 # ---------------------------------------------------------------------------
 # public entry point
 # ---------------------------------------------------------------------------
@@ -210,12 +217,20 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
     notes: list[str] = []
     # standardised raw-term design, for the condition number and the ridge solve
     A, a0 = basis.raw_map(order)
+    if not (np.all(np.isfinite(A)) and np.all(np.isfinite(a0))):
+        raise _too_large(order)
     Fu = basis.expand_scaled(U, order=order) if p else np.zeros((n, 0))
-    raw = Fu @ A.T + a0 if p else Fu
-    raw_mean = raw.mean(axis=0) if p else np.zeros(0)
-    dsd = raw.std(axis=0) if p else np.zeros(0)
-    dsd_safe = np.where(dsd > 0, dsd, 1.0)
-    Tstd = (raw - raw_mean) / dsd_safe if p else raw
+    # each raw term divided by the largest entry of its row of A (raw powers can be
+    # huge); standardisation removes the factor again
+    r = np.abs(A).max(axis=1) if p else np.ones(0)
+    r = np.where(r > 0, r, 1.0)
+    As = A / r[:, None] if p else A
+    raw_s = Fu @ As.T + a0 / r if p else Fu
+    raw_mean_s = raw_s.mean(axis=0) if p else np.zeros(0)
+    dsd_s = raw_s.std(axis=0) if p else np.zeros(0)
+    dsd_s_safe = np.where(dsd_s > 0, dsd_s, 1.0)
+    dsd = dsd_s * r
+    Tstd = (raw_s - raw_mean_s) / dsd_s_safe if p else raw_s
     if p:
         sv = np.linalg.svd(Tstd, compute_uv=False)
         cond = float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf")
@@ -237,8 +252,7 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         Aug = np.vstack([Tstd, np.sqrt(penalty) * np.eye(p)])
         rhs = np.r_[y - ybar, np.zeros(p)]
         w, *_ = np.linalg.lstsq(Aug, rhs, rcond=None)
-        beta_raw_f = w / dsd_safe
-        beta_c = A.T @ beta_raw_f          # on the Chebyshev working basis
+        beta_c = As.T @ (w / dsd_s_safe)    # on the Chebyshev working basis
         b0c = ybar - float(Fu.mean(axis=0) @ beta_c)
         poly_u = _chebyshev_to_monomials(np.vstack([np.zeros((1, d), int), E]),
                                          [Fraction(b0c)] + [Fraction(float(b)) for b in beta_c])
@@ -247,7 +261,10 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
     poly_x = _substitute(poly_u, scale_u, shift_u)
     zero = tuple([0] * d)
     keys = [tuple(int(v) for v in e) for e in E]
-    coef = np.array([float(poly_x.get(zero, 0))] + [float(poly_x.get(k, 0)) for k in keys])
+    try:
+        coef = np.array([float(poly_x.get(zero, 0))] + [float(poly_x.get(k, 0)) for k in keys])
+    except OverflowError:
+        raise _too_large(order) from None
     su_int = float(poly_u.get(zero, 0))
     su = np.array([float(poly_u.get(k, 0)) for k in keys])
     std_coef = coef[1:] * dsd

@@ -40,7 +40,7 @@ class _CellFit:
     edf: np.ndarray            # (S, K) effective degrees of freedom, intercept included
     # pieces for leverage (leave-one-out)
     lev_u: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None   # (du, Q, inv_lam)
-    lev_raw: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None  # (d, Q, lam)
+    lev_raw: tuple | None = None  # (As, ds, Q, lam): row-scaled map, scaled SDs, eigen pairs
 
 
 def _fit_penalties(n_t: np.ndarray, mean_t: np.ndarray, M_t: np.ndarray, p: int,
@@ -67,10 +67,15 @@ def _fit_penalties(n_t: np.ndarray, mean_t: np.ndarray, M_t: np.ndarray, p: int,
     zero = penalties == 0
     pos = ~zero
     A = A[:p, :p]
-    Mraw = A @ Mff @ A.T
-    craw = Mfy @ A.T
-    d = np.sqrt(np.clip(np.diagonal(Mraw, axis1=1, axis2=2), 0, None) / n_t[:, None])
-    d = np.where(d > 0, d, 1.0)
+    # raw terms can be huge (x^12 of x ~ 1e3): work with each raw term divided by
+    # the largest entry of its row of A; standardisation removes the factor again
+    r = np.abs(A).max(axis=1)
+    r = np.where(r > 0, r, 1.0)
+    As = A / r[:, None]
+    Mraw = As @ Mff @ As.T
+    craw = Mfy @ As.T
+    ds = np.sqrt(np.clip(np.diagonal(Mraw, axis1=1, axis2=2), 0, None) / n_t[:, None])
+    ds = np.where(ds > 0, ds, 1.0)
     if zero.any():
         du = np.sqrt(np.clip(np.diagonal(Mff, axis1=1, axis2=2), 0, None) / n_t[:, None])
         du = np.where(du > 0, du, 1.0)
@@ -80,29 +85,30 @@ def _fit_penalties(n_t: np.ndarray, mean_t: np.ndarray, M_t: np.ndarray, p: int,
         inv = np.where(keep, 1.0 / np.where(keep, lam, 1.0), 0.0)
         z = np.einsum("sji,sj->si", Q, Mfy / du) * inv
         bu = np.einsum("sij,sj->si", Q, z) / du
-        braw = np.linalg.solve(A.T, bu.T).T
+        braw_s = np.linalg.solve(As.T, bu.T).T          # raw coefficients times r
         beta_u[:, :, zero] = bu[:, :, None]
-        beta_raw[:, :, zero] = braw[:, :, None]
-        w_std[:, :, zero] = (braw * d)[:, :, None]
+        beta_raw[:, :, zero] = (braw_s / r)[:, :, None]
+        w_std[:, :, zero] = (braw_s * ds)[:, :, None]
         edf[:, zero] = 1.0 + keep.sum(axis=1)[:, None]
         if keep_leverage:
             fit.lev_u = (du, Q, inv)
     if pos.any():
-        lam, Q = np.linalg.eigh(Mraw / (d[:, :, None] * d[:, None, :]))
+        lam, Q = np.linalg.eigh(Mraw / (ds[:, :, None] * ds[:, None, :]))
         lam = np.clip(lam, 0.0, None)
         al = penalties[pos]
-        z = np.einsum("sji,sj->si", Q, craw / d)
+        z = np.einsum("sji,sj->si", Q, craw / ds)
         shrink = 1.0 / (lam[:, :, None] + al[None, None, :])          # (S, p, K+)
         W = Q @ (z[:, :, None] * shrink)
         w_std[:, :, pos] = W
-        beta_raw[:, :, pos] = W / d[:, :, None]
-        beta_u[:, :, pos] = A.T @ beta_raw[:, :, pos]
+        beta_raw[:, :, pos] = W / (ds * r)[:, :, None]
+        beta_u[:, :, pos] = As.T @ (W / ds[:, :, None])
         edf[:, pos] = 1.0 + np.einsum("si,sik->sk", lam, shrink)
         if keep_leverage:
-            fit.lev_raw = (d, Q, lam)
-    # raw intercept: mean_y - mean(raw terms) . beta_raw
-    mean_raw = mean_t[:, :p] @ A.T + a0[:p]
-    fit.intercept_raw = mean_t[:, -1:] - np.einsum("si,sik->sk", mean_raw, beta_raw)
+            fit.lev_raw = (As, ds, Q, lam)
+    # raw intercept: mean_y - mean(raw terms) . beta_raw, on the row-scaled terms
+    mean_raw_s = mean_t[:, :p] @ As.T + a0[:p] / r
+    fit.intercept_raw = mean_t[:, -1:] - np.einsum("si,sik->sk", mean_raw_s,
+                                                   beta_raw * r[None, :, None])
     return fit
 
 
@@ -269,6 +275,11 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     y = np.asarray(y, float)
     pen = np.asarray(penalties, float)
     A, a0 = basis.raw_map()
+    if not (np.all(np.isfinite(A)) and np.all(np.isfinite(a0))):
+        raise InputProblem(
+            f"Raw powers up to order {basis.max_order} of these inputs are too large to "
+            "compute in double precision. Rescale the inputs (for example to thousands, or "
+            "subtract a reference value) or lower the highest order.", code="values_too_large")
     if plan.loo:
         return _loo_sweep(X, y, basis, orders, pen, A, a0, progress, plan.description)
     O, K, S = len(orders), pen.size, plan.n_splits
@@ -348,8 +359,9 @@ def _loo_sweep(X, y, basis, orders, pen, A, a0, progress, desc) -> SweepResult:
                 TQ = (Fc[:, :p] / du) @ Q
                 H[:, pen == 0] += ((TQ * TQ) @ inv)[:, None]
             if fit.lev_raw is not None:
-                d, Q, lam = (v[0] for v in fit.lev_raw)
-                TQ = ((Fc[:, :p] @ A[:p, :p].T) / d) @ Q
+                As, ds, Q, lam = fit.lev_raw
+                TQ = ((Fc[:, :p] @ As.T) / ds[0]) @ Q[0]
+                lam = lam[0]
                 H[:, pen > 0] += (TQ * TQ) @ (1.0 / (lam[:, None] + pen[pen > 0][None, :]))
         denom = 1.0 - H
         bad = denom < 1e-10

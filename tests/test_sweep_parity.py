@@ -237,3 +237,32 @@ def test_progress_callback_reaches_one(one_input):
     analyse(one_input, SweepSpec("y", ("x",), max_order=3), progress=lambda f, m: seen.append(f))
     assert seen and seen[-1] == pytest.approx(1.0)
     assert all(b >= a for a, b in zip(seen, seen[1:]))
+
+
+def test_large_raw_values_match_sklearn_with_a_penalty():
+    # scikit-learn pipelines on inputs near 1000 (raw powers up to 1e36): the sweep works on
+    # row-scaled raw terms, scikit-learn on the raw terms themselves
+    rng = np.random.default_rng(21)
+    x = rng.uniform(1000.0, 1040.0, 150)
+    y = 0.01 * (x - 1020) ** 2 + rng.normal(size=150)
+    pens = (1.0, 10.0, 100.0)
+    spec = SweepSpec("y", ("x",), orders=(4, 12), penalties=pens,
+                     scheme=SchemeSpec("kfold", folds=3), seed=0)
+    a = analyse(ArrayData(x, y), spec)
+    for i, q in enumerate((4, 12)):
+        for k, alpha in enumerate(pens):
+            for s, (tr, va) in enumerate(zip(a.plan.train_sets, a.plan.valid_sets)):
+                m = _pipeline(q, alpha).fit(x[tr, None], y[tr])
+                ref = np.mean((m.predict(x[va, None]) - y[va]) ** 2)
+                assert a.sweep.valid_mse[i, k, s] == pytest.approx(ref, rel=1e-6)
+
+
+def test_raw_powers_too_large_for_doubles_are_refused():
+    from engine import InputProblem, fit_final
+    x = np.linspace(1e12, 1e12 + 5, 40)
+    y = np.sin(x - 1e12)
+    with pytest.raises(InputProblem) as e:
+        analyse(ArrayData(x, y), SweepSpec("y", ("x",), max_order=30))
+    assert e.value.code == "values_too_large" and "Rescale" in str(e.value)
+    with pytest.raises(InputProblem):
+        fit_final(x, y, ("x",), 30)
