@@ -160,9 +160,9 @@ def read_demo(file: str) -> bytes:
 
 
 @st.cache_data(show_spinner=False, max_entries=8)
-def cached_load(digest: str, name: str, _raw: bytes):
+def cached_load(digest: str, name: str, _raw: bytes, decimal: str = "."):
     """`engine.loading.load_table` of the bytes whose SHA-256 is ``digest``."""
-    return load_table(_raw, name=name)
+    return load_table(_raw, name=name, decimal=decimal)
 
 
 @st.cache_data(show_spinner=False, max_entries=16)
@@ -766,6 +766,8 @@ def pack_panel(loaded, source_name: str, data, analysis, spec: SweepSpec,
             res = guarded("writing the pack", pack.build_pack, out, loaded=loaded,
                           source_name=source_name, data=data, spec=spec, analysis=analysis,
                           checks=report, compare_orders=compare_orders,
+                          load_options={"decimal": "," if getattr(loaded.report, "decimal", ".")
+                                        == "," else None, "sheet": None},
                           progress=lambda f, m: bar.progress(min(1.0, float(f)), text=m))
             blob = guarded("zipping the pack", pack.pack_zip_bytes, out) if res else None
         bar.empty()
@@ -963,6 +965,11 @@ def sidebar_data() -> tuple[str, tuple[str, bytes] | None]:
                              on_change=take_upload)
     if choice in DEMOS:
         st.sidebar.caption(DEMOS[choice].blurb)
+    else:
+        st.sidebar.checkbox("Numbers use a decimal comma (1,5 = one and a half)",
+                            key="decimal_comma",
+                            help="For text files written with a decimal comma; columns are "
+                                 "then separated by semicolons or tabs.")
     return choice, source_bytes(choice)
 
 
@@ -981,15 +988,19 @@ def main() -> None:
         return
     name, raw = src
     digest = digest_of(raw)
+    decimal = "," if (choice not in DEMOS and st.session_state.get("decimal_comma")) else "."
     try:
-        loaded = cached_load(digest, name, raw)
+        loaded = cached_load(digest, name, raw, decimal)
         mark("loaded")
     except Exception as exc:  # noqa: BLE001
         show_problem(exc, "reading the file")
+        if choice not in DEMOS and decimal == "." and "decimal" in str(exc).lower():
+            st.info("If this file writes numbers with a decimal comma, tick “Numbers use a "
+                    "decimal comma” under the upload in the sidebar.")
         st.info("Pick a demo data set or upload another file in the sidebar.")
         return
     numeric = list(loaded.report.numeric_columns)
-    dataset_id = f"{choice}:{digest}"
+    dataset_id = f"{choice}:{digest}:{decimal}"
     if st.session_state.get("_dataset") != dataset_id:
         preset = DEMOS[choice].preset if choice in DEMOS else guess_preset(loaded.frame, numeric)
         apply_preset(preset)

@@ -219,3 +219,21 @@ def test_server_settings_keep_the_dashboard_local(repo_root):
     assert cfg["browser"]["gatherUsageStats"] is False
     # the upload cap (MiB) matches what the loader accepts
     assert cfg["server"]["maxUploadSize"] * 1024 * 1024 == DEFAULT_MAX_BYTES
+
+
+def test_decimal_comma_upload_reads_with_the_option(repo_root):
+    # a semicolon file written with decimal commas, as spreadsheets in many locales save it
+    rows = ["dose_mg;response_V"] + [f"{x:.1f};{1.5 + 0.8 * x - 0.05 * x * x:.3f}".replace(".", ",")
+                                     for x in np.linspace(0, 10, 30)]
+    at = _app(repo_root).run()
+    at.session_state["upload"] = ("dose_de.csv", ("\n".join(rows) + "\n").encode())
+    at.run()
+    assert not at.exception
+    # read with '.', the numbers are not numbers: a message, and a pointer to the option
+    assert not [m for m in at.markdown if m.value.startswith("#### Recommended:")]
+    assert any("decimal comma" in e.value.lower() for e in at.error)
+    assert any("decimal comma" in i.value for i in at.info)
+    at.checkbox(key="decimal_comma").check().run()
+    _no_failures(at)
+    assert _recommended_heading(at)
+    assert at.selectbox(key="target").value == "response_V"
