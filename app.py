@@ -87,7 +87,7 @@ DEMOS: dict[str, Demo] = {
         "One reading a minute for two days; neighbouring minutes resemble each other and the "
         "feed changes late on, so folds are contiguous time blocks with a gap.",
         Preset(target="yield_pct", all_inputs=True, order_column="minute", scheme="blocked",
-               folds=5, gap=30, max_order=3)),
+               folds=5, gap=40, max_order=3)),
     "demo:wide": Demo(
         "wide_spectra.csv", "Demo: dye-bath spectra (60 rows, 150 channels)",
         "More inputs than rows: a straight-line fit needs a penalty to hold up on new samples.",

@@ -71,7 +71,7 @@ def test_changing_the_scheme_updates_the_recommendation(repo_root, demo_dir):
     inputs = ["inlet_temp_C", "jacket_temp_C", "feed_pressure_kPa", "feed_flow_L_min",
               "stirrer_speed_rpm", "coolant_flow_L_min"]
     blocked = _engine_recommendation(path, "yield_pct", inputs,
-                                     SchemeSpec("blocked", folds=5, gap=30,
+                                     SchemeSpec("blocked", folds=5, gap=40,
                                                 order_column="minute"), 3, "minute")
     assert _recommended_heading(at) == C.cell_text(blocked.order, blocked.penalty)
     assert "Contiguous" in _texts(at) or "block" in _texts(at).lower()
