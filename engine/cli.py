@@ -98,24 +98,21 @@ def parse_orders(text: str) -> tuple[int, ...]:
     return tuple(out)
 
 
-def _positive_int(text: str) -> int:
-    try:
-        v = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number.") from None
-    if v < 1:
-        raise argparse.ArgumentTypeError(f"'{text}' must be 1 or more.")
-    return v
+def _int_at_least(minimum: int):
+    """argparse type: a whole number of at least ``minimum``."""
+    def parse(text: str) -> int:
+        try:
+            v = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"'{text}' is not a whole number.") from None
+        if v < minimum:
+            raise argparse.ArgumentTypeError(f"'{text}' must be {minimum} or more.")
+        return v
+    return parse
 
 
-def _count(text: str) -> int:
-    try:
-        v = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number.") from None
-    if v < 0:
-        raise argparse.ArgumentTypeError(f"'{text}' must be 0 or more.")
-    return v
+_positive_int = _int_at_least(1)
+_count = _int_at_least(0)
 
 
 def _fraction(text: str) -> float:

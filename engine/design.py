@@ -165,11 +165,6 @@ class PolynomialBasis:
             A[i, j] = float(v)
         return A, np.array([float(v) for v in a0], dtype=float)
 
-    def raw_map_exact(self, order: int | None = None):
-        """As `raw_map`, exact: ``({(i, j): Fraction}, [Fraction])``."""
-        p = self.n_terms if order is None else self.n_terms_at(order)
-        return _raw_map_entries(self.terms[:p], self.centre, self.half_range)
-
 
 def chebyshev_columns(u: np.ndarray, top: int) -> list[np.ndarray]:
     """``[T_0(u), T_1(u), ..., T_top(u)]`` by the three-term recurrence."""

@@ -14,7 +14,7 @@ from math import comb
 
 import numpy as np
 
-from .design import PolynomialBasis, chebyshev_table
+from .design import PolynomialBasis, chebyshev_columns, chebyshev_table
 from .errors import InputProblem
 
 
@@ -140,12 +140,7 @@ def _chebyshev_design(U: np.ndarray, exponents: np.ndarray, dtype=float) -> np.n
     n, d = U.shape
     U = U.astype(dtype)
     kmax = int(exponents.max()) if exponents.size else 0
-    Tj = []
-    for j in range(d):
-        cols = [np.ones(n, dtype=dtype), U[:, j]]
-        for k in range(2, kmax + 1):
-            cols.append(2 * U[:, j] * cols[k - 1] - cols[k - 2])
-        Tj.append(cols)
+    Tj = [chebyshev_columns(U[:, j], kmax) for j in range(d)]
     V = np.ones((n, exponents.shape[0] + 1), dtype=dtype)
     for t, e in enumerate(exponents):
         for j in range(d):

@@ -36,15 +36,6 @@ class Moments:
     def n_sets(self) -> int:
         return int(self.n.shape[0])
 
-    def take(self, i: int) -> "Moments":
-        return Moments(self.n[i:i + 1].copy(), self.mean[i:i + 1].copy(),
-                       self.comoment[i:i + 1].copy())
-
-    def block(self, cols: int) -> "Moments":
-        """The leading ``cols`` columns plus the last one (the target)."""
-        idx = np.r_[np.arange(cols), self.mean.shape[1] - 1]
-        return Moments(self.n, self.mean[:, idx], self.comoment[:, idx][:, :, idx])
-
 
 def merge_into(acc: Moments, i: int, n_b: float, mean_b: np.ndarray, M_b: np.ndarray) -> None:
     """Add one summary into set ``i`` of ``acc`` in place (pairwise update)."""
@@ -75,17 +66,8 @@ def combine(parts: Moments, weights: np.ndarray) -> tuple[float, np.ndarray, np.
     -------
     (n, mean, comoment) of the union.
     """
-    sel = np.flatnonzero(np.asarray(weights) > 0)
-    sel = sel[parts.n[sel] > 0]
-    if sel.size == 0:
-        q = parts.mean.shape[1]
-        return 0.0, np.zeros(q), np.zeros((q, q))
-    n_s = parts.n[sel]
-    n = float(n_s.sum())
-    mean = (n_s[:, None] * parts.mean[sel]).sum(axis=0) / n
-    dev = parts.mean[sel] - mean
-    M = parts.comoment[sel].sum(axis=0) + (dev * n_s[:, None]).T @ dev
-    return n, mean, M
+    n, mean, M = combine_batch(parts, (np.asarray(weights) > 0)[None, :])
+    return float(n[0]), mean[0], M[0]
 
 
 def combine_batch(parts: Moments, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

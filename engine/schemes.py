@@ -190,7 +190,7 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
     elif kind == "grouped":
         if groups is None:
             raise InputProblem("Grouped folds need a group column.", code="bad_scheme")
-        g_codes, g_uniq = _codes(groups)
+        g_codes, g_uniq = label_codes(groups)
         if g_uniq < k:
             raise InputProblem(f"The group column has {g_uniq} distinct groups, fewer than the "
                                f"{k} folds asked for. Use at most {g_uniq} folds.",
@@ -218,7 +218,7 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
             rounds_sets.append(([tr], [va]))
             desc = f"Your split column: {len(tr)} training rows, {len(va)} test rows."
         else:
-            codes, nu = _codes(labels)
+            codes, nu = label_codes(labels)
             if nu < 2:
                 raise InputProblem("The split column has a single value; it needs at least two "
                                    "fold labels, or the values train and test.",
@@ -240,7 +240,8 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
     return plan
 
 
-def _codes(values) -> tuple[np.ndarray, int]:
+def label_codes(values) -> tuple[np.ndarray, int]:
+    """Integer code 0..k-1 of each label (any type) and the number k of distinct labels."""
     arr = np.asarray(values)
     _, inv = np.unique(arr.astype(str) if arr.dtype == object else arr, return_inverse=True)
     inv = inv.ravel()

@@ -19,6 +19,7 @@ from sklearn.model_selection import GroupKFold, KFold
 from .analysis import Analysis, ArrayData, DataLike, analyse
 from .checks import single_threaded_blas
 from .compare import cell_label
+from .schemes import label_codes
 from .errors import InputProblem
 from .final_fit import fit_final
 from .spec import SchemeSpec, SweepSpec
@@ -49,10 +50,7 @@ def subset(data: DataLike, rows: np.ndarray) -> ArrayData:
 
 
 def _codes(values) -> np.ndarray:
-    arr = np.asarray(values)
-    if arr.dtype == object:
-        arr = arr.astype(str)
-    return np.unique(arr, return_inverse=True)[1].ravel()
+    return label_codes(values)[0]
 
 
 def _split_words(labels) -> set[str]:
