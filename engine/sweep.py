@@ -17,119 +17,38 @@ import pandas as pd
 
 from .design import PolynomialBasis
 from .errors import InputProblem
+from .families import FamilyFit, RawMap, TermSummary, fit_family, ridge, sse
 from .moments import Moments, combine_batch, design_moments
+from .rungs import TermSet
+from .rungs import order as order_rung
 from .schemes import FoldPlan
 
 Progress = Callable[[float, str], None]
 
 MAX_TERMS = 1500
-_EPS = np.finfo(float).eps
+RIDGE_ONLY: tuple[tuple[str, float], ...] = (("ridge", 0.0),)
 
 
 # ---------------------------------------------------------------------------
-# private solvers
+# private solvers (thin wrappers over engine.families, kept for callers that
+# summarise leading blocks of one order)
 # ---------------------------------------------------------------------------
-@dataclass
-class _CellFit:
-    """Fits of one order on ``S`` training sets, for every penalty (batched)."""
-
-    beta_u: np.ndarray         # (S, p, K) coefficients on the working basis
-    w_std: np.ndarray          # (S, p, K) coefficients on standardised raw terms
-    beta_raw: np.ndarray       # (S, p, K) coefficients on raw terms
-    intercept_raw: np.ndarray  # (S, K)
-    edf: np.ndarray            # (S, K) effective degrees of freedom, intercept included
-    # pieces for leverage (leave-one-out)
-    lev_u: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None   # (du, Q, inv_lam)
-    lev_raw: tuple | None = None  # (As, ds, Q, lam): row-scaled map, scaled SDs, eigen pairs
+_CellFit = FamilyFit
 
 
 def _fit_penalties(n_t: np.ndarray, mean_t: np.ndarray, M_t: np.ndarray, p: int,
                    A: np.ndarray, a0: np.ndarray, penalties: np.ndarray,
-                   keep_leverage: bool = False) -> _CellFit:
-    """Ridge fits for all penalties from training summaries, batched over sets.
-
-    ``n_t`` (S,), ``mean_t`` (S, p+1) and ``M_t`` (S, p+1, p+1) cover the
-    first ``p`` working-basis terms and the target (last). Penalty 0 is solved
-    on the standardised working basis with a rank-tolerant pseudo-inverse;
-    positive penalties on standardised raw terms, one eigen-decomposition per
-    set serving every penalty.
-    """
-    S, K = n_t.shape[0], penalties.size
-    beta_u = np.zeros((S, p, K))
-    w_std = np.zeros((S, p, K))
-    beta_raw = np.zeros((S, p, K))
-    edf = np.ones((S, K))
-    fit = _CellFit(beta_u, w_std, beta_raw, np.repeat(mean_t[:, -1:], K, axis=1), edf)
-    if p == 0:
-        return fit
-    Mff = M_t[:, :p, :p]
-    Mfy = M_t[:, :p, -1]
-    zero = penalties == 0
-    pos = ~zero
-    A = A[:p, :p]
-    # raw terms can be huge (x^12 of x ~ 1e3): work with each raw term divided by
-    # the largest entry of its row of A; standardisation removes the factor again
-    r = np.abs(A).max(axis=1)
-    r = np.where(r > 0, r, 1.0)
-    As = A / r[:, None]
-    Mraw = As @ Mff @ As.T
-    craw = Mfy @ As.T
-    ds = np.sqrt(np.clip(np.diagonal(Mraw, axis1=1, axis2=2), 0, None) / n_t[:, None])
-    ds = np.where(ds > 0, ds, 1.0)
-    if zero.any():
-        du = np.sqrt(np.clip(np.diagonal(Mff, axis1=1, axis2=2), 0, None) / n_t[:, None])
-        du = np.where(du > 0, du, 1.0)
-        lam, Q = np.linalg.eigh(Mff / (du[:, :, None] * du[:, None, :]))
-        tol = np.clip(lam[:, -1:], 0.0, None) * max(p, 10) * _EPS * 10
-        keep = lam > tol
-        inv = np.where(keep, 1.0 / np.where(keep, lam, 1.0), 0.0)
-        z = np.einsum("sji,sj->si", Q, Mfy / du) * inv
-        bu = np.einsum("sij,sj->si", Q, z) / du
-        braw_s = np.linalg.solve(As.T, bu.T).T          # raw coefficients times r
-        beta_u[:, :, zero] = bu[:, :, None]
-        beta_raw[:, :, zero] = (braw_s / r)[:, :, None]
-        w_std[:, :, zero] = (braw_s * ds)[:, :, None]
-        edf[:, zero] = 1.0 + keep.sum(axis=1)[:, None]
-        if keep_leverage:
-            fit.lev_u = (du, Q, inv)
-    if pos.any():
-        lam, Q = np.linalg.eigh(Mraw / (ds[:, :, None] * ds[:, None, :]))
-        lam = np.clip(lam, 0.0, None)
-        al = penalties[pos]
-        z = np.einsum("sji,sj->si", Q, craw / ds)
-        shrink = 1.0 / (lam[:, :, None] + al[None, None, :])          # (S, p, K+)
-        W = Q @ (z[:, :, None] * shrink)
-        w_std[:, :, pos] = W
-        beta_raw[:, :, pos] = W / (ds * r)[:, :, None]
-        beta_u[:, :, pos] = As.T @ (W / ds[:, :, None])
-        edf[:, pos] = 1.0 + np.einsum("si,sik->sk", lam, shrink)
-        if keep_leverage:
-            fit.lev_raw = (As, ds, Q, lam)
-    # raw intercept: mean_y - mean(raw terms) . beta_raw, on the row-scaled terms
-    mean_raw_s = mean_t[:, :p] @ As.T + a0[:p] / r
-    fit.intercept_raw = mean_t[:, -1:] - np.einsum("si,sik->sk", mean_raw_s,
-                                                   beta_raw * r[None, :, None])
-    return fit
+                   keep_leverage: bool = False) -> FamilyFit:
+    """Ridge fits of the leading ``p`` terms (see `engine.families.ridge.fit`)."""
+    summary = TermSummary(n_t, mean_t, M_t)
+    raw = RawMap.select(A, a0, np.arange(p), summary.n_sets)
+    return ridge.fit(summary, raw, np.asarray(penalties, float), keep_leverage=keep_leverage)
 
 
 def _sse(n_s: np.ndarray, mean_s: np.ndarray, M_s: np.ndarray, p: int, mean_t: np.ndarray,
          beta_u: np.ndarray) -> np.ndarray:
-    """Sums of squared errors on row sets from their summaries, batched.
-
-    ``n_s`` (S,), ``mean_s`` (S, p+1), ``M_s`` (S, p+1, p+1): the row sets;
-    ``mean_t`` (S, p+1) the training means that fix each intercept;
-    ``beta_u`` (S, p, K). Returns (S, K).
-    """
-    myy = M_s[:, -1, -1][:, None]
-    dy = (mean_s[:, -1] - mean_t[:, -1])[:, None]
-    if p == 0:
-        return np.repeat(myy + n_s[:, None] * dy * dy, beta_u.shape[2], axis=1)
-    Mff = M_s[:, :p, :p]
-    Mfy = M_s[:, :p, -1]
-    quad = (myy - 2.0 * np.einsum("si,sik->sk", Mfy, beta_u)
-            + np.einsum("sik,sik->sk", beta_u, Mff @ beta_u))
-    off = dy - np.einsum("si,sik->sk", mean_s[:, :p] - mean_t[:, :p], beta_u)
-    return np.clip(quad + n_s[:, None] * off * off, 0.0, None)
+    """Sums of squared errors from summaries (see `engine.families.base.sse`)."""
+    return sse(TermSummary(n_s, mean_s, M_s), mean_t, beta_u)
 
 
 # ---------------------------------------------------------------------------
@@ -139,29 +58,64 @@ def _sse(n_s: np.ndarray, mean_s: np.ndarray, M_s: np.ndarray, p: int, mean_t: n
 class SweepResult:
     """Every cell of a sweep, per split, with tables for charting.
 
-    Arrays are indexed ``[order index, penalty index, split]``.
+    Arrays are indexed ``[term set, setting, split]``: a term set is one rung
+    of the ladder (today one order; ``rung_keys`` hold its coordinates), a
+    setting one (family, l1_ratio, penalty) triple. Rows of
+    `validation_table` run over term sets, then settings (row ``i * K + k``).
     """
 
     orders: list[int]
-    penalties: np.ndarray
+    penalties: np.ndarray             # (K,) penalty of each setting
     parameters: np.ndarray            # (O,) terms + intercept
-    term_names: list[list[str]]       # per order
+    term_names: list[list[str]]       # per term set
     n_train: np.ndarray               # (S,)
     n_valid: np.ndarray               # (S,)
     train_mse: np.ndarray             # (O, K, S)
     valid_mse: np.ndarray             # (O, K, S); for leave-one-out S = 1 (pooled)
     valid_r2: np.ndarray              # (O, K, S)
     edf: np.ndarray                   # (O, K, S)
-    coef_std: list[np.ndarray]        # per order (K, S, p)
-    coef_raw: list[np.ndarray]        # per order (K, S, p)
+    coef_std: list[np.ndarray]        # per term set (K, S, p)
+    coef_raw: list[np.ndarray]        # per term set (K, S, p)
     intercept_raw: np.ndarray         # (O, K, S)
     loo: bool = False
     loo_se: np.ndarray | None = None  # (O, K) standard error of the LOO mean
     plan_description: str = ""
     notes: list[str] = field(default_factory=list)
+    families: list[str] | None = None     # (K,) family of each setting; None = all ridge
+    l1_ratios: np.ndarray | None = None   # (K,) mixing parameter (0 for ridge)
+    rung_keys: list[dict] | None = None   # (O,) coordinates of each term set
+
+    def __post_init__(self) -> None:
+        K = int(np.asarray(self.penalties).size)
+        if self.families is None:
+            self.families = ["ridge"] * K
+        if self.l1_ratios is None:
+            self.l1_ratios = np.zeros(K)
+        if self.rung_keys is None:
+            self.rung_keys = [{"order": int(q)} for q in self.orders]
+
+    def _extra_keys(self) -> list[str]:
+        keys: list[str] = []
+        for k in self.rung_keys or []:
+            keys += [name for name in k if name != "order" and name not in keys]
+        return keys
+
+    def _cell_columns(self, oi: np.ndarray, ki: np.ndarray) -> dict:
+        cols = {"order": np.asarray(self.orders, dtype=int)[oi]}
+        cols["family"] = np.asarray(self.families, dtype=object)[ki]
+        cols["l1_ratio"] = np.asarray(self.l1_ratios, dtype=float)[ki]
+        cols["penalty"] = np.asarray(self.penalties, dtype=float)[ki]
+        for name in self._extra_keys():
+            cols[name] = np.array([self.rung_keys[i].get(name) for i in oi], dtype=object)
+        return cols
+
+    def validation_errors(self) -> np.ndarray:
+        """(cells, splits) validation MSE, rows aligned with `validation_table`."""
+        O, K, S = self.valid_mse.shape
+        return self.valid_mse.reshape(O * K, S)
 
     def validation_table(self) -> pd.DataFrame:
-        """One row per (order, penalty): mean errors across splits and their SE."""
+        """One row per cell (term set x setting): mean errors across splits and their SE."""
         O, K, S = self.valid_mse.shape
 
         def se(a):
@@ -176,9 +130,12 @@ class SweepResult:
         finite = np.isfinite(r2)
         with np.errstate(invalid="ignore"):
             r2m = np.where(finite, r2, 0.0).sum(axis=2) / finite.sum(axis=2)
+        oi = np.repeat(np.arange(O), K)
+        ki = np.tile(np.arange(K), O)
+        cols = self._cell_columns(oi, ki)
         return pd.DataFrame({
-            "order": np.repeat(np.asarray(self.orders, dtype=int), K),
-            "penalty": np.tile(self.penalties, O),
+            "order": cols["order"],
+            "penalty": cols["penalty"],
             "parameters": np.repeat(self.parameters, K).astype(int),
             "effective_df": self.edf.mean(axis=2).ravel(),
             "train_mse": self.train_mse.mean(axis=2).ravel(),
@@ -188,21 +145,24 @@ class SweepResult:
             "validation_rmse": np.sqrt(vm).ravel(),
             "validation_r2": r2m.ravel(),
             "folds": int(self.n_train.size),
+            **{k: v for k, v in cols.items() if k not in ("order", "penalty")},
         })
 
     def fold_table(self) -> pd.DataFrame:
         """Long table: one row per (order, penalty, split)."""
         O, K, S = self.valid_mse.shape
         oi, ki, si = np.meshgrid(np.arange(O), np.arange(K), np.arange(S), indexing="ij")
+        cols = self._cell_columns(oi.ravel(), ki.ravel())
         return pd.DataFrame({
-            "order": np.asarray(self.orders)[oi.ravel()],
-            "penalty": self.penalties[ki.ravel()],
+            "order": cols["order"],
+            "penalty": cols["penalty"],
             "fold": si.ravel() + 1,
             "train_mse": self.train_mse.ravel(),
             "validation_mse": self.valid_mse.ravel(),
             "validation_r2": self.valid_r2.ravel(),
             "n_train": self.n_train[si.ravel()],
             "n_validation": self.n_valid[si.ravel()],
+            **{k: v for k, v in cols.items() if k not in ("order", "penalty")},
         })
 
     def coefficient_table(self) -> pd.DataFrame:
@@ -220,6 +180,7 @@ class SweepResult:
             std = np.concatenate([np.full((K, S, 1), np.nan), cs], axis=2)
             raw = np.concatenate([self.intercept_raw[i][:, :, None], cr], axis=2)
             sd = (lambda a: np.std(a, axis=1, ddof=1)) if S > 1 else (lambda a: np.zeros_like(a[:, 0]))
+            cols = self._cell_columns(np.full(K * (p + 1), i), np.repeat(np.arange(K), p + 1))
             frames.append(pd.DataFrame({
                 "order": q,
                 "penalty": np.repeat(self.penalties, p + 1),
@@ -228,6 +189,7 @@ class SweepResult:
                 "std_sd": sd(std).ravel(),
                 "raw_mean": raw.mean(axis=1).ravel(),
                 "raw_sd": sd(raw).ravel(),
+                **{k: v for k, v in cols.items() if k not in ("order", "penalty")},
             }))
         return pd.concat(frames, ignore_index=True)
 
@@ -253,18 +215,49 @@ def check_design_size(basis: PolynomialBasis) -> None:
             "interaction terms.", code="too_many_terms")
 
 
+def settings_grid(penalties, families=RIDGE_ONLY) -> tuple[list[str], np.ndarray, np.ndarray]:
+    """The settings axis: every (family, l1_ratio) pair times every penalty.
+
+    Returns ``(family (K,), l1_ratio (K,), penalty (K,))``, pairs outermost.
+    """
+    pen = np.asarray(penalties, float)
+    fam: list[str] = []
+    l1: list[float] = []
+    for f, r in families:
+        fam += [str(f)] * pen.size
+        l1 += [float(r)] * pen.size
+    return fam, np.asarray(l1, float), np.tile(pen, len(families))
+
+
+def fit_settings(summary: TermSummary, raw: RawMap, penalties: np.ndarray,
+                 families=RIDGE_ONLY, keep_leverage: bool = False) -> FamilyFit:
+    """Fits of one term set for every setting (family pairs outermost), batched over sets."""
+    fits = [fit_family(f, summary, raw, penalties, l1_ratio=r, keep_leverage=keep_leverage)
+            for f, r in families]
+    if len(fits) == 1:
+        return fits[0]
+    out = FamilyFit(*(np.concatenate([getattr(ft, name) for ft in fits], axis=-1)
+                      for name in ("beta_u", "w_std", "beta_raw", "intercept_raw", "edf")))
+    return out
+
+
 def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPlan,
-              orders: list[int], penalties, progress: Progress | None = None) -> SweepResult:
-    """Validation errors and coefficients for every (order, penalty, split).
+              orders: list[int], penalties, progress: Progress | None = None,
+              families=RIDGE_ONLY, term_sets: list[TermSet] | None = None) -> SweepResult:
+    """Validation errors and coefficients for every (term set, setting, split).
 
     Parameters
     ----------
     X : (n, d) raw inputs; y : (n,) target.
-    basis : the design at the highest order.
+    basis : the design at the highest order (all terms).
     plan : the splits (`engine.schemes.make_plan`).
-    orders : orders to report (each <= basis.max_order).
-    penalties : ridge penalties, 0 = none.
+    orders : orders to report (each <= basis.max_order); ignored when
+        ``term_sets`` is given.
+    penalties : penalties of every family, 0 = none.
     progress : called as ``progress(fraction_done, message)``.
+    families : (family, l1_ratio) pairs (see `engine.families`); ridge only by default.
+    term_sets : index sets of the full design, one per rung (default: one per order,
+        `engine.rungs.order.term_sets`).
 
     Returns
     -------
@@ -274,6 +267,9 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     X = np.asarray(X, float)
     y = np.asarray(y, float)
     pen = np.asarray(penalties, float)
+    families = tuple((str(f), float(r)) for f, r in families)
+    if term_sets is None:
+        term_sets = order_rung.term_sets(basis, orders)
     A, a0 = basis.raw_map()
     if not (np.all(np.isfinite(A)) and np.all(np.isfinite(a0))):
         raise InputProblem(
@@ -281,10 +277,10 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
             "compute in double precision. Rescale the inputs (for example to thousands, or "
             "subtract a reference value) or lower the highest order.", code="values_too_large")
     if plan.loo:
-        return _loo_sweep(X, y, basis, orders, pen, A, a0, progress, plan.description)
-    O, K, S = len(orders), pen.size, plan.n_splits
-    ps = [basis.n_terms_at(q) for q in orders]
-    res = _empty_result(orders, pen, ps, basis, S, plan.description)
+        return _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress,
+                          plan.description)
+    S = plan.n_splits
+    res = _empty_result(term_sets, pen, families, S, plan.description)
     stats = []
     for r, rnd in enumerate(plan.rounds):
         stats.append(piece_statistics(basis, X, y, rnd.pieces, rnd.n_pieces))
@@ -297,16 +293,15 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     n_t, m_t, M_t = (np.concatenate([t[i] for t in tr]) for i in range(3))
     n_v, m_v, M_v = (np.concatenate([v[i] for v in va]) for i in range(3))
     res.n_train[:], res.n_valid[:] = n_t, n_v
-    last = M_t.shape[1] - 1
-    for i, p in enumerate(ps):
-        idx = np.r_[np.arange(p), last]
-        mt, Mt = m_t[:, idx], M_t[:, idx][:, :, idx]
-        mv, Mv = m_v[:, idx], M_v[:, idx][:, :, idx]
-        fit = _fit_penalties(n_t, mt, Mt, p, A, a0, pen)
-        res.train_mse[i] = (_sse(n_t, mt, Mt, p, mt, fit.beta_u) / n_t[:, None]).T
-        sse_v = _sse(n_v, mv, Mv, p, mt, fit.beta_u)
+    for i, ts in enumerate(term_sets):
+        train = TermSummary.select(n_t, m_t, M_t, ts.index)
+        valid = TermSummary.select(n_v, m_v, M_v, ts.index)
+        raw = RawMap.select(A, a0, ts.index, S)
+        fit = fit_settings(train, raw, pen, families)
+        res.train_mse[i] = (sse(train, train.mean, fit.beta_u) / n_t[:, None]).T
+        sse_v = sse(valid, train.mean, fit.beta_u)
         res.valid_mse[i] = (sse_v / n_v[:, None]).T
-        syy = Mv[:, -1, -1][:, None]
+        syy = valid.M[:, -1, -1][:, None]
         with np.errstate(divide="ignore", invalid="ignore"):
             res.valid_r2[i] = np.where(syy > 0, 1.0 - sse_v / np.where(syy > 0, syy, 1.0),
                                        np.nan).T
@@ -315,29 +310,41 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
         res.coef_raw[i][:] = fit.beta_raw.transpose(2, 0, 1)
         res.intercept_raw[i] = fit.intercept_raw.T
         if progress:
-            progress(0.8 + 0.2 * (i + 1) / len(ps), f"Fitting order {orders[i]}")
+            progress(0.8 + 0.2 * (i + 1) / len(term_sets), _fit_message(ts))
     return res
 
 
-def _empty_result(orders, pen, ps, basis, S, desc) -> SweepResult:
-    O, K = len(orders), pen.size
+def _fit_message(ts: TermSet) -> str:
+    return "Fitting " + ", ".join(f"{k} {v}" for k, v in ts.key.items())
+
+
+def _empty_result(term_sets: list[TermSet], pen, families, S, desc) -> SweepResult:
+    fam, l1, pens = settings_grid(pen, families)
+    ps = [ts.n_terms for ts in term_sets]
+    O, K = len(term_sets), pens.size
     return SweepResult(
-        orders=list(orders), penalties=pen, parameters=np.array(ps) + 1,
-        term_names=[basis.names(q) for q in orders],
+        orders=[int(ts.key.get("order", 0)) for ts in term_sets], penalties=pens,
+        parameters=np.array(ps, dtype=int) + 1,
+        term_names=[list(ts.names) for ts in term_sets],
         n_train=np.zeros(S), n_valid=np.zeros(S),
         train_mse=np.zeros((O, K, S)), valid_mse=np.zeros((O, K, S)),
         valid_r2=np.zeros((O, K, S)), edf=np.zeros((O, K, S)),
         coef_std=[np.zeros((K, S, p)) for p in ps], coef_raw=[np.zeros((K, S, p)) for p in ps],
-        intercept_raw=np.zeros((O, K, S)), plan_description=desc)
+        intercept_raw=np.zeros((O, K, S)), plan_description=desc,
+        families=fam, l1_ratios=l1, rung_keys=[dict(ts.key) for ts in term_sets])
 
 
-def _loo_sweep(X, y, basis, orders, pen, A, a0, progress, desc) -> SweepResult:
-    """Exact leave-one-out from the hat-matrix identity, one fit per order."""
+def _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress, desc) -> SweepResult:
+    """Exact leave-one-out from the hat-matrix identity, one fit per term set (ridge)."""
+    if any(f != "ridge" for f, _ in families):
+        raise InputProblem(
+            "Leave-one-out is computed exactly only for ridge; for lasso or elastic net "
+            "choose shuffled k-fold (for example 10 folds) or leave those families out.",
+            code="loo_family")
     n = y.size
-    ps = [basis.n_terms_at(q) for q in orders]
-    res = _empty_result(orders, pen, ps, basis, 1, desc)
+    res = _empty_result(term_sets, pen, families, 1, desc)
     res.loo = True
-    res.loo_se = np.zeros((len(orders), pen.size))
+    res.loo_se = np.zeros((len(term_sets), pen.size))
     stats = piece_statistics(basis, X, y, np.zeros(n, dtype=np.int64), 1)
     n_t, m_t, M_t = stats.n, stats.mean, stats.comoment      # one set: all rows
     res.n_train[0], res.n_valid[0] = n - 1, 1
@@ -346,22 +353,23 @@ def _loo_sweep(X, y, basis, orders, pen, A, a0, progress, desc) -> SweepResult:
     yc = y - m_t[0, -1]
     sst = M_t[0, -1, -1]
     flagged = 0
-    last = M_t.shape[1] - 1
-    for i, p in enumerate(ps):
-        idx = np.r_[np.arange(p), last]
-        mt, Mt = m_t[:, idx], M_t[:, idx][:, :, idx]
-        fit = _fit_penalties(n_t, mt, Mt, p, A, a0, pen, keep_leverage=True)
-        E = yc[:, None] - Fc[:, :p] @ fit.beta_u[0]          # (n, K) residuals
+    for i, ts in enumerate(term_sets):
+        idx = np.asarray(ts.index)
+        p = idx.size
+        train = TermSummary.select(n_t, m_t, M_t, idx)
+        raw = RawMap.select(A, a0, idx, 1)
+        fit = ridge.fit(train, raw, pen, keep_leverage=True)
+        Fi = Fc[:, idx]
+        E = yc[:, None] - Fi @ fit.beta_u[0]          # (n, K) residuals
         H = np.full((n, pen.size), 1.0 / n)
         if p:
             if fit.lev_u is not None:
                 du, Q, inv = (v[0] for v in fit.lev_u)
-                TQ = (Fc[:, :p] / du) @ Q
+                TQ = (Fi / du) @ Q
                 H[:, pen == 0] += ((TQ * TQ) @ inv)[:, None]
             if fit.lev_raw is not None:
-                As, ds, Q, lam = fit.lev_raw
-                TQ = ((Fc[:, :p] @ As.T) / ds[0]) @ Q[0]
-                lam = lam[0]
+                As, ds, Q, lam = (v[0] for v in fit.lev_raw)
+                TQ = ((Fi @ As.T) / ds) @ Q
                 H[:, pen > 0] += (TQ * TQ) @ (1.0 / (lam[:, None] + pen[pen > 0][None, :]))
         denom = 1.0 - H
         bad = denom < 1e-10
@@ -377,7 +385,7 @@ def _loo_sweep(X, y, basis, orders, pen, A, a0, progress, desc) -> SweepResult:
         res.coef_raw[i][:, 0, :] = fit.beta_raw[0].T
         res.intercept_raw[i, :, 0] = fit.intercept_raw[0]
         if progress:
-            progress((i + 1) / len(ps), f"Leave-one-out, order {orders[i]}")
+            progress((i + 1) / len(term_sets), "Leave-one-out, " + _fit_message(ts)[8:])
     if flagged:
         res.notes.append(f"{flagged} rows have leverage 1 for some model (the model passes "
                          "through them exactly); their leave-one-out error is undefined and "
