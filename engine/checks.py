@@ -22,6 +22,7 @@ import pandas as pd
 from scipy import stats as _stats
 
 from .jsonable import json_ready
+from . import leakage as _leakage
 from .analysis import Analysis, DataLike, analyse
 from .compare import cell_label, fit_candidates
 from .design import PolynomialBasis
@@ -146,7 +147,7 @@ class CheckReport:
     Attributes
     ----------
     findings : the checks that fired (an empty list when none did).
-    tables : ``summary`` (every check, fired or not), ``serial``,
+    tables : ``summary`` (every check, fired or not), ``leakage``, ``serial``,
         ``scheme_comparison`` (when run), ``period_shift``, ``extrapolation``,
         ``leverage``, ``samples_per_parameter``, ``conditioning``.
     notes : plain sentences on how the checks were run.
@@ -1107,6 +1108,63 @@ def check_conditioning(data: DataLike, models: dict[tuple[int, float], FinalMode
     return (Finding("ill_conditioned", message, c, advice, severity, details), table)
 
 
+def leakage_table(found: list) -> pd.DataFrame:
+    """One row per `engine.leakage.Reproduction`: columns, kind, relation and closeness."""
+    rows = [{"columns": ", ".join(r.columns), "kind": r.kind, "relation": r.relation,
+             "r2": r.r2, "validation_r2": r.validation_r2,
+             "rank_correlation": r.rank_correlation, "residual_share": r.residual_share,
+             "exact": r.exact} for r in found]
+    return pd.DataFrame(rows, columns=["columns", "kind", "relation", "r2", "validation_r2",
+                                       "rank_correlation", "residual_share", "exact"])
+
+
+def check_target_leakage(data: DataLike, inputs, target: str
+                         ) -> tuple[Finding | None, pd.DataFrame]:
+    """Does an input, or a weighted sum of two, reproduce the target almost exactly?
+
+    Screened from correlations and ranks (`engine.leakage.find_reproductions`):
+    a straight line in one input, a standard transform (log, square root,
+    square, reciprocal), a monotone function by ranks, or a plane in two inputs,
+    with leave-one-out R² of at least 0.999 (rank correlation 0.999 for the
+    monotone kind). Fires when other inputs remain besides the ones found (the
+    model then rides on them) or when the relation is exact (residual below
+    0.1% of the target's SD); with only those inputs and an inexact relation
+    (a calibration against a reference) it stays quiet. Serious when other
+    inputs remain and the relation is a fitted one, caution otherwise.
+    """
+    X, y = np.asarray(data.X, float), np.asarray(data.y, float)
+    inputs = [str(c) for c in inputs]
+    found = _leakage.find_reproductions(X, y, inputs, str(target))
+    table = leakage_table(found)
+    named = {c for r in found for c in r.columns}
+    others = [c for c in inputs if c not in named]
+    fire = [r for r in found if r.exact or others]
+    if not fire:
+        return None, table
+    top = fire[0]
+    cols = [c for r in fire for c in r.columns]
+    clauses = [_leakage.describe(r, str(target)) for r in fire[:3]]
+    more = f" ({len(fire) - 3} more in the leakage table)" if len(fire) > 3 else ""
+    message = (f"{'Input' if len(cols) == 1 else 'Inputs'} {_join(cols)} "
+               f"{'reproduces' if len(cols) == 1 else 'reproduce'} "
+               f"the target {target} almost exactly: " + "; ".join(clauses) + more
+               + ". Any model with "
+               + ("this input" if len(cols) == 1 else "these inputs")
+               + " looks near-perfect on validation rows for that reason alone.")
+    advice = (f"If {_join(cols)} {'is' if len(cols) == 1 else 'are'} computed from {target} "
+              "or recorded after it (a transformed copy, a total or difference it is part "
+              "of), remove it from the inputs and sweep again. If it is an independent "
+              "measurement taken before the target is known (a reference instrument), "
+              "this warning can be set aside.")
+    serious = bool(others) and any(r.kind != "monotone" for r in fire)
+    details = {"columns": cols, "others": others,
+               "reproductions": [r.to_dict() for r in fire]}
+    value = float(top.validation_r2 if np.isfinite(top.validation_r2)
+                  else top.rank_correlation ** 2)
+    return (Finding("target_leakage", message, value, advice,
+                    "serious" if serious else "caution", details), table)
+
+
 def check_train_validation_gap(analysis: Analysis) -> tuple[Finding | None, dict]:
     """Validation error far above training error for the recommended cell.
 
@@ -1161,7 +1219,7 @@ def run_checks(data: DataLike, analysis: Analysis,
     Returns
     -------
     CheckReport
-        Findings in the order serial dependence, period shift,
+        Findings in the order target leakage, serial dependence, period shift,
         extrapolation, leverage, rows per parameter, conditioning,
         train/validation gap; tables for each.
     """
@@ -1190,6 +1248,15 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress) -> Che
             f"No order column was given and the rows are sorted by {sorted_name}, so the row "
             "order is not an order in time: the serial dependence and period shift checks "
             "were computed but not used as warnings.")
+
+    tick(0.1, "Looking for inputs that reproduce the target")
+    f0, t_leak = check_target_leakage(data, spec.inputs, spec.target)
+    report.tables["leakage"] = t_leak
+    summary.append(("target_leakage", f0,
+                    float(t_leak["validation_r2"].max()) if len(t_leak) else float("nan"),
+                    "one input or two reproduce the target with validation R² of at least "
+                    f"{_leakage.NEAR_R2} (rank correlation {_leakage.NEAR_RANK} for a "
+                    "monotone function)"))
 
     tick(0.15, "Checking for dependence between neighbouring rows")
     f, t_serial, comparison = check_serial_dependence(data, analysis, rec_model)
@@ -1235,7 +1302,7 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress) -> Che
     summary.append(("train_validation_gap", f7, float(gap_info["ratio"]),
                     f"validation MSE more than {GAP_RATIO:g} times training MSE"))
 
-    report.findings = [x for x in (f, f2, f3, f4, f5, f6, f7) if x is not None]
+    report.findings = [x for x in (f0, f, f2, f3, f4, f5, f6, f7) if x is not None]
     time_codes = ("serial_dependence", "period_shift")
     report.tables["summary"] = pd.DataFrame(
         [{"code": c, "fired": fi is not None, "severity": fi.severity if fi else "",
