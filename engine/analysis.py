@@ -14,6 +14,7 @@ from .moments import combine_batch
 from .recommend import Recommendation, recommend
 from .schemes import FoldPlan, make_plan
 from .spec import SchemeSpec, SweepSpec
+from .ladder import RUNG_COLUMNS
 from .sweep import Progress, SweepResult, _fit_penalties, _sse, check_design_size, piece_statistics, run_sweep
 
 
@@ -39,12 +40,22 @@ class ArrayData:
     groups: np.ndarray | None = None
     split: np.ndarray | None = None
     order: np.ndarray | None = None
+    Y: np.ndarray | None = None
+    targets: tuple[str, ...] | None = None
 
     def __post_init__(self) -> None:
         self.X = np.asarray(self.X, dtype=float)
         if self.X.ndim == 1:
             self.X = self.X[:, None]
         self.y = np.asarray(self.y, dtype=float)
+        if self.y.ndim == 2:   # several targets: the first is ``y``
+            self.Y, self.y = self.y, self.y[:, 0].copy()
+        if self.Y is not None:
+            self.Y = np.asarray(self.Y, dtype=float).reshape(len(self.y), -1)
+            if self.targets is None or len(self.targets) != self.Y.shape[1]:
+                self.targets = (self.target,) + tuple(f"y{t + 1}" for t in
+                                                      range(1, self.Y.shape[1]))
+            self.target = self.targets[0]
         if len(self.inputs) != self.X.shape[1]:
             self.inputs = tuple(f"x{j + 1}" for j in range(self.X.shape[1]))
 
@@ -76,9 +87,57 @@ class Analysis:
     plan: FoldPlan
     n_rows: int
     notes: list[str] = field(default_factory=list)
+    model_data: object | None = None
+    model_spec: SweepSpec | None = None
+    rows_left_out: int = 0
 
-    def cell_row(self, order: int, penalty: float) -> pd.Series:
+    @property
+    def target(self) -> str:
+        """The column this analysis predicts."""
+        return self.model_spec.target if self.model_spec is not None else self.spec.target
+
+    @property
+    def axes(self) -> list[str]:
+        """Axes of the grid with more than one value (of order, penalty and the rungs)."""
         t = self.validation
+        out = [k for k in ("order", "penalty") if t[k].nunique() > 1]
+        return out + [k for k in RUNG_COLUMNS[:3] if k in t and t[k].nunique(dropna=True) > 1]
+
+    def working(self, data, spec: SweepSpec):
+        """The data and request of the recommended cell's columns, for final fits and checks.
+
+        For a grid over lag depths or input counts these are the chosen
+        cell's columns (current and past values) as a plain request; otherwise
+        ``data`` and ``spec`` themselves.
+        """
+        if self.model_data is None:
+            return data, spec
+        return self.model_data, self.model_spec
+
+    def at_rung(self, cell=None) -> pd.DataFrame:
+        """Rows of the validation table that share the rung (lag depths, inputs used) of ``cell``.
+
+        ``cell`` defaults to the recommended cell; without rung axes this is
+        the whole table.
+        """
+        cell = self.recommendation.recommended if cell is None else cell
+        t = self.validation
+        keep = np.ones(len(t), bool)
+        for k in RUNG_COLUMNS[:3]:
+            if k in t:
+                v = getattr(cell, k, None) if not hasattr(cell, "get") else cell.get(k)
+                col = t[k]
+                if v is None or pd.isna(v):
+                    keep &= col.isna().to_numpy()
+                else:
+                    keep &= (col == int(v)).fillna(False).to_numpy()
+        return t[keep]
+
+    def cell_row(self, order: int, penalty: float, **rung) -> pd.Series:
+        """The validation-table row of a cell; rung axes default to the recommended cell's."""
+        rec = self.recommendation.recommended
+        ref = {k: rung.get(k, getattr(rec, k, None)) for k in RUNG_COLUMNS[:3]}
+        t = self.at_rung(ref)
         m = t[(t["order"] == order) & np.isclose(t["penalty"], penalty, rtol=1e-12, atol=0)]
         if m.empty:
             raise InputProblem(f"No cell with order {order} and penalty {penalty} in this sweep.",
@@ -123,6 +182,16 @@ def plan_for(data: DataLike, scheme: SchemeSpec, seed: int) -> FoldPlan:
 
 
 def analyse(data: DataLike, spec: SweepSpec, progress: Progress | None = None) -> Analysis:
+    """Sweep every cell of ``spec`` and recommend one (the first target's analysis).
+
+    See `analyse_targets` for every target of a several-target request.
+    """
+    if spec.has_rungs:
+        return analyse_targets(data, spec, progress)[0]
+    return _analyse_plain(data, spec, progress)
+
+
+def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = None) -> Analysis:
     """Sweep every (order, penalty) cell of ``spec`` and recommend one.
 
     Parameters
@@ -260,3 +329,125 @@ def learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None = N
     table["fraction"] = table["train_size"] / len(plan.train_sets[0])
     table["folds"] = S
     return LearningCurve(folds=folds, table=table, note=note)
+
+
+def target_matrix(data, spec: SweepSpec) -> np.ndarray:
+    """(n, T) values of every target of ``spec`` (``data.Y`` for several targets)."""
+    if not spec.extra_targets:
+        return np.asarray(data.y, float)[:, None]
+    Y = getattr(data, "Y", None)
+    names = tuple(getattr(data, "targets", None) or ())
+    if Y is None or names[:len(spec.targets)] != spec.targets:
+        raise InputProblem(f"The data hold no columns for the targets {', '.join(spec.targets)}; "
+                           "prepare the data with every target.", code="shape_mismatch")
+    return np.asarray(Y, float)[:, :len(spec.targets)]
+
+
+def analyse_targets(data: DataLike, spec: SweepSpec,
+                    progress: Progress | None = None) -> list[Analysis]:
+    """Sweep a grid with lag depths, input counts or several targets; one analysis per target.
+
+    One pass over the rows builds the statistics of the full design (every
+    column at the deepest lag) for every target at once; each cell is an index
+    set of it. Each target gets its own recommendation.
+
+    Parameters
+    ----------
+    data : prepared data; with several targets it carries ``Y`` (n, T) and
+        ``targets`` (see `engine.ladder_data.prepare_targets`).
+    spec : the request (``lags``, ``nested_inputs``, ``extra_targets``).
+    progress : called as ``progress(fraction_done, message)``.
+
+    Returns
+    -------
+    list of Analysis, one per target in ``spec.targets`` order.
+    """
+    from .ladder import full_design, run_ladder
+
+    spec.validate()
+    _check_data(data, spec)
+    Y = target_matrix(data, spec)
+    for t, name in enumerate(spec.targets):
+        col = Y[:, t]
+        if not np.all(np.isfinite(col)):
+            bad = int(np.flatnonzero(~np.isfinite(col))[0])
+            raise InputProblem(f"Target '{name}' has a missing or infinite value in row "
+                               f"{bad + 1}; remove or fix it.", code="infinite",
+                               column=name, row=bad + 1)
+        if col.size and np.ptp(col) == 0:
+            raise InputProblem(f"Target '{name}' has the same value in every row; there is "
+                               "nothing to predict.", code="constant_target", column=name)
+    if spec.scheme.kind == "loo" and spec.lags is None and spec.nested_inputs is None:
+        # leave-one-out has no pieces to share: one exact sweep per target
+        out = []
+        for t, name in enumerate(spec.targets):
+            one = replace(spec, target=name, extra_targets=())
+            a = _analyse_plain(ArrayData(data.X, Y[:, t], spec.inputs, name,
+                                         getattr(data, "groups", None), getattr(data, "split", None)),
+                               one, progress)
+            a.spec = spec
+            a.validation = a.validation.assign(target=name)
+            out.append(a)
+        return out
+    groups = getattr(data, "groups", None)
+    split = getattr(data, "split", None)
+    try:
+        design = full_design(data.X, Y, spec.inputs, spec.targets, spec.lags, groups)
+        orders = spec.order_list()
+        basis = PolynomialBasis.fit(design.X, design.columns, max(orders), spec.interactions)
+        check_design_size(basis)
+        kept = design.kept
+        sub = ArrayData(design.X, design.Y[:, 0], design.columns, spec.target,
+                        None if groups is None else np.asarray(groups)[kept],
+                        None if split is None else np.asarray(split)[kept])
+        plan = plan_for(sub, spec.scheme, spec.seed)
+        ladders = run_ladder(design, basis, plan, spec.targets, spec.inputs, orders,
+                             spec.penalties, spec.lags, spec.nested_inputs, progress)
+    except InputProblem:
+        raise
+    except (ValueError, np.linalg.LinAlgError, MemoryError) as exc:  # pragma: no cover
+        raise InputProblem(f"The sweep could not be computed: {exc}", code="sweep_failed") from exc
+    out = []
+    for t, lad in enumerate(ladders):
+        table = lad.validation_table()
+        rec = recommend(table, float(np.mean(lad.n_train)))
+        i = lad.rung_index(rec.recommended)
+        cols = _final_columns(design, basis, lad, i, t, spec)
+        names = tuple(design.columns[c] for c in cols)
+        mdata = ArrayData(design.X[:, cols], design.Y[:, t], names, spec.targets[t],
+                          sub.groups, sub.split)
+        mspec = replace(spec, target=spec.targets[t], inputs=names, lags=None,
+                        nested_inputs=None, extra_targets=())
+        mbasis = PolynomialBasis.fit(mdata.X, names, max(orders), spec.interactions)
+        notes = list(lad.notes) + list(lad.sweeps[i].notes)
+        out.append(Analysis(spec=spec, sweep=lad, validation=table, recommendation=rec,
+                            basis=mbasis, plan=plan, n_rows=int(design.X.shape[0]), notes=notes,
+                            model_data=mdata, model_spec=mspec,
+                            rows_left_out=int(design.rows_dropped)))
+    return out
+
+
+def _final_columns(design, basis, lad, i: int, t: int, spec: SweepSpec) -> np.ndarray:
+    """Columns of rung ``i`` for the final fit on all rows.
+
+    For ranked input sets the ranking is redone on all rows (the final model is
+    fitted on all rows anyway; the validation errors used per-split rankings).
+    """
+    rung = lad.rungs[i]
+    cols = lad.rung_columns[i][0]
+    if rung.inputs_used is None or lad.ranking_method != "lasso":
+        return cols
+    from .ladder import rank_inputs_by_lasso
+    from .moments import chunk_moments
+    d = len(spec.inputs)
+    lin = np.array([int(np.flatnonzero((basis.terms.sum(axis=1) == 1) & (basis.terms[:, j] == 1))[0])
+                    for j in range(d)])
+    R = np.column_stack([design.X[:, :d], design.Y[:, t]])
+    n, mean, M = chunk_moments(R)
+    ranking = rank_inputs_by_lasso(n, mean, M, np.arange(d))
+    use = np.isin(np.arange(d), ranking[:rung.inputs_used])
+    every = np.arange(len(design.columns))
+    if rung.lags is not None:
+        every = design.columns_for(rung.lags, rung.target_lags, t)
+    src = design.source[every]
+    return every[(src < 0) | use[np.clip(src, 0, None)]]

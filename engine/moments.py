@@ -150,34 +150,51 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     column of ones gives its count, mean and centred co-moment without
     cancellation; chunk summaries then combine exactly.
 
+    Several targets share the pass: they are extra columns after the terms.
+    Each target's entries are computed by the same operations whatever the
+    number of targets (the terms' cross-products once, then one product per
+    target), so the statistics of one target are bit for bit those of a
+    single-target pass.
+
     Parameters
     ----------
     U : (n, d) scaled inputs.
-    y : (n,) target.
+    y : (n,) target, or (n, T) several targets.
     labels : (n,) set of each row, ``-1`` for rows no set uses.
     n_sets : number of sets.
     expand : ``expand(U_chunk, out)`` writes the chunk's terms into ``out``.
     n_terms : number of terms ``expand`` writes.
     chunk_rows : rows per chunk.
+
+    Returns
+    -------
+    `Moments` over ``n_terms + T`` columns, the targets last.
     """
     labels = np.asarray(labels)
     small = labels.astype(np.int16 if n_sets < 32000 else np.int32)
     order = np.argsort(small, kind="stable")   # a radix sort for small integers
     sl = small[order]
     Us = U[order]
-    ys = y[order]
-    q = n_terms + 1
+    Y = np.asarray(y, dtype=float)
+    Y = Y[:, None] if Y.ndim == 1 else Y
+    n_targets = Y.shape[1]
+    ys = [np.ascontiguousarray(Y[order, t]) for t in range(n_targets)]
+    P = n_terms
+    q = P + n_targets
     acc = Moments.empty(n_sets, q)
-    if ys.size == 0:
+    if sl.size == 0:
         return acc
     # fixed shift: column means of an evenly spread sample of rows
-    step = max(1, ys.size // 4096)
-    sample = np.empty((len(range(0, ys.size, step)), q), order="F")
-    expand(Us[::step], sample[:, :n_terms])
-    sample[:, n_terms] = ys[::step]
-    shift = sample.mean(axis=0)
-    buf = np.empty((min(chunk_rows, ys.size), q + 1), order="F")
-    buf[:, q] = 1.0
+    step = max(1, sl.size // 4096)
+    sample = np.empty((len(range(0, sl.size, step)), P), order="F")
+    expand(Us[::step], sample)
+    shift_f = sample.mean(axis=0)
+    shift_y = np.array([v[::step].mean() for v in ys])
+    shift = np.r_[shift_f, shift_y]
+    buf = np.empty((min(chunk_rows, sl.size), P + 1), order="F")
+    buf[:, P] = 1.0
+    G_full = np.empty((q, q))
+    s = np.empty(q)
     cuts = np.flatnonzero(np.diff(sl)) + 1
     for a, b in zip(np.r_[0, cuts], np.r_[cuts, sl.size]):
         lab = int(sl[a])
@@ -186,11 +203,27 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
         for c0 in range(a, b, chunk_rows):
             c1 = min(c0 + chunk_rows, b)
             R = buf[:c1 - c0]
-            expand(Us[c0:c1], R[:, :n_terms])
-            R[:, n_terms] = ys[c0:c1]
-            R[:, :q] -= shift
+            expand(Us[c0:c1], R[:, :P])
+            R[:, :P] -= shift_f
             G = R.T @ R
-            m = G[q, q]
-            s = G[:q, q]
-            merge_into(acc, lab, m, shift + s / m, G[:q, :q] - np.outer(s, s) / m)
+            m = G[P, P]
+            G_full[:P, :P] = G[:P, :P]
+            s[:P] = G[:P, P]
+            r = [v[c0:c1] - sh for v, sh in zip(ys, shift_y)]
+            for t in range(n_targets):
+                g = R.T @ r[t]
+                G_full[:P, P + t] = g[:P]
+                G_full[P + t, :P] = g[:P]
+                s[P + t] = g[P]
+                for u in range(t + 1):
+                    G_full[P + t, P + u] = G_full[P + u, P + t] = r[t] @ r[u]
+            merge_into(acc, lab, m, shift + s / m, G_full - np.outer(s, s) / m)
     return acc
+
+
+def target_moments(stats: Moments, n_terms: int, target: int) -> Moments:
+    """The summaries of the terms and one target out of a several-target pass."""
+    idx = np.r_[np.arange(n_terms), n_terms + int(target)]
+    # contiguous copies, laid out exactly as a single-target pass lays them out
+    return Moments(stats.n.copy(), np.ascontiguousarray(stats.mean[:, idx]),
+                   np.ascontiguousarray(stats.comoment[:, idx][:, :, idx]))

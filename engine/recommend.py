@@ -6,7 +6,10 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import pandas as pd
 
-from .labels import cell_text, penalty_text
+from .labels import cell_text, penalty_text, rung_text
+
+#: optional axes of a cell beyond order and penalty (columns of the validation table)
+RUNG_FIELDS = ("lags", "target_lags", "inputs_used", "target")
 
 
 @dataclass(frozen=True)
@@ -23,13 +26,22 @@ class Cell:
     effective_df: float
     samples_per_parameter: float
     reason: str
+    lags: int | None = None
+    target_lags: int | None = None
+    inputs_used: int | None = None
+    target: str | None = None
 
     def to_dict(self) -> dict:
-        return asdict(self)
+        d = asdict(self)
+        for k in RUNG_FIELDS:   # keys of the newer axes only when the grid has them
+            if d[k] is None:
+                del d[k]
+        return d
 
     @property
     def label(self) -> str:
-        return cell_text(self.order, self.penalty)
+        return cell_text(self.order, self.penalty) + rung_text(self.lags, self.target_lags,
+                                                               self.inputs_used)
 
 
 @dataclass(frozen=True)
@@ -50,6 +62,16 @@ def _penalty_text(a: float) -> str:
     return "no penalty" if a == 0 else f"penalty {penalty_text(a)}"
 
 
+def _rung_fields(row: pd.Series) -> dict:
+    out = {}
+    for k in RUNG_FIELDS:
+        v = row.get(k) if hasattr(row, "get") else None
+        if v is None or (not isinstance(v, str) and pd.isna(v)):
+            continue
+        out[k] = str(v) if k == "target" else int(v)
+    return out
+
+
 def _cell(row: pd.Series, n_train: float, reason: str) -> Cell:
     params = int(row["parameters"])
     return Cell(order=int(row["order"]), penalty=float(row["penalty"]),
@@ -57,7 +79,8 @@ def _cell(row: pd.Series, n_train: float, reason: str) -> Cell:
                 validation_mse_se=float(row["validation_mse_se"]),
                 train_mse=float(row["train_mse"]), validation_r2=float(row["validation_r2"]),
                 parameters=params, effective_df=float(row["effective_df"]),
-                samples_per_parameter=float(n_train / params), reason=reason)
+                samples_per_parameter=float(n_train / params), reason=reason,
+                **_rung_fields(row))
 
 
 def recommend(table: pd.DataFrame, mean_train_rows: float) -> Recommendation:
@@ -87,13 +110,20 @@ def recommend(table: pd.DataFrame, mean_train_rows: float) -> Recommendation:
                          kind="stable").iloc[0]
     best_reason = (f"Lowest mean validation error of all {len(t)} cells: "
                    f"MSE {b['validation_mse']:.4g} ± {se:.2g} (one standard error).")
-    if int(r["order"]) == int(b["order"]) and float(r["penalty"]) == float(b["penalty"]):
+    if r.name == b.name:   # the same row of the table (cells may differ in more than order)
         rec_reason = ("It has the lowest validation error, and no simpler cell comes within "
                       "one standard error of it.")
     else:
         within = (f"Its validation error ({r['validation_mse']:.4g}) is within one standard "
                   f"error of the best ({b['validation_mse']:.4g} + {se:.2g})")
-        if int(r["order"]) == int(b["order"]):
+        if _rung_fields(r) != _rung_fields(b):
+            rb = _rung_fields(b)
+            rec_reason = (f"{within}, and it uses {r['effective_df']:.2f} effective degrees of "
+                          f"freedom against {b['effective_df']:.2f} for the best cell ("
+                          f"{cell_text(int(b['order']), float(b['penalty']))}"
+                          f"{rung_text(rb.get('lags'), rb.get('target_lags'), rb.get('inputs_used'))}): "
+                          "the simpler model is as good as the data can tell.")
+        elif int(r["order"]) == int(b["order"]):
             rec_reason = (f"{within}, with the same order and a stronger penalty "
                           f"({_penalty_text(float(r['penalty']))} against "
                           f"{_penalty_text(float(b['penalty']))}), which leaves "

@@ -7,6 +7,7 @@ from typing import Any
 import numpy as np
 
 from .errors import InputProblem
+from .lagged import LagSpec
 
 SCHEMES = ("kfold", "repeated", "loo", "blocked", "grouped", "holdout", "column")
 
@@ -113,6 +114,14 @@ class SweepSpec:
     scheme : the validation scheme.
     seed : seed for every random choice (shuffles).
     learning_sizes : fractions of each training set for the learning curve.
+    lags : past values of inputs and target as terms, and the depths to
+        compare (`engine.lagged.LagSpec`); ``None`` for none.
+    nested_inputs : ``"lasso"`` ranks the inputs by the order they enter the
+        lasso path on each split's training rows, ``"given"`` keeps the order of
+        ``inputs``; the sweep then compares the first 1, 2, ... inputs.
+        ``None``: every input in every cell.
+    extra_targets : more columns to predict from the same inputs, each with
+        its own grid and recommendation, from one pass over the rows.
     """
 
     target: str
@@ -124,13 +133,29 @@ class SweepSpec:
     scheme: SchemeSpec = field(default_factory=SchemeSpec)
     seed: int = 0
     learning_sizes: tuple[float, ...] = (0.1, 0.325, 0.55, 0.775, 1.0)
+    lags: LagSpec | None = None
+    nested_inputs: str | None = None
+    extra_targets: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "inputs", tuple(self.inputs))
+        object.__setattr__(self, "extra_targets", tuple(str(t) for t in self.extra_targets))
+        if isinstance(self.lags, dict):
+            object.__setattr__(self, "lags", LagSpec.from_dict(self.lags))
         object.__setattr__(self, "penalties", tuple(float(p) for p in self.penalties))
         if self.orders is not None:
             object.__setattr__(self, "orders", tuple(sorted({int(o) for o in self.orders})))
             object.__setattr__(self, "max_order", max(self.orders) if self.orders else 0)
+
+    @property
+    def targets(self) -> tuple[str, ...]:
+        """Every column to predict: ``target`` first, then ``extra_targets``."""
+        return (self.target,) + tuple(self.extra_targets)
+
+    @property
+    def has_rungs(self) -> bool:
+        """True when the grid has axes beyond order and penalty, or several targets."""
+        return self.lags is not None or self.nested_inputs is not None or bool(self.extra_targets)
 
     def order_list(self) -> list[int]:
         """The orders to report, ascending."""
@@ -161,6 +186,19 @@ class SweepSpec:
             if not np.isfinite(p) or p < 0:
                 raise InputProblem(f"Penalties must be finite and 0 or more (got {p}).",
                                    code="bad_penalty")
+        for t in self.extra_targets:
+            if t == self.target or t in self.inputs:
+                raise InputProblem(f"Column '{t}' is listed as a target twice or as both a target "
+                                   "and an input; list each column in one role.",
+                                   code="target_is_input", column=t)
+        if len(set(self.extra_targets)) != len(self.extra_targets):
+            raise InputProblem("A target is listed twice; list each target once.",
+                               code="duplicate_target")
+        if self.nested_inputs not in (None, "lasso", "given"):
+            raise InputProblem(f"Input ranking must be 'lasso' or 'given' (got {self.nested_inputs}).",
+                               code="bad_nested_inputs")
+        if self.lags is not None:
+            self.lags.validate(self.inputs, self.scheme)
         for f in self.learning_sizes:
             if not (0.0 < f <= 1.0):
                 raise InputProblem(f"Learning-curve sizes are fractions in (0, 1] (got {f}).",
@@ -173,6 +211,16 @@ class SweepSpec:
         d["penalties"] = list(self.penalties)
         d["orders"] = list(self.orders) if self.orders is not None else None
         d["learning_sizes"] = list(self.learning_sizes)
+        # keys of the newer axes appear only when used, so older records read the same
+        for key in ("lags", "nested_inputs"):
+            if d[key] is None:
+                del d[key]
+        if self.lags is not None:
+            d["lags"] = self.lags.to_dict()
+        if self.extra_targets:
+            d["extra_targets"] = list(self.extra_targets)
+        else:
+            del d["extra_targets"]
         return d
 
     @classmethod
@@ -185,4 +233,6 @@ class SweepSpec:
         if d.get("orders") is not None:
             d["orders"] = tuple(d["orders"])
         d["learning_sizes"] = tuple(d.get("learning_sizes", (0.1, 0.325, 0.55, 0.775, 1.0)))
+        d["lags"] = LagSpec.from_dict(d.get("lags"))
+        d["extra_targets"] = tuple(d.get("extra_targets", ()))
         return cls(**d)
