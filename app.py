@@ -33,7 +33,8 @@ from engine import (SCHEME_HELP, InputProblem, SchemeSpec, SweepSpec, analyse,
                     default_penalties, learning_curve)
 from engine import charts as C
 from engine.compare import fit_candidates
-from engine.loading import DEFAULT_MAX_BYTES, load_table, prepare
+from engine.loading import DEFAULT_MAX_BYTES, describe_drops, load_table, prepare
+from engine.markup import escape_text
 
 HERE = Path(__file__).resolve().parent
 DEMO_DIR = HERE / "demo_data"
@@ -117,11 +118,8 @@ SETUP_KEYS = ("target", "inputs", "all_inputs", "order_column", "group_column", 
 
 
 def md(text: Any) -> str:
-    """Text from data or the engine, made safe for Markdown (no formatting, no maths)."""
-    out = str(text)
-    for ch in ("\\", "`", "*", "_", "[", "]", "$", "<", ">", "#", "|", "~"):
-        out = out.replace(ch, "\\" + ch)
-    return out
+    """Text from data or the engine, made literal for Markdown (no marks, maths or links)."""
+    return escape_text(text)
 
 
 def show_problem(exc: BaseException, where: str = "") -> None:
@@ -159,14 +157,15 @@ def read_demo(file: str) -> bytes:
     return (DEMO_DIR / file).read_bytes()
 
 
-@st.cache_data(show_spinner=False, max_entries=8)
+@st.cache_data(show_spinner=False, max_entries=4, ttl=3600)
 def cached_load(digest: str, name: str, _raw: bytes, decimal: str = "."):
     """`engine.loading.load_table` of the bytes whose SHA-256 is ``digest``."""
     return load_table(_raw, name=name, decimal=decimal)
 
 
-@st.cache_data(show_spinner=False, max_entries=16)
-def cached_prepare(digest: str, roles: tuple, _frame: pd.DataFrame):
+@st.cache_data(show_spinner=False, max_entries=16, ttl=3600)
+def cached_prepare(data_key: str, roles: tuple, _frame: pd.DataFrame):
+    """`engine.loading.prepare`; ``data_key`` names the bytes AND how they were read."""
     target, inputs, order_col, group_col, split_col = roles
     return prepare(_frame, target, list(inputs), order_column=order_col,
                    group_column=group_col, split_column=split_col)
@@ -181,7 +180,7 @@ def _sweep_store() -> tuple[OrderedDict, threading.Lock]:
 SWEEPS_KEPT = 16
 
 
-def cached_analysis(digest: str, roles: tuple, spec_dict: dict, data,
+def cached_analysis(data_key: str, roles: tuple, spec_dict: dict, data,
                     progress: Callable[[float, str], None] | None = None):
     """The sweep, keyed on the file hash, the roles and the request.
 
@@ -190,7 +189,7 @@ def cached_analysis(digest: str, roles: tuple, spec_dict: dict, data,
     (elements cannot be updated from inside ``st.cache_data``). Analyses are
     never modified after they are made, so sharing them is safe.
     """
-    key = (digest, repr(roles), json.dumps(spec_dict, sort_keys=True, default=str))
+    key = (data_key, repr(roles), json.dumps(spec_dict, sort_keys=True, default=str))
     store, lock = _sweep_store()
     with lock:
         if key in store:
@@ -727,7 +726,7 @@ def trust_panel(data, analysis, run_key: str = "") -> None:
                 f"{nested.outer_mse:.4g} ± {nested.outer_se:.2g}, against the sweep's own "
                 f"estimate {nested.inner_mse:.4g} (ratio {nested.ratio:.2f}; about 1 when "
                 "the sweep's estimate holds).")
-            st.caption(" ".join([nested.description] + list(nested.notes)))
+            st.caption(md(" ".join([nested.description] + list(nested.notes))))
             st.dataframe(nested.per_fold, hide_index=True)
             table_download(nested.per_fold, "nested_cv", "Nested cross-validation")
         if stab is not None:
@@ -738,7 +737,7 @@ def trust_panel(data, analysis, run_key: str = "") -> None:
             st.markdown(f"**Selection stability** ({stab.method}, {len(stab.chosen)} "
                         f"repetitions). The recommended cell was chosen in {share:.0%} of them.")
             if stab.notes:
-                st.caption(" ".join(stab.notes))
+                st.caption(md(" ".join(stab.notes)))
             st.dataframe(t, hide_index=True)
             table_download(stab.chosen, "selection_stability", "Choices per repetition")
 
@@ -754,7 +753,8 @@ def pack_panel(loaded, source_name: str, data, analysis, spec: SweepSpec,
         from engine import pack
     except ImportError:
         return
-    key = ("pack", analysis.spec.to_dict().__repr__(), source_name, tuple(compare_orders))
+    key = ("pack", analysis.spec.to_dict().__repr__(), source_name, tuple(compare_orders),
+           loaded.report.sha256, loaded.report.decimal)
     if st.button("Prepare meeting pack", key="make_pack", icon=":material/folder_zip:",
                  help="Writes a one-page summary, every chart and table, and the model."):
         bar = st.progress(0.0, text="Preparing the pack…")
@@ -800,7 +800,7 @@ def tab_validation(analysis, target: str) -> None:
     chart_block(chart, "validation_curve", "Validation curve",
                 [(analysis.validation, "validation_grid", "Validation table, every cell")])
     if analysis.notes:
-        st.caption(" ".join(analysis.notes))
+        st.caption(md(" ".join(analysis.notes)))
 
 
 def tab_heatmap(analysis, target: str) -> None:
@@ -893,7 +893,7 @@ def tab_coefficients(analysis, target: str) -> None:
     view = C.coefficient_view(coef, q, a)
     chart = C.coefficient_chart(coef, q, a, target=target)
     chart_block(chart, "coefficients", "Coefficient chart")
-    st.caption(f"Standardised: change in {target} for one standard deviation of the term, "
+    st.caption(f"Standardised: change in {md(target)} for one standard deviation of the term, "
                "averaged over the validation splits. Steep: more than "
                f"{C.STEEP_RATIO:g} times the median magnitude of the other terms, in cells "
                f"with {C.STEEP_MIN_TERMS} or more terms.")
@@ -909,9 +909,7 @@ def tab_data(loaded, data) -> None:
                 f"read as {rep.file_format.upper()} · {len(rep.numeric_columns)} numeric.")
     used = f"{data.n_rows:,} rows used"
     if data.rows_dropped:
-        per = ", ".join(f"{c}: {n}" for c, n in data.drop_counts.items())
-        st.warning(f"{used}; {data.rows_dropped:,} of {data.rows_in:,} dropped because a chosen "
-                   f"column was empty ({md(per)}).", icon=":material/filter_alt:")
+        st.warning(f"{used}. {md(describe_drops(data))}", icon=":material/filter_alt:")
     else:
         st.caption(f"{used}; no rows dropped.")
     if rep.ignored_columns:
@@ -1000,7 +998,9 @@ def main() -> None:
         st.info("Pick a demo data set or upload another file in the sidebar.")
         return
     numeric = list(loaded.report.numeric_columns)
-    dataset_id = f"{choice}:{digest}:{decimal}"
+    # everything that changes the rows read: the bytes and the decimal mark
+    data_key = f"{digest}:{decimal}"
+    dataset_id = f"{choice}:{data_key}"
     if st.session_state.get("_dataset") != dataset_id:
         preset = DEMOS[choice].preset if choice in DEMOS else guess_preset(loaded.frame, numeric)
         apply_preset(preset)
@@ -1010,11 +1010,11 @@ def main() -> None:
         return
     roles, spec = choices.roles, choices.spec
     try:
-        data = cached_prepare(digest, roles, loaded.frame)
+        data = cached_prepare(data_key, roles, loaded.frame)
         spec_dict = spec.to_dict()
         bar = st.progress(0.0, text="Sweeping orders and penalties…")
         analysis = cached_analysis(
-            digest, roles, spec_dict, data,
+            data_key, roles, spec_dict, data,
             lambda f, msg: bar.progress(min(1.0, max(0.0, float(f))), text=str(msg)))
         bar.empty()
     except Exception as exc:  # noqa: BLE001
@@ -1023,18 +1023,20 @@ def main() -> None:
             guarded("showing the data", st.dataframe, loaded.frame.head(200))
         return
 
-    analysis_key = f"{digest}|{roles!r}|{spec_dict!r}"
+    analysis_key = f"{data_key}|{roles!r}|{spec_dict!r}"
     if st.session_state.get("_analysis_key") != analysis_key:
         # a new result: the views start again from its recommendation
         for k in VIEW_KEYS:
             st.session_state.pop(k, None)
         st.session_state["_analysis_key"] = analysis_key
     target = spec.target
-    drop = (f" · {data.rows_dropped:,} dropped for missing values (see Data)"
-            if data.rows_dropped else "")
+    drop = (f" · {data.rows_dropped:,} dropped (see below and Data)" if data.rows_dropped
+            else "")
     st.caption(md(f"{loaded.report.source_name} · {data.n_rows:,} of {data.rows_in:,} rows used"
                   f"{drop} · target {target} from {len(spec.inputs)} input"
                   f"{'s' if len(spec.inputs) != 1 else ''}"))
+    if data.rows_dropped:
+        st.warning(md(describe_drops(data)), icon=":material/filter_alt:")
     mark("sweep")
     guarded("showing the recommendation", recommendation_panel, analysis, target)
     # slow engine calls run in the background, in this order, while the quick

@@ -274,6 +274,15 @@ def _load(path: str, *, decimal: str | None, sheet, name: str | None = None):
     return load_table(str(p), name=name, decimal=decimal, sheet=sheet)
 
 
+def _say_drops(data, stream=None) -> None:
+    """Rows dropped, and why, on stderr where the user is looking."""
+    from .loading import describe_drops
+
+    text = describe_drops(data)
+    if text:
+        print(f"{PROG}: {text}", file=stream or sys.stderr, flush=True)
+
+
 def _default_inputs(loaded, target: str, exclude: Sequence[str | None]) -> list[str]:
     skip = {target, *[c for c in exclude if c]}
     return [c for c in loaded.report.numeric_columns if c not in skip]
@@ -308,6 +317,7 @@ def command_run(args: argparse.Namespace) -> int:
                            "Name them with --inputs.", code="no_inputs")
     data = prepare(loaded.frame, args.target, inputs, order_column=args.order_column,
                    group_column=args.group_column, split_column=args.split_column)
+    _say_drops(data)
     scheme = SchemeSpec(kind=args.scheme, folds=args.folds, repeats=args.repeats, gap=args.gap,
                         holdout_fraction=args.holdout_fraction, order_column=args.order_column,
                         group_column=args.group_column, split_column=args.split_column)
@@ -380,6 +390,7 @@ def command_rerun(args: argparse.Namespace) -> int:
     data = prepare(loaded.frame, roles.get("target", spec.target), list(roles.get("inputs",
                    spec.inputs)), order_column=roles.get("order_column"),
                    group_column=roles.get("group_column"), split_column=roles.get("split_column"))
+    _say_drops(data)
     cells = [tuple(c) for c in rec.get("compare_cells") or []] or None
     result = build_pack(args.out, loaded=loaded, source_name=facts.get("file") or
                         loaded.report.source_name, data=data, spec=spec, compare_orders=

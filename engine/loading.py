@@ -34,6 +34,7 @@ __all__ = [
     "LoadReport",
     "LoadedTable",
     "PreparedData",
+    "describe_drops",
     "load_table",
     "prepare",
 ]
@@ -68,6 +69,9 @@ _MISSING_TOKENS = frozenset({"", "na", "n/a", "nan", "null", "none", "#n/a", "mi
 
 #: Share of filled cells that must be numbers for a column to count as numeric.
 NUMERIC_SHARE = 0.9
+
+#: Key of ``DataFrame.attrs`` under which loading lists cells that were not numbers.
+UNPARSABLE_ATTR = "fitladder_unparsable"
 
 _COMMA_NUMBER = re.compile(r"^[+-]?\d+,\d+(?:[eE][+-]?\d+)?$")
 _DOT_NUMBER = re.compile(r"^[+-]?\d*\.\d+(?:[eE][+-]?\d+)?$")
@@ -148,6 +152,10 @@ class PreparedData:
         chosen column (target, inputs, order, group, split) that is missing in
         it. Only columns that caused drops are listed.
     notes : plain sentences about anything the user should know.
+    drop_reasons : per column of ``drop_counts``, how many of its rows were
+        ``'empty'`` (no value in the file) and how many ``'not a number'``
+        (a cell that could not be read as a number, e.g. ``1,204.50``).
+    drop_examples : per column, the first cell that was not a number.
     """
 
     X: np.ndarray
@@ -162,6 +170,8 @@ class PreparedData:
     rows_dropped: int
     drop_counts: dict[str, int]
     notes: list[str] = field(default_factory=list)
+    drop_reasons: dict[str, dict[str, int]] = field(default_factory=dict)
+    drop_examples: dict[str, str] = field(default_factory=dict)
 
     @property
     def n_rows(self) -> int:
@@ -592,6 +602,8 @@ def _build_columns(raw: pd.DataFrame, decimal: str, display: str
     ignored: list[str] = []
     reasons: dict[str, str] = {}
     notes: list[str] = []
+    unparsable: dict[str, list[int]] = {}
+    unparsable_first: dict[str, str] = {}
     for col in raw.columns:
         series = raw[col]
         values, present, parsed, kind = _classify_values(series, decimal)
@@ -614,7 +626,9 @@ def _build_columns(raw: pd.DataFrame, decimal: str, display: str
                     code="infinite", column=col, row=row)
             stray = np.flatnonzero(present & ~parsed)
             if stray.size:
+                unparsable[col] = [int(i) for i in stray]  # JSON-ready (shown frames carry attrs)
                 first = int(stray[0])
+                unparsable_first[col] = _short(series.iloc[first])
                 notes.append(
                     f"Column '{col}': {_plural(int(stray.size), 'cell was', 'cells were')} not "
                     f"a number and {'is' if stray.size == 1 else 'are'} treated as missing "
@@ -640,6 +654,9 @@ def _build_columns(raw: pd.DataFrame, decimal: str, display: str
             kept = kept.where(present)  # blank and missing-marker cells become missing
         out[col] = kept.reset_index(drop=True)
     frame = pd.DataFrame(out, index=pd.RangeIndex(len(raw)))
+    # which cells were set to missing because they were not numbers (row labels), so
+    # that `prepare` can say why it drops a row
+    frame.attrs[UNPARSABLE_ATTR] = {"rows": unparsable, "first": unparsable_first}
     if ignored:
         notes.append(f"{_plural(len(ignored), 'column')} without usable numbers "
                      f"ignored for modelling: {_plain_list(ignored)}.")
@@ -1088,6 +1105,58 @@ def _order_values(frame: pd.DataFrame, col: str, notes: list[str]) -> np.ndarray
     return seconds
 
 
+def _drop_reasons(frame: pd.DataFrame, chosen: list[Any], masks: dict[Any, np.ndarray]
+                  ) -> tuple[dict[str, dict[str, int]], dict[str, str]]:
+    """Split each column's dropped rows into 'empty' and 'not a number' (loading's record)."""
+    info = frame.attrs.get(UNPARSABLE_ATTR) or {}
+    bad_rows = info.get("rows", {}) if isinstance(info, dict) else {}
+    firsts = info.get("first", {}) if isinstance(info, dict) else {}
+    already = np.zeros(len(frame), dtype=bool)
+    reasons: dict[str, dict[str, int]] = {}
+    examples: dict[str, str] = {}
+    for col in chosen:
+        fresh = masks[col] & ~already
+        already |= masks[col]
+        if not fresh.any():
+            continue
+        labels = bad_rows.get(col)
+        bad = (frame.index.isin(labels) if labels is not None and len(labels)
+               else np.zeros(len(frame), dtype=bool))
+        n_bad = int((fresh & bad).sum())
+        reasons[str(col)] = {"empty": int(fresh.sum()) - n_bad, "not a number": n_bad}
+        if n_bad and col in firsts:
+            examples[str(col)] = str(firsts[col])
+    return reasons, examples
+
+
+def describe_drops(data: PreparedData) -> str:
+    """One sentence on the rows `prepare` dropped and why; ``''`` when none were.
+
+    Parameters
+    ----------
+    data : the result of `prepare`.
+
+    Returns
+    -------
+    str
+        e.g. ``"5 of 120 rows dropped: 3 with 'y' empty; 2 with 'y' not a number
+        (first: '1,204.50')."``
+    """
+    if not getattr(data, "rows_dropped", 0):
+        return ""
+    parts = []
+    for col, n in data.drop_counts.items():
+        why = data.drop_reasons.get(col) or {"empty": n}
+        if why.get("empty"):
+            parts.append(f"{why['empty']:,} with '{col}' empty")
+        if why.get("not a number"):
+            first = data.drop_examples.get(col)
+            parts.append(f"{why['not a number']:,} with '{col}' not a number"
+                         + (f" (first: '{first}')" if first else ""))
+    return (f"{data.rows_dropped:,} of {data.rows_in:,} rows dropped: "
+            f"{'; '.join(parts)}.")
+
+
 def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
             order_column: str | None = None, group_column: str | None = None,
             split_column: str | None = None) -> PreparedData:
@@ -1224,6 +1293,7 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
         already |= masks[col]
     keep = ~already
     rows_dropped = int(already.sum())
+    drop_reasons, drop_examples = _drop_reasons(frame, chosen, masks)
 
     if not keep.any():
         if rows_in == 0:
@@ -1270,4 +1340,5 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
     return PreparedData(
         X=X, y=y, inputs=tuple(str(c) for c in input_names), target=str(target), order=order,
         groups=groups, split=split, row_index=row_index, rows_in=rows_in,
-        rows_dropped=rows_dropped, drop_counts=drop_counts, notes=notes)
+        rows_dropped=rows_dropped, drop_counts=drop_counts, notes=notes,
+        drop_reasons=drop_reasons, drop_examples=drop_examples)

@@ -20,12 +20,10 @@ from __future__ import annotations
 import base64
 import datetime as _dt
 import hashlib
-import html
 import io
 import json
 import math
 import platform
-import re
 import zipfile
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
@@ -39,6 +37,7 @@ from .analysis import Analysis, DataLike, analyse, learning_curve
 from .compare import cell_label, fit_candidates
 from .errors import InputProblem
 from .final_fit import FinalModel
+from .markup import escape_name, escape_text
 from .recommend import Cell
 from .spec import SCHEME_HELP, SweepSpec
 
@@ -140,25 +139,18 @@ def write_csv(frame: pd.DataFrame, path: Path) -> Path:
     return path
 
 
-_MD_SPECIAL = re.compile(r"([\\`*_\[\]|~])")
-
-
 def md_escape(text: Any) -> str:
-    """Escape text for Markdown.
+    """Escape text (engine sentences, names) for Markdown: `engine.markup.escape_text`.
 
-    ``<``, ``>`` and ``&`` become HTML entities (no raw HTML reaches a
-    renderer); backslash, backtick, ``*``, ``_``, ``[``, ``]``, ``|`` and
-    ``~`` are backslash-escaped (no emphasis, code, links, table cells or
-    strike-through). The text is always placed after other text on its line,
+    No emphasis, code, links, bare links, maths, raw HTML, table cells or
+    strike-through. The text is always placed after other text on its line,
     so marks that count only at the start of a line need no escape.
     """
-    s = html.escape(str(text), quote=False)
-    s = s.replace("\r", " ").replace("\n", " ")
-    return _MD_SPECIAL.sub(r"\\\1", s)
+    return escape_text(text)
 
 
 def _h(text: Any) -> str:
-    return html.escape(str(text), quote=True)
+    return escape_name(text, "html")
 
 
 plain = json_ready   # JSON-ready values: NaN and inf become None
@@ -447,6 +439,7 @@ def _data_facts(data: DataLike, loaded: Any, source_name: str) -> dict:
         "rows_used": n,
         "rows_dropped": int(getattr(data, "rows_dropped", rows_in - n)),
         "drop_counts": dict(getattr(data, "drop_counts", {}) or {}),
+        "drop_reasons": dict(getattr(data, "drop_reasons", {}) or {}),
         "ignored_columns": list(getattr(rep, "ignored_columns", []) or []),
         "notes": list(getattr(rep, "notes", []) or []) + list(getattr(data, "notes", []) or []),
     }
@@ -560,18 +553,22 @@ def make_charts(analysis: Analysis, lc_table: pd.DataFrame, models: dict, data: 
 # ---------------------------------------------------------------------------
 # summary.md and summary.html
 # ---------------------------------------------------------------------------
-def _drop_words(facts: dict) -> str:
+def _drop_words(facts: dict, esc: Callable[[Any], str] = str) -> str:
+    """Rows dropped and why: empty cells apart from cells that were not numbers."""
     if not facts["rows_dropped"]:
         return "none"
-    parts = [f"{n} with a missing {c}" for c, n in facts["drop_counts"].items()]
+    parts = []
+    for c, n in facts["drop_counts"].items():
+        why = (facts.get("drop_reasons") or {}).get(c) or {"empty": n}
+        if why.get("empty"):
+            parts.append(f"{why['empty']} with {esc(c)} empty")
+        if why.get("not a number"):
+            parts.append(f"{why['not a number']} with {esc(c)} not a number")
     return f"{facts['rows_dropped']} ({'; '.join(parts)})" if parts else str(facts["rows_dropped"])
 
 
 def _drop_words_md(facts: dict) -> str:
-    if not facts["rows_dropped"]:
-        return "none"
-    parts = [f"{n} with a missing {md_escape(c)}" for c, n in facts["drop_counts"].items()]
-    return f"{facts['rows_dropped']} ({'; '.join(parts)})" if parts else str(facts["rows_dropped"])
+    return _drop_words(facts, escape_name)
 
 
 def _grid_words(s: dict) -> str:
@@ -612,7 +609,7 @@ def _input_range_words(s: dict, esc: Callable[[Any], str]) -> str:
 def render_markdown(s: dict) -> str:
     """``summary.md`` from the summary dict (user text Markdown-escaped)."""
     d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
-    tgt = md_escape(roles["target"])
+    tgt = escape_name(roles["target"])
     lines = [f"# Model choice for {tgt}", ""]
     lines += [f"**Recommended: {_headline(s)}.** Validation RMSE {_num(r['validation_rmse'])}; "
               f"MSE {_mse_words(r, 'one standard error')}; validation R² "
@@ -623,7 +620,7 @@ def render_markdown(s: dict) -> str:
               f"{_mse_words(b)}. "
               f"Rule: {md_escape(s['rule'])}.", ""]
     lines += ["## Data", "",
-              f"- File: {md_escape(d['file'])}",
+              f"- File: {escape_name(d['file'])}",
               f"- SHA-256: `{d['sha256'] or 'not from a file'}`",
               f"- Rows used: {d['rows_used']} of {d['rows_in']}; dropped: {_drop_words_md(d)}",
               f"- Target: {tgt}",
@@ -631,7 +628,7 @@ def render_markdown(s: dict) -> str:
     for key, label in (("order_column", "Order column"), ("group_column", "Group column"),
                        ("split_column", "Split column")):
         if roles.get(key):
-            lines.append(f"- {label}: {md_escape(roles[key])}")
+            lines.append(f"- {label}: {escape_name(roles[key])}")
     lines += [f"- Validation: {md_escape(s['validation']['description'])}",
               f"- Grid: {_grid_words(s)}", ""]
     lines += ["## Leading candidates", "",

@@ -237,3 +237,60 @@ def test_decimal_comma_upload_reads_with_the_option(repo_root):
     _no_failures(at)
     assert _recommended_heading(at)
     assert at.selectbox(key="target").value == "response_V"
+
+
+def _semicolon_file_with_some_decimal_commas() -> tuple[bytes, int]:
+    """40 rows; 4 values of the target are written with a decimal comma (2,5)."""
+    lines = ["load_kN;strain_um"]
+    commas = 0
+    for i in range(40):
+        y = 3 * i + 7
+        if i % 10 == 3:
+            lines.append(f"{i};{y},5")
+            commas += 1
+        else:
+            lines.append(f"{i};{y}")
+    return ("\n".join(lines) + "\n").encode(), commas
+
+
+def _rows_used(at) -> str:
+    import re
+    found = re.findall(r"([\d,]+) of ([\d,]+) rows used", _texts(at))
+    assert found, _texts(at)
+    return found[0][0]
+
+
+def test_decimal_mark_rereads_rows_across_sessions(repo_root):
+    # AppTest shares st.cache_data and the sweep store between sessions, as the server does
+    raw, commas = _semicolon_file_with_some_decimal_commas()
+    # reference: pandas reads the same bytes with each decimal mark
+    ref_point = pd.read_csv(io.BytesIO(raw), sep=";")
+    ref_comma = pd.read_csv(io.BytesIO(raw), sep=";", decimal=",")
+    n_point = int(pd.to_numeric(ref_point["strain_um"], errors="coerce").notna().sum())
+    n_comma = int(ref_comma["strain_um"].notna().sum())
+    assert (n_point, n_comma) == (40 - commas, 40)
+
+    first = _app(repo_root).run()
+    first.session_state["upload"] = ("strain.csv", raw)
+    first.run()
+    _no_failures(first)
+    assert _rows_used(first) == str(n_point)
+    warn = " ".join(w.value for w in first.warning)
+    assert f"{commas} with 'strain\\_um' not a number" in warn  # the real reason, not "missing"
+    first.checkbox(key="decimal_comma").check().run()
+    _no_failures(first)
+    assert _rows_used(first) == str(n_comma)  # re-read, not the cached point reading
+
+    # a second session with the same bytes, without ticking: the point reading again
+    second = _app(repo_root).run()
+    second.session_state["upload"] = ("strain.csv", raw)
+    second.run()
+    _no_failures(second)
+    assert _rows_used(second) == str(n_point)
+    second.checkbox(key="decimal_comma").check().run()
+    assert _rows_used(second) == str(n_comma)
+    second.checkbox(key="decimal_comma").uncheck().run()
+    assert _rows_used(second) == str(n_point)
+    # and the first session still sees its own choice
+    first.run()
+    assert _rows_used(first) == str(n_comma)

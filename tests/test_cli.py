@@ -232,3 +232,16 @@ def test_decimal_comma_files(recorded, tmp_path, capsys):
     code, _, err = _call(["run", str(path), "--target", "y", "--out", str(tmp_path / "p")],
                          capsys)
     assert code == 2 and "--decimal-comma" in err and "Traceback" not in err
+
+
+def test_dropped_rows_are_reported_on_the_command_line(recorded, tmp_path, capsys):
+    rows = ["x,y"] + [f"{i},{i * i}" for i in range(20)]
+    rows[3] = '2,"1,204.50"'
+    rows[9] = "8,"
+    path = tmp_path / "d.csv"
+    path.write_text("\n".join(rows) + "\n")
+    code, _, err = _call(["run", str(path), "--target", "y", "--out", str(tmp_path / "o")],
+                         capsys)
+    assert code == 0, err
+    assert ("2 of 20 rows dropped: 1 with 'y' empty; 1 with 'y' not a number "
+            "(first: '1,204.50')") in err

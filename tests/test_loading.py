@@ -14,7 +14,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from engine.errors import InputProblem
-from engine.loading import (DEFAULT_MAX_BYTES, ERROR_CODES, LoadedTable, LoadReport,
+from engine.loading import (DEFAULT_MAX_BYTES, ERROR_CODES, LoadedTable, LoadReport, describe_drops,
                             PreparedData, load_table, prepare)
 
 MALFORMED = Path(__file__).resolve().parent / "malformed"
@@ -568,3 +568,23 @@ def test_load_table_random_text_raises_only_input_problem(text, decimal):
         values = frame[col].to_numpy(dtype=float)
         assert not np.isinf(values).any()
     assert table.report.rows_read == len(frame) > 0
+
+
+def test_drops_say_empty_apart_from_not_a_number():
+    # "1,204.50" among plain numbers: a thousands separator, not a number to this reader
+    rows = ["x,y"] + [f"{i},{2 * i + 1}" for i in range(12)]
+    rows[4] = '3,"1,204.50"'
+    rows[6] = "5,"
+    rows[7] = "6,NA"
+    table = load_table(_csv("\n".join(rows) + "\n"), name="a.csv")
+    data = prepare(table.frame, "y", ["x"])
+    assert data.rows_dropped == 3 and data.drop_counts == {"y": 3}
+    assert data.drop_reasons == {"y": {"empty": 2, "not a number": 1}}
+    assert data.drop_examples == {"y": "1,204.50"}
+    text = describe_drops(data)
+    assert text == ("3 of 12 rows dropped: 2 with 'y' empty; 1 with 'y' not a number "
+                    "(first: '1,204.50').")
+    # a slice of the frame keeps the labels of the unparsable cells
+    part = prepare(table.frame.iloc[4:], "y", ["x"])
+    assert part.drop_reasons == {"y": {"empty": 2, "not a number": 0}}
+    assert describe_drops(prepare(table.frame.iloc[:3], "y", ["x"])) == ""
