@@ -5,8 +5,9 @@ from the user's file. Wherever they are shown in Markdown (the dashboard's
 text elements, ``summary.md``) or HTML (``summary.html``) they must read as
 the characters they are and nothing else:
 
-* Markdown marks (emphasis, code, links, images, tables, strike-through, raw
-  HTML, entities) are backslash-escaped (CommonMark lets any ASCII
+* ``&``, ``<`` and ``>`` become HTML entities (no raw HTML, no entity of the
+  user's); Markdown marks (emphasis, code, links, images, tables,
+  strike-through) are backslash-escaped (CommonMark lets any ASCII
   punctuation be escaped that way);
 * ``$`` is escaped so that ``$...$`` is not typeset as maths;
 * bare links are broken. GitHub-flavoured Markdown turns ``http://...``,
@@ -30,7 +31,7 @@ __all__ = ["WORD_JOINER", "escape_name", "escape_text", "plain_text"]
 #: Invisible, zero-width, no line break: placed to break link detection.
 WORD_JOINER = "\u2060"
 
-_MD_MARKS = re.compile(r"([\\`*_\[\]|~<>$&])")
+_MD_MARKS = re.compile(r"([\\`*_\[\]|~$])")
 _LINE_START = re.compile(r"^(\s*)([#+\-=>]|\d+[.)])")
 _CONTROLS = re.compile(r"[\x00-\x1f\x7f-\x9f\u2028\u2029]")
 _BIDI = re.compile(r"[\u202a-\u202e\u2066-\u2069\u200e\u200f\u061c]")
@@ -67,7 +68,7 @@ def escape_text(text: Any) -> str:
     str
         Markdown source that renders as the characters of ``text``.
     """
-    return _unlink(_MD_MARKS.sub(r"\\\1", plain_text(text)))
+    return _unlink(_MD_MARKS.sub(r"\\\1", html.escape(plain_text(text), quote=False)))
 
 
 def escape_name(name: Any, fmt: str = "markdown") -> str:

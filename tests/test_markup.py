@@ -8,6 +8,7 @@ for such names is checked in a real browser in tests/test_browser.py.
 """
 from __future__ import annotations
 
+import html
 import re
 
 import pytest
@@ -37,7 +38,7 @@ NASTY = [
 
 def _unescape(md: str) -> str:
     """Undo the escapes: CommonMark backslash escapes, then the invisible joiners."""
-    return re.sub(r"\\([!-/:-@\[-`{-~])", r"\1", md).replace(WORD_JOINER, "")
+    return html.unescape(re.sub(r"\\([!-/:-@\[-`{-~])", r"\1", md.replace(WORD_JOINER, "")))
 
 
 @pytest.mark.parametrize("name", NASTY)
@@ -50,8 +51,10 @@ def test_escaped_name_reads_back_as_the_same_characters(name):
 def test_no_mark_survives(name):
     out = escape_name(name)
     # every mark that changes meaning mid-line is preceded by a backslash
-    for ch in "[]`*_$<>|~&":
+    for ch in "[]`*_$|~":
         assert re.search(r"(?<!\\)" + re.escape(ch), out.replace("\\\\", "")) is None, (ch, out)
+    assert "<" not in out and ">" not in out  # raw HTML impossible
+    assert re.search(r"&(?!(amp|lt|gt);)", out) is None  # no entity of the user's
     # GFM extended autolinks need these literal sequences; none is left
     plain = out.replace("\\", "")
     for pattern in (r"https?://", r"(?i)www\.", r"[\w.+-]@[\w-]"):
