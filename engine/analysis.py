@@ -90,6 +90,7 @@ class Analysis:
     model_data: object | None = None
     model_spec: SweepSpec | None = None
     rows_left_out: int = 0
+    rankings: np.ndarray | None = None
 
     @property
     def target(self) -> str:
@@ -382,11 +383,12 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
         out = []
         for t, name in enumerate(spec.targets):
             one = replace(spec, target=name, extra_targets=())
-            a = _analyse_plain(ArrayData(data.X, Y[:, t], spec.inputs, name,
-                                         getattr(data, "groups", None), getattr(data, "split", None)),
-                               one, progress)
+            one_data = ArrayData(data.X, Y[:, t], spec.inputs, name,
+                                 getattr(data, "groups", None), getattr(data, "split", None))
+            a = _analyse_plain(one_data, one, progress)
             a.spec = spec
             a.validation = a.validation.assign(target=name)
+            a.model_data, a.model_spec = one_data, one
             out.append(a)
         return out
     groups = getattr(data, "groups", None)
@@ -402,52 +404,49 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
                         None if split is None else np.asarray(split)[kept])
         plan = plan_for(sub, spec.scheme, spec.seed)
         ladders = run_ladder(design, basis, plan, spec.targets, spec.inputs, orders,
-                             spec.penalties, spec.lags, spec.nested_inputs, progress)
+                             spec.penalties, spec.lags, spec.nested_inputs, progress=progress)
     except InputProblem:
         raise
     except (ValueError, np.linalg.LinAlgError, MemoryError) as exc:  # pragma: no cover
         raise InputProblem(f"The sweep could not be computed: {exc}", code="sweep_failed") from exc
     out = []
-    for t, lad in enumerate(ladders):
-        table = lad.validation_table()
-        rec = recommend(table, float(np.mean(lad.n_train)))
-        i = lad.rung_index(rec.recommended)
-        cols = _final_columns(design, basis, lad, i, t, spec)
+    for t, (res, info) in enumerate(ladders):
+        table = res.validation_table()
+        rec = recommend(table, float(np.mean(res.n_train)))
+        cols = _final_columns(design, basis, info, rec.recommended, t, spec)
         names = tuple(design.columns[c] for c in cols)
         mdata = ArrayData(design.X[:, cols], design.Y[:, t], names, spec.targets[t],
                           sub.groups, sub.split)
         mspec = replace(spec, target=spec.targets[t], inputs=names, lags=None,
                         nested_inputs=None, extra_targets=())
         mbasis = PolynomialBasis.fit(mdata.X, names, max(orders), spec.interactions)
-        notes = list(lad.notes) + list(lad.sweeps[i].notes)
-        out.append(Analysis(spec=spec, sweep=lad, validation=table, recommendation=rec,
-                            basis=mbasis, plan=plan, n_rows=int(design.X.shape[0]), notes=notes,
-                            model_data=mdata, model_spec=mspec,
-                            rows_left_out=int(design.rows_dropped)))
+        out.append(Analysis(spec=spec, sweep=res, validation=table, recommendation=rec,
+                            basis=mbasis, plan=plan, n_rows=int(design.X.shape[0]),
+                            notes=list(info.notes) + list(res.notes), model_data=mdata,
+                            model_spec=mspec, rows_left_out=int(design.rows_dropped),
+                            rankings=info.rankings))
     return out
 
 
-def _final_columns(design, basis, lad, i: int, t: int, spec: SweepSpec) -> np.ndarray:
-    """Columns of rung ``i`` for the final fit on all rows.
+def _final_columns(design, basis, info, cell, t: int, spec: SweepSpec) -> np.ndarray:
+    """Design columns of ``cell``'s rung for the final fit on all rows.
 
-    For ranked input sets the ranking is redone on all rows (the final model is
-    fitted on all rows anyway; the validation errors used per-split rankings).
+    For inputs ranked by the lasso path the ranking is redone on all rows (the
+    final model is fitted on all rows anyway; every validation error used the
+    ranking of its own split's training rows).
     """
-    rung = lad.rungs[i]
-    cols = lad.rung_columns[i][0]
-    if rung.inputs_used is None or lad.ranking_method != "lasso":
+    key = (cell.lags, cell.target_lags, cell.inputs_used)
+    cols = info.rung_columns[key][0]
+    if cell.inputs_used is None or info.ranking_method != "lasso":
         return cols
     from .ladder import rank_inputs_by_lasso
     from .moments import chunk_moments
     d = len(spec.inputs)
-    lin = np.array([int(np.flatnonzero((basis.terms.sum(axis=1) == 1) & (basis.terms[:, j] == 1))[0])
-                    for j in range(d)])
-    R = np.column_stack([design.X[:, :d], design.Y[:, t]])
-    n, mean, M = chunk_moments(R)
+    n, mean, M = chunk_moments(np.column_stack([design.X[:, :d], design.Y[:, t]]))
     ranking = rank_inputs_by_lasso(n, mean, M, np.arange(d))
-    use = np.isin(np.arange(d), ranking[:rung.inputs_used])
+    use = np.isin(np.arange(d), ranking[:cell.inputs_used])
     every = np.arange(len(design.columns))
-    if rung.lags is not None:
-        every = design.columns_for(rung.lags, rung.target_lags, t)
+    if cell.lags is not None:
+        every = design.columns_for(cell.lags, cell.target_lags, t)
     src = design.source[every]
     return every[(src < 0) | use[np.clip(src, 0, None)]]

@@ -279,19 +279,48 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     if plan.loo:
         return _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress,
                           plan.description)
-    S = plan.n_splits
-    res = _empty_result(term_sets, pen, families, S, plan.description)
     stats = []
     for r, rnd in enumerate(plan.rounds):
         stats.append(piece_statistics(basis, X, y, rnd.pieces, rnd.n_pieces))
         if progress:
             progress(0.8 * (r + 1) / len(plan.rounds), "Summarising rows")
+    return sweep_summaries(split_summaries(stats, plan), term_sets, A, a0, pen, families,
+                           plan.description, progress)
+
+
+def split_summaries(stats: list[Moments], plan: FoldPlan) -> tuple[np.ndarray, ...]:
+    """Training and validation summaries of every split from per-piece summaries.
+
+    ``stats[r]`` are the piece summaries of round ``r`` of ``plan``. Returns
+    ``(n_t, m_t, M_t, n_v, m_v, M_v)`` with one entry per split.
+    """
     tr = [combine_batch(stats[r], plan.rounds[r].train[[j for rr, j in plan.split_round if rr == r]])
           for r in range(len(plan.rounds))]
     va = [combine_batch(stats[r], plan.rounds[r].valid[[j for rr, j in plan.split_round if rr == r]])
           for r in range(len(plan.rounds))]
     n_t, m_t, M_t = (np.concatenate([t[i] for t in tr]) for i in range(3))
     n_v, m_v, M_v = (np.concatenate([v[i] for v in va]) for i in range(3))
+    return n_t, m_t, M_t, n_v, m_v, M_v
+
+
+def sweep_summaries(summaries: tuple[np.ndarray, ...], term_sets: list[TermSet], A: np.ndarray,
+                    a0: np.ndarray, pen: np.ndarray, families=RIDGE_ONLY, description: str = "",
+                    progress: Progress | None = None) -> SweepResult:
+    """Every (term set, setting, split) cell from the split summaries of the full design.
+
+    Parameters
+    ----------
+    summaries : ``(n_t, m_t, M_t, n_v, m_v, M_v)`` of `split_summaries`, the
+        target in the last column.
+    term_sets : index sets of the full design, one per rung.
+    A, a0 : the full design's raw map (`PolynomialBasis.raw_map`).
+    pen : penalties; families : (family, l1_ratio) pairs.
+    description : the plan's sentence.
+    """
+    n_t, m_t, M_t, n_v, m_v, M_v = summaries
+    S = n_t.shape[0]
+    families = tuple((str(f), float(r)) for f, r in families)
+    res = _empty_result(term_sets, pen, families, S, description)
     res.n_train[:], res.n_valid[:] = n_t, n_v
     for i, ts in enumerate(term_sets):
         train = TermSummary.select(n_t, m_t, M_t, ts.index)

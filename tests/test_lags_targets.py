@@ -101,8 +101,7 @@ def test_lag_cells_match_sklearn_on_shift_design(grouped_log, interactions):
     t = a.validation
     assert len(t) == 3 * 2 * 2 * len(pens)
     assert a.rows_left_out == 6
-    E = a.sweep.split_errors()
-    E = getattr(E, "errors", E)
+    E = a.sweep.validation_errors()
     base = pd.DataFrame({"x1": f["x1"], "x2": f["x2"], "a": f["a"]})
     for l in (1, 2):
         for c in ("x1", "x2", "a"):
@@ -137,8 +136,8 @@ def test_several_targets_equal_single_target_runs_bit_for_bit(grouped_log):
         grid = a.validation[single.validation.columns]
         pd.testing.assert_frame_equal(grid, single.validation, check_exact=True)
         assert (a.validation["target"] == t).all()
-        np.testing.assert_array_equal(a.sweep.sweeps[0].valid_mse, single.sweep.valid_mse)
-        np.testing.assert_array_equal(a.sweep.sweeps[0].coef_raw[2], single.sweep.coef_raw[2])
+        np.testing.assert_array_equal(a.sweep.valid_mse, single.sweep.valid_mse)
+        np.testing.assert_array_equal(a.sweep.coef_raw[2], single.sweep.coef_raw[2])
         assert a.recommendation.recommended.order == single.recommendation.recommended.order
         assert a.recommendation.recommended.penalty == single.recommendation.recommended.penalty
 
@@ -195,14 +194,13 @@ def test_inputs_ranked_inside_each_split_by_lasso_entry(channels):
         _, _, coefs = lars_path(Z, y[tr] - y[tr].mean(), method="lasso")
         nz = np.abs(coefs) > 0
         first = np.where(nz.any(axis=1), nz.argmax(axis=1), coefs.shape[1] + 1)
-        np.testing.assert_array_equal(a.sweep.rankings[s], np.argsort(first, kind="stable"))
+        np.testing.assert_array_equal(a.rankings[s], np.argsort(first, kind="stable"))
     # each cell's split errors equal a refit on that split's first k ranked inputs
-    E = a.sweep.split_errors()
-    E = getattr(E, "errors", E)
+    E = a.sweep.validation_errors()
     for row_i, row in a.validation.iterrows():
         k = int(row["inputs_used"])
         for s, (tr, va) in enumerate(zip(a.plan.train_sets, a.plan.valid_sets)):
-            cols = a.sweep.rankings[s][:k]
+            cols = a.rankings[s][:k]
             m = LinearRegression().fit(X[tr][:, cols], y[tr])
             ref = np.mean((m.predict(X[va][:, cols]) - y[va]) ** 2)
             assert E[row_i, s] == pytest.approx(ref, rel=1e-8)
