@@ -33,8 +33,13 @@ from engine import (SCHEME_HELP, InputProblem, SchemeSpec, SweepSpec, analyse,
                     default_penalties, learning_curve)
 from engine import charts as C
 from engine.compare import fit_candidates
+from engine.labels import (CHARTS, SCHEME_NAMES, SCHEMES_WITH_FOLDS, TABLES, column_header,
+                           human_headers, option_label, penalty_text)
 from engine.loading import DEFAULT_MAX_BYTES, describe_drops, load_table, prepare
 from engine.markup import escape_text
+from engine.spec import (DEFAULT_FOLDS, DEFAULT_GAP, DEFAULT_HOLDOUT_FRACTION, DEFAULT_MAX_ORDER,
+                         DEFAULT_PENALTY_COUNT, DEFAULT_PENALTY_HIGH, DEFAULT_PENALTY_LOW,
+                         DEFAULT_REPEATS, DEFAULT_SEED)
 
 HERE = Path(__file__).resolve().parent
 DEMO_DIR = HERE / "demo_data"
@@ -56,17 +61,17 @@ class Preset:
     group_column: str | None = None
     split_column: str | None = None
     scheme: str = "kfold"
-    folds: int = 5
-    repeats: int = 3
-    gap: int = 0
-    holdout_fraction: float = 0.2
-    max_order: int = 4
+    folds: int = DEFAULT_FOLDS
+    repeats: int = DEFAULT_REPEATS
+    gap: int = DEFAULT_GAP
+    holdout_fraction: float = DEFAULT_HOLDOUT_FRACTION
+    max_order: int = DEFAULT_MAX_ORDER
     interactions: bool = False
-    pen_low: float = 1e-4
-    pen_high: float = 1e3
-    pen_count: int = 15
+    pen_low: float = DEFAULT_PENALTY_LOW
+    pen_high: float = DEFAULT_PENALTY_HIGH
+    pen_count: int = DEFAULT_PENALTY_COUNT
     pen_zero: bool = True
-    seed: int = 0
+    seed: int = DEFAULT_SEED
 
 
 @dataclass(frozen=True)
@@ -95,15 +100,6 @@ DEMOS: dict[str, Demo] = {
         Preset(target="analyte_mg_L", all_inputs=True, scheme="kfold", folds=5, max_order=1)),
 }
 
-SCHEME_NAMES = {
-    "kfold": "Shuffled folds",
-    "repeated": "Shuffled folds, repeated",
-    "loo": "Leave-one-out",
-    "blocked": "Time blocks with a gap",
-    "grouped": "Whole groups held out",
-    "holdout": "Later period held out",
-    "column": "My own split column",
-}
 PENALTY_STEPS = [10.0 ** k for k in range(-8, 7)]
 NONE = "(none)"
 VIEW_KEYS = ("view_penalty", "lc_order", "lc_penalty", "cmp_orders", "cmp_penalty",
@@ -318,7 +314,7 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
     keep("target", numeric[-1])
     if ss["target"] not in numeric:
         ss["target"] = numeric[-1]
-    target = st.sidebar.selectbox("Target: the column to predict", numeric, key="target")
+    target = st.sidebar.selectbox(option_label("target"), numeric, key="target")
     others = [c for c in numeric if c != target]
     keep("all_inputs", False)
     all_inputs = st.sidebar.checkbox(f"Use every other numeric column as an input",
@@ -354,25 +350,25 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
 
     st.sidebar.subheader("3 · Validation")
     keep("scheme", "kfold")
-    scheme = st.sidebar.selectbox("How to hold data out", list(SCHEME_NAMES),
+    scheme = st.sidebar.selectbox(option_label("scheme"), list(SCHEME_NAMES),
                                   format_func=SCHEME_NAMES.get, key="scheme")
     st.sidebar.caption(SCHEME_HELP[scheme])
     folds = repeats = gap = None
     frac = 0.2
     if scheme in ("kfold", "repeated", "blocked", "grouped"):
         keep("folds", 5)
-        folds = st.sidebar.number_input("Folds", min_value=2, max_value=100, step=1, key="folds")
+        folds = st.sidebar.number_input(option_label("folds"), min_value=2, max_value=100, step=1, key="folds")
     if scheme == "repeated":
         keep("repeats", 3)
-        repeats = st.sidebar.number_input("Repeats", min_value=1, max_value=50, step=1,
+        repeats = st.sidebar.number_input(option_label("repeats"), min_value=1, max_value=50, step=1,
                                           key="repeats")
     if scheme == "blocked":
         keep("gap", 0)
-        gap = st.sidebar.number_input("Gap (rows left out on each side of a block)",
+        gap = st.sidebar.number_input(option_label("gap"),
                                       min_value=0, max_value=100000, step=1, key="gap")
     if scheme == "holdout":
         keep("holdout_fraction", 0.2)
-        frac = st.sidebar.slider("Share of rows held out at the end", 0.05, 0.5, step=0.05,
+        frac = st.sidebar.slider(option_label("holdout_fraction"), 0.05, 0.5, step=0.05,
                                  key="holdout_fraction")
     if scheme in ("blocked", "holdout") and order_col == NONE:
         st.sidebar.caption("No order column chosen: the row order of the file is used.")
@@ -383,22 +379,21 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
 
     st.sidebar.subheader("4 · Models")
     keep("max_order", 4)
-    max_order = st.sidebar.number_input("Highest polynomial order", min_value=0, max_value=30,
+    max_order = st.sidebar.number_input(option_label("max_order"), min_value=0, max_value=30,
                                         step=1, key="max_order")
     keep("interactions", False)
-    interactions = st.sidebar.checkbox("Products of inputs (interactions)", key="interactions")
+    interactions = st.sidebar.checkbox(option_label("interactions"), key="interactions")
     preset = ss.get("_preset", Preset())
-    pen_range = st.sidebar.select_slider("Ridge penalty range", PENALTY_STEPS,
+    pen_range = st.sidebar.select_slider(option_label("penalties"), PENALTY_STEPS,
                                          value=(preset.pen_low, preset.pen_high),
-                                         format_func=lambda v: f"{v:.0e}".replace("e-0", "e-")
-                                         .replace("e+0", "e"), key="pen_range")
+                                         format_func=penalty_text, key="pen_range")
     keep("pen_count", 15)
     pen_count = st.sidebar.number_input("Penalties in the range (log-spaced)", min_value=1,
                                         max_value=60, step=1, key="pen_count")
     keep("pen_zero", True)
     pen_zero = st.sidebar.checkbox("Also fit without a penalty", key="pen_zero")
     keep("seed", 0)
-    seed = st.sidebar.number_input("Seed for the shuffles", min_value=0, max_value=2**31 - 1,
+    seed = st.sidebar.number_input(option_label("seed"), min_value=0, max_value=2**31 - 1,
                                    step=1, key="seed")
 
     order_c = None if order_col == NONE else order_col
@@ -437,7 +432,8 @@ def downloads_row():
     return st.container(horizontal=True, gap="small")
 
 
-def table_download(frame: pd.DataFrame, stem: str, what: str) -> None:
+def table_download(frame: pd.DataFrame, stem: str, what: str | None = None) -> None:
+    what = what or TABLES[stem]
     st.download_button(f"{what} (CSV)", data=lambda: _csv_safe(frame).to_csv(index=False),
                        file_name=f"{stem}.csv", mime="text/csv", key=f"csv_{stem}",
                        icon=":material/table:", on_click="ignore")
@@ -452,9 +448,13 @@ def roomy(chart, width: int = 760, height: int = 380):
     return chart
 
 
-def chart_block(chart, stem: str, what: str,
-                tables: list[tuple[pd.DataFrame, str, str]] = ()) -> None:
-    """A chart with its PNG and SVG downloads (rendered only when clicked) and table CSVs."""
+def chart_block(chart, stem: str, tables: list[tuple[pd.DataFrame, str]] = ()) -> None:
+    """A chart with its PNG and SVG downloads (rendered only when clicked) and table CSVs.
+
+    ``stem`` is a key of `engine.labels.CHARTS` (the pack's file names are the
+    same); tables are ``(frame, stem)`` with stems from `engine.labels.TABLES`.
+    """
+    what = CHARTS[stem]
     st.altair_chart(chart, theme=None, width="content")
     with downloads_row():
         st.download_button(f"{what} (PNG)", data=lambda: C.chart_to_png(chart),
@@ -463,8 +463,8 @@ def chart_block(chart, stem: str, what: str,
         st.download_button(f"{what} (SVG)", data=lambda: C.chart_to_svg(chart),
                            file_name=f"{stem}.svg", mime="image/svg+xml", key=f"svg_{stem}",
                            icon=":material/draw:", on_click="ignore")
-        for frame, tstem, twhat in tables:
-            table_download(frame, tstem, twhat)
+        for frame, tstem in tables:
+            table_download(frame, tstem)
 
 
 def choose(label: str, options: list, default: Any, key: str, *, slider: bool = False,
@@ -687,8 +687,8 @@ def warnings_panel(pending: Future) -> None:
             summary = getattr(report, "tables", {}).get("summary")
             if isinstance(summary, pd.DataFrame) and not summary.empty:
                 if st.toggle("Show every check, fired or not", key="show_all_checks"):
-                    st.dataframe(summary, hide_index=True)
-                    table_download(summary, "checks", "Checks table")
+                    st.dataframe(human_headers(summary), hide_index=True)
+                    table_download(summary, "checks")
 
 
 def trust_panel(data, analysis, run_key: str = "") -> None:
@@ -727,8 +727,8 @@ def trust_panel(data, analysis, run_key: str = "") -> None:
                 f"estimate {nested.inner_mse:.4g} (ratio {nested.ratio:.2f}; about 1 when "
                 "the sweep's estimate holds).")
             st.caption(md(" ".join([nested.description] + list(nested.notes))))
-            st.dataframe(nested.per_fold, hide_index=True)
-            table_download(nested.per_fold, "nested_cv", "Nested cross-validation")
+            st.dataframe(human_headers(nested.per_fold), hide_index=True)
+            table_download(nested.per_fold, "nested_cv")
         if stab is not None:
             rec = analysis.recommendation.recommended
             t = stab.table
@@ -738,8 +738,8 @@ def trust_panel(data, analysis, run_key: str = "") -> None:
                         f"repetitions). The recommended cell was chosen in {share:.0%} of them.")
             if stab.notes:
                 st.caption(md(" ".join(stab.notes)))
-            st.dataframe(t, hide_index=True)
-            table_download(stab.chosen, "selection_stability", "Choices per repetition")
+            st.dataframe(human_headers(t), hide_index=True)
+            table_download(stab.chosen, "selection_stability")
 
 
 def pack_panel(loaded, source_name: str, data, analysis, spec: SweepSpec,
@@ -797,8 +797,7 @@ def tab_validation(analysis, target: str) -> None:
                           format_func={"mse": "MSE", "rmse": "RMSE"}.get)
     chart = roomy(C.validation_curve_chart(analysis.validation, pen, rec.best, rec.recommended,
                                            target, metric))
-    chart_block(chart, "validation_curve", "Validation curve",
-                [(analysis.validation, "validation_grid", "Validation table, every cell")])
+    chart_block(chart, "validation_curve", [(analysis.validation, "validation_grid")])
     if analysis.notes:
         st.caption(md(" ".join(analysis.notes)))
 
@@ -806,8 +805,8 @@ def tab_validation(analysis, target: str) -> None:
 def tab_heatmap(analysis, target: str) -> None:
     rec = analysis.recommendation
     chart = C.heatmap_chart(analysis.validation, rec.best, rec.recommended, target)
-    chart_block(chart, "heat_map", "Heat map",
-                [(analysis.sweep.fold_table(), "validation_per_split", "Errors per split")])
+    chart_block(chart, "order_penalty_heatmap",
+                [(analysis.sweep.fold_table(), "validation_per_split")])
 
 
 def tab_learning(analysis_key: str, data, analysis, target: str) -> None:
@@ -824,8 +823,7 @@ def tab_learning(analysis_key: str, data, analysis, target: str) -> None:
     cells = learning_cells(analysis)  # the recommended cell and the two choices above
     lc = learning_job(analysis_key, data, analysis, cells).result()
     chart = C.learning_curve_chart(lc.table, cells, target, note=lc.note)
-    chart_block(chart, "learning_curve", "Learning curve",
-                [(lc.table, "learning_curve", "Learning-curve table")])
+    chart_block(chart, "learning_curve", [(lc.table, "learning_curve")])
 
 
 def default_compare_orders(analysis) -> list[int]:
@@ -862,7 +860,7 @@ def tab_compare(analysis_key: str, data, analysis, target: str) -> list[int]:
     models = wait_for(start_fits(analysis_key, data, analysis, cells),
                       "Fitting the chosen orders on all rows…")
     chart = roomy(C.comparison_chart(data, models, target), 800, 420)
-    chart_block(chart, "side_by_side", "Side by side")
+    chart_block(chart, "order_comparison")
     st.caption("Fitted on all rows and drawn in-sample: a model that reproduces every row "
                "here can still fail on rows it never saw; the validation curve is the judge.")
     rows = []
@@ -872,10 +870,11 @@ def tab_compare(analysis_key: str, data, analysis, target: str) -> list[int]:
                      "effective_df": m.effective_df, "condition_number": m.condition_number})
     summary = pd.DataFrame(rows)
     shown = summary.assign(condition_number=[f"{v:.3g}" for v in summary["condition_number"]])
-    st.dataframe(shown, hide_index=True, column_config={
-        c: st.column_config.NumberColumn(format="%.4g") for c in
-        ("penalty", "r2_on_training_rows", "residual_sd", "effective_df")})
-    table_download(summary, "side_by_side_fits", "Fit summary")
+    shown = shown.assign(penalty=[penalty_text(v) for v in shown["penalty"]])
+    st.dataframe(human_headers(shown), hide_index=True, column_config={
+        column_header(c): st.column_config.NumberColumn(format="%.4g") for c in
+        ("r2_on_training_rows", "residual_sd", "effective_df")})
+    table_download(summary, "side_by_side_fits")
     return [int(q) for q in sorted(picked)]
 
 
@@ -892,15 +891,15 @@ def tab_coefficients(analysis, target: str) -> None:
     coef = analysis.sweep.coefficient_table()
     view = C.coefficient_view(coef, q, a)
     chart = C.coefficient_chart(coef, q, a, target=target)
-    chart_block(chart, "coefficients", "Coefficient chart")
+    chart_block(chart, "coefficient_magnitudes")
     st.caption(f"Standardised: change in {md(target)} for one standard deviation of the term, "
                "averaged over the validation splits. Steep: more than "
                f"{C.STEEP_RATIO:g} times the median magnitude of the other terms, in cells "
                f"with {C.STEEP_MIN_TERMS} or more terms.")
-    st.dataframe(view, hide_index=True, column_config={
-        c: st.column_config.NumberColumn(format="%.4g") for c in
+    st.dataframe(human_headers(view), hide_index=True, column_config={
+        column_header(c): st.column_config.NumberColumn(format="%.4g") for c in
         ("std_mean", "std_sd", "raw_mean", "raw_sd", "magnitude", "ratio_to_median")})
-    table_download(view, "coefficients_cell", "Coefficients of this cell")
+    table_download(view, "coefficients_cell")
 
 
 def tab_data(loaded, data) -> None:
@@ -1047,8 +1046,9 @@ def main() -> None:
     pending = guarded("starting the checks", start_checks, analysis_key, data, analysis)
     warn_slot = st.container()
     guarded("checking the choice", trust_panel, data, analysis, analysis_key)
-    tabs = st.tabs(["Validation curve", "Order × penalty", "Learning curve", "Side by side",
-                    "Coefficients", "Data"])
+    tabs = st.tabs([CHARTS["validation_curve"], CHARTS["order_penalty_heatmap"],
+                    CHARTS["learning_curve"], CHARTS["order_comparison"],
+                    CHARTS["coefficient_magnitudes"], "Data"])
     with tabs[0]:
         guarded("drawing the validation curve", tab_validation, analysis, target)
     with tabs[1]:

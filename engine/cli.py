@@ -20,10 +20,13 @@ from pathlib import Path
 from typing import Sequence
 
 from .errors import InputProblem
-from .spec import SCHEME_HELP, SCHEMES, SchemeSpec, SweepSpec, default_penalties
+from .spec import (DEFAULT_FOLDS, DEFAULT_GAP, DEFAULT_HOLDOUT_FRACTION, DEFAULT_MAX_ORDER,
+                   DEFAULT_PENALTY_COUNT, DEFAULT_PENALTY_HIGH, DEFAULT_PENALTY_LOW,
+                   DEFAULT_REPEATS, DEFAULT_SEED, SCHEME_HELP, SCHEMES, SchemeSpec, SweepSpec,
+                   default_penalties)
 
 PROG = "fitladder"
-DEFAULT_PENALTY_RANGE = (1e-4, 1e3, 15)
+DEFAULT_PENALTY_RANGE = (DEFAULT_PENALTY_LOW, DEFAULT_PENALTY_HIGH, DEFAULT_PENALTY_COUNT)
 
 EXIT_OK, EXIT_INTERNAL, EXIT_BAD_INPUT = 0, 1, 2
 
@@ -129,7 +132,7 @@ def _fraction(text: str) -> float:
 # parser
 # ---------------------------------------------------------------------------
 def _scheme_help() -> str:
-    return " ".join(f"{k}: {v}" for k, v in SCHEME_HELP.items())
+    return " ".join(f"{k} ({v})" for k, v in SCHEME_HELP.items())
 
 
 class _HelpFormatter(argparse.HelpFormatter):
@@ -178,16 +181,16 @@ def build_parser() -> argparse.ArgumentParser:
                      help="column of your own fold labels for --scheme column")
     run.add_argument("--scheme", choices=SCHEMES, default="kfold",
                      help="validation scheme. " + _scheme_help())
-    run.add_argument("--folds", type=_positive_int, default=5, metavar="K",
+    run.add_argument("--folds", type=_positive_int, default=DEFAULT_FOLDS, metavar="K",
                      help="number of folds (kfold, repeated, blocked, grouped)")
-    run.add_argument("--repeats", type=_positive_int, default=3, metavar="R",
+    run.add_argument("--repeats", type=_positive_int, default=DEFAULT_REPEATS, metavar="R",
                      help="repetitions of the shuffled folds (repeated)")
-    run.add_argument("--gap", type=_count, default=0, metavar="G",
+    run.add_argument("--gap", type=_count, default=DEFAULT_GAP, metavar="G",
                      help="rows left out of training on each side of a held-out block (blocked)")
-    run.add_argument("--holdout-fraction", type=_fraction, default=0.2, metavar="F",
+    run.add_argument("--holdout-fraction", type=_fraction, default=DEFAULT_HOLDOUT_FRACTION, metavar="F",
                      help="share of rows, at the end of the order, held out (holdout)")
     orders = run.add_mutually_exclusive_group()
-    orders.add_argument("--max-order", type=_count, default=6, metavar="N",
+    orders.add_argument("--max-order", type=_count, default=DEFAULT_MAX_ORDER, metavar="N",
                         help="sweep orders 0..N (0 = intercept only, 1 = straight line)")
     orders.add_argument("--orders", type=parse_orders, default=None, metavar="1,2,5",
                         help="sweep only these orders instead of 0..--max-order")
@@ -200,8 +203,8 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--penalty-range", type=parse_penalty_range, default=None,
                      metavar="LO:HI:COUNT",
                      help="log-spaced ridge grid used with --penalties ridge "
-                          "(default 1e-4:1e3:15)")
-    run.add_argument("--seed", type=int, default=0, metavar="S",
+                          f"(default {DEFAULT_PENALTY_LOW:g}:{DEFAULT_PENALTY_HIGH:g}:{DEFAULT_PENALTY_COUNT})")
+    run.add_argument("--seed", type=int, default=DEFAULT_SEED, metavar="S",
                      help="seed for every shuffle")
     run.add_argument("--decimal-comma", action="store_true",
                      help="numbers in the file use a decimal comma (3,14); the delimiter must "

@@ -39,6 +39,8 @@ from .errors import InputProblem
 from .final_fit import FinalModel
 from .markup import escape_name, escape_text
 from .recommend import Cell
+from .labels import (CHARTS, number_text, penalty_text, penalty_words, scheme_name,
+                     severity_rank)
 from .spec import SCHEME_HELP, SweepSpec
 
 Progress = Callable[[float, str], None]
@@ -47,14 +49,8 @@ Progress = Callable[[float, str], None]
 SUMMARY_FORMAT = "fitladder-summary/1"
 RECORD_FORMAT = "fitladder-record/1"
 
-#: Chart files (stem -> title), each written as PNG and SVG.
-CHART_FILES = {
-    "validation_curve": "Validation curve",
-    "order_penalty_heatmap": "Order x penalty heat map",
-    "learning_curve": "Learning curve",
-    "order_comparison": "Orders side by side",
-    "coefficient_magnitudes": "Coefficient magnitudes",
-}
+#: Chart files (stem -> title), each written as PNG and SVG; the page uses the same.
+CHART_FILES = dict(CHARTS)
 
 #: Every file a pack holds, in the order they are listed and zipped.
 PACK_FILES = (
@@ -164,22 +160,9 @@ def dump_json(obj: Any) -> str:
 # ---------------------------------------------------------------------------
 # numbers in words
 # ---------------------------------------------------------------------------
-def _num(x: Any, digits: int = 4) -> str:
-    try:
-        f = float(x)
-    except (TypeError, ValueError):
-        return "n/a"
-    if not math.isfinite(f):
-        return "n/a"
-    return f"{f:.{digits}g}"
-
-
-def _penalty_words(p: float) -> str:
-    return "no penalty" if float(p) == 0 else f"ridge penalty {float(p):.3g}"
-
-
-def _penalty_short(p: float) -> str:
-    return "none" if float(p) == 0 else f"{float(p):.3g}"
+_num = number_text
+_penalty_words = penalty_words
+_penalty_short = penalty_text
 
 
 # ---------------------------------------------------------------------------
@@ -458,7 +441,8 @@ def summary_dict(analysis: Analysis, model: FinalModel, data_facts: dict, roles:
         "format": SUMMARY_FORMAT,
         "data": data_facts,
         "roles": roles,
-        "validation": {"scheme": spec.scheme.kind, "description": analysis.plan.description,
+        "validation": {"scheme": spec.scheme.kind, "scheme_name": scheme_name(spec.scheme.kind),
+                       "description": analysis.plan.description,
                        "splits": int(analysis.plan.n_splits),
                        "settings": asdict(spec.scheme),
                        "when_to_use": SCHEME_HELP.get(spec.scheme.kind, "")},

@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from sklearn.model_selection import GroupKFold, KFold
 
+from .labels import scheme_name
 from .errors import InputProblem
 from .spec import SchemeSpec
 
@@ -156,7 +157,7 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
                            "train and validate a model.", code="too_few_rows")
     if kind == "loo":
         return FoldPlan("loo", n, loo=True,
-                        description=f"Leave-one-out over {n} rows (exact, from one fit per model).")
+                        description=f"{scheme_name('loo')}: each of {n} rows held out once (exact, from one fit per model).")
 
     if kind in ("kfold", "repeated", "blocked") and n < k:
         raise InputProblem(f"{k} folds need at least {k} rows; the data have {n}. "
@@ -167,8 +168,8 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
         r = 1 if kind == "kfold" else int(scheme.repeats)
         rs = np.random.RandomState(seed)
         plan = FoldPlan(kind, n, description=(
-            f"Shuffled {k}-fold cross-validation (seed {seed})." if r == 1 else
-            f"Shuffled {k}-fold cross-validation repeated {r} times (seed {seed})."))
+            f"{scheme_name(kind)}: {k} folds dealt at random (seed {seed})." if r == 1 else
+            f"{scheme_name(kind)}: {k} folds dealt at random, {r} times (seed {seed})."))
         for i in range(r):
             labels = _shuffled_fold_labels(n, k, rs)
             counts = np.bincount(labels, minlength=k)
@@ -185,7 +186,7 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
             tr_list.append(idx[keep])
             va_list.append(va)
         rounds_sets.append((tr_list, va_list))
-        desc = (f"{k} contiguous blocks in time order, {g} rows dropped from training on "
+        desc = (f"{scheme_name(kind)}: {k} contiguous blocks in time order, {g} rows dropped from training on "
                 "each side of the held-out block.")
     elif kind == "grouped":
         if groups is None:
@@ -197,13 +198,13 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
                                code="too_few_groups", column=scheme.group_column)
         sp = list(GroupKFold(n_splits=k).split(idx, groups=g_codes))
         rounds_sets.append(([np.sort(a) for a, _ in sp], [np.sort(b) for _, b in sp]))
-        desc = f"Grouped {k}-fold: each of {g_uniq} groups held out whole."
+        desc = f"{scheme_name(kind)}: {k} folds; each of {g_uniq} groups held out whole."
     elif kind == "holdout":
         f = float(scheme.holdout_fraction)
         n_test = int(round(n * f))
         n_test = min(max(n_test, 1), n - MIN_TRAIN_ROWS)
         rounds_sets.append(([idx[:n - n_test]], [idx[n - n_test:]]))
-        desc = (f"Later-period holdout: trained on the first {n - n_test} rows in time order, "
+        desc = (f"{scheme_name(kind)}: trained on the first {n - n_test} rows in time order, "
                 f"tested on the last {n_test}.")
     elif kind == "column":
         if split_labels is None:
@@ -216,7 +217,7 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
             tr = idx[np.isin(text, list(train_words))]
             va = idx[np.isin(text, list(test_words))]
             rounds_sets.append(([tr], [va]))
-            desc = f"Your split column: {len(tr)} training rows, {len(va)} test rows."
+            desc = f"{scheme_name(kind)}: {len(tr)} training rows, {len(va)} test rows."
         else:
             codes, nu = label_codes(labels)
             if nu < 2:
@@ -226,7 +227,7 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
             tr_l = [idx[codes != c] for c in range(nu)]
             va_l = [idx[codes == c] for c in range(nu)]
             rounds_sets.append((tr_l, va_l))
-            desc = f"Your split column: {nu} folds, one per distinct value."
+            desc = f"{scheme_name(kind)}: {nu} folds, one per distinct value."
     else:  # pragma: no cover - validate() rejects it
         raise InputProblem(f"Unknown scheme {kind}.", code="bad_scheme")
 

@@ -8,28 +8,23 @@ import numpy as np
 
 from .errors import InputProblem
 from .lagged import LagSpec
+from .labels import scheme_help
 
 SCHEMES = ("kfold", "repeated", "loo", "blocked", "grouped", "holdout", "column")
 
-SCHEME_HELP = {
-    "kfold": "Shuffled k-fold: rows are dealt at random into k folds. Fits rows "
-             "that are independent of each other, with no order in time.",
-    "repeated": "Repeated k-fold: shuffled k-fold run several times with fresh "
-                "shuffles; steadier error estimates for small tables of independent rows.",
-    "loo": "Leave-one-out: every row is held out once (exact, no refits). For "
-           "small tables of independent rows.",
-    "blocked": "Blocked folds: contiguous blocks along the order/time column, with "
-               "a gap of rows dropped from training on each side of the held-out "
-               "block. Use it when neighbouring rows resemble each other (time series, "
-               "sensor logs): shuffling such rows flatters the model.",
-    "grouped": "Grouped k-fold: all rows of a group (batch, subject, site) stay in "
-               "the same fold, so the model is judged on groups it never saw.",
-    "holdout": "Later-period holdout: train on the first part along the order/time "
-               "column and test on the rest: the honest check when the future may "
-               "differ from the past.",
-    "column": "Your own split column: each distinct value is one held-out fold, or "
-              "values train/test (or train/validation) give one split.",
-}
+#: Help sentence of each scheme, beginning with its one human name (`engine.labels`).
+SCHEME_HELP = {k: scheme_help(k) for k in SCHEMES}
+
+#: Defaults shared by the page and the command line.
+DEFAULT_MAX_ORDER = 4
+DEFAULT_FOLDS = 5
+DEFAULT_REPEATS = 3
+DEFAULT_GAP = 0
+DEFAULT_HOLDOUT_FRACTION = 0.2
+DEFAULT_PENALTY_LOW = 1e-4
+DEFAULT_PENALTY_HIGH = 1e3
+DEFAULT_PENALTY_COUNT = 15
+DEFAULT_SEED = 0
 
 
 @dataclass(frozen=True)
@@ -50,10 +45,10 @@ class SchemeSpec:
     """
 
     kind: str = "kfold"
-    folds: int = 5
-    repeats: int = 3
-    gap: int = 0
-    holdout_fraction: float = 0.2
+    folds: int = DEFAULT_FOLDS
+    repeats: int = DEFAULT_REPEATS
+    gap: int = DEFAULT_GAP
+    holdout_fraction: float = DEFAULT_HOLDOUT_FRACTION
     order_column: str | None = None
     group_column: str | None = None
     split_column: str | None = None
@@ -84,7 +79,8 @@ class SchemeSpec:
                                "holds the fold labels.", code="bad_scheme")
 
 
-def default_penalties(low: float = 1e-4, high: float = 1e3, count: int = 15,
+def default_penalties(low: float = DEFAULT_PENALTY_LOW, high: float = DEFAULT_PENALTY_HIGH,
+                      count: int = DEFAULT_PENALTY_COUNT,
                       include_zero: bool = True) -> tuple[float, ...]:
     """Log-spaced ridge penalties from ``low`` to ``high``, with 0 first if asked."""
     if count < 1:
@@ -126,12 +122,12 @@ class SweepSpec:
 
     target: str
     inputs: tuple[str, ...]
-    max_order: int = 6
+    max_order: int = DEFAULT_MAX_ORDER
     orders: tuple[int, ...] | None = None
     interactions: bool = False
     penalties: tuple[float, ...] = field(default_factory=default_penalties)
     scheme: SchemeSpec = field(default_factory=SchemeSpec)
-    seed: int = 0
+    seed: int = DEFAULT_SEED
     learning_sizes: tuple[float, ...] = (0.1, 0.325, 0.55, 0.775, 1.0)
     lags: LagSpec | None = None
     nested_inputs: str | None = None

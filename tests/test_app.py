@@ -12,7 +12,9 @@ from streamlit.testing.v1 import AppTest
 
 from engine import SchemeSpec, SweepSpec, analyse, default_penalties
 from engine import charts as C
+from engine.labels import CHARTS, TABLES
 from engine.loading import load_table, prepare
+from engine.pack import CHART_FILES
 
 TIMEOUT = 60
 
@@ -82,7 +84,7 @@ def test_changing_the_scheme_updates_the_recommendation(repo_root, demo_dir):
                                       SchemeSpec("kfold", folds=5, order_column="minute"), 3,
                                       "minute")
     assert _recommended_heading(at) == C.cell_text(shuffled.order, shuffled.penalty)
-    assert "Shuffled 5-fold" in _texts(at)
+    assert "Shuffled folds: 5 folds" in _texts(at)
     # shuffled folds flatter this serially dependent log (demo_data/README.md)
     assert shuffled.validation_mse < blocked.validation_mse
     rmse = [m.value for m in at.metric if m.label.startswith("Validation error")][0]
@@ -90,7 +92,7 @@ def test_changing_the_scheme_updates_the_recommendation(repo_root, demo_dir):
 
     at.number_input(key="folds").set_value(3).run()
     _no_failures(at)
-    assert "Shuffled 3-fold" in _texts(at)
+    assert "Shuffled folds: 3 folds" in _texts(at)
 
 
 def test_bad_upload_shows_a_message_and_the_page_still_works(repo_root):
@@ -157,14 +159,16 @@ def test_unexpected_failure_shows_an_apology_not_a_traceback(repo_root, monkeypa
 def test_download_buttons_for_every_chart_and_table(repo_root):
     at = _app(repo_root).run()
     _no_failures(at)
-    labels = [b.proto.label for b in at.get("download_button")]
-    for chart in ("Validation curve", "Heat map", "Learning curve", "Side by side",
-                  "Coefficient chart"):
-        assert f"{chart} (PNG)" in labels, labels
-        assert f"{chart} (SVG)" in labels, labels
-    for table in ("Validation table, every cell", "Errors per split", "Learning-curve table",
-                  "Fit summary", "Coefficients of this cell"):
-        assert f"{table} (CSV)" in labels, labels
+    buttons = at.get("download_button")
+    labels = [b.proto.label for b in buttons]
+    # one vocabulary: the page's chart titles and file names are the pack's
+    for stem, title in CHARTS.items():
+        assert f"{title} (PNG)" in labels, labels
+        assert f"{title} (SVG)" in labels, labels
+        assert stem in CHART_FILES
+    for stem in ("validation_grid", "validation_per_split", "learning_curve",
+                 "side_by_side_fits", "coefficients_cell"):
+        assert f"{TABLES[stem]} (CSV)" in labels, labels
 
 
 def test_view_changes_do_not_rerun_the_sweep(repo_root, monkeypatch):

@@ -16,6 +16,7 @@ import engine.pack
 from engine import default_penalties
 from engine.cli import build_parser, main, parse_penalty_range
 from engine.pack import PACK_FILES
+from engine.spec import DEFAULT_MAX_ORDER
 
 PY = sys.executable
 SCRIPT = Path(sys.executable).parent / "fitladder"
@@ -216,7 +217,7 @@ def test_default_penalties_are_the_documented_grid(recorded, demo_dir, tmp_path,
     assert code == 0, err
     spec = recorded[0]["spec"]
     assert spec.penalties == default_penalties(1e-4, 1e3, 15, include_zero=True)
-    assert spec.max_order == 6 and spec.scheme.kind == "kfold" and spec.scheme.folds == 5
+    assert spec.max_order == DEFAULT_MAX_ORDER and spec.scheme.kind == "kfold" and spec.scheme.folds == 5
     assert parse_penalty_range("1e-4:1e3:15") == (1e-4, 1e3, 15)
 
 
