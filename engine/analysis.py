@@ -15,6 +15,7 @@ from .recommend import Recommendation, recommend
 from .schemes import FoldPlan, make_plan
 from .spec import SchemeSpec, SweepSpec
 from .ladder import RUNG_COLUMNS
+from .threads import one_thread
 from .sweep import Progress, SweepResult, _fit_penalties, _sse, check_design_size, piece_statistics, run_sweep
 
 
@@ -216,7 +217,9 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
         _check_data(data, spec)
         basis = make_basis(data, spec)
         plan = plan_for(data, spec.scheme, spec.seed)
-        res = run_sweep(data.X, data.y, basis, plan, spec.order_list(), spec.penalties, progress)
+        with one_thread():   # many small factorisations; the row pass picks its own
+            res = run_sweep(data.X, data.y, basis, plan, spec.order_list(), spec.penalties,
+                            progress)
     except InputProblem:
         raise
     except (ValueError, np.linalg.LinAlgError, MemoryError) as exc:  # pragma: no cover
@@ -271,6 +274,12 @@ def learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None = N
     plan : splits to use (default: the spec's scheme; leave-one-out is replaced
         by shuffled 10-fold, as a learning curve per left-out row is not useful).
     """
+    with one_thread():
+        return _learning_curve(data, spec, orders, plan)
+
+
+def _learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None,
+                    plan: FoldPlan | None) -> LearningCurve:
     spec.validate()
     _check_data(data, spec)
     note = ""

@@ -30,7 +30,7 @@ __all__ = [
     "PALETTE", "MODEL_COLOURS", "STEEP_RATIO", "STEEP_MIN_TERMS", "SCATTER_LIMIT", "column_units", "plain_name",
     "penalty_text", "coefficient_view", "validation_curve_chart", "heatmap_chart",
     "learning_curve_chart", "comparison_chart", "coefficient_chart", "chart_to_png",
-    "chart_to_svg",
+    "chart_to_svg", "render_chart", "render_charts",
 ]
 
 # ---------------------------------------------------------------------------
@@ -741,3 +741,36 @@ def chart_to_svg(chart: alt.TopLevelMixin) -> str:
     import vl_convert as vlc
 
     return vlc.vegalite_to_svg(chart.to_json())
+
+
+def render_chart(chart: alt.TopLevelMixin, scale: float = 2) -> tuple[bytes, str]:
+    """Render a chart once to SVG and turn that SVG into PNG.
+
+    The chart is laid out once (one Vega-Lite specification, one Vega run);
+    the PNG is rasterised from the same SVG, so both files show the same
+    drawing.
+
+    Returns
+    -------
+    ``(png_bytes, svg_text)``
+    """
+    import vl_convert as vlc
+
+    svg = vlc.vegalite_to_svg(chart.to_dict())
+    return vlc.svg_to_png(svg, scale=scale), svg
+
+
+def render_charts(charts: dict[str, alt.TopLevelMixin], scale: float = 2):
+    """Start rendering charts in a background thread (vl-convert releases the GIL).
+
+    Returns
+    -------
+    concurrent.futures.Future whose result is ``{stem: (png_bytes, svg_text)}``.
+    The caller can do other work meanwhile and collect the result when needed.
+    """
+    from concurrent.futures import ThreadPoolExecutor
+
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fitladder-charts")
+    future = pool.submit(lambda: {stem: render_chart(ch, scale) for stem, ch in charts.items()})
+    pool.shutdown(wait=False)
+    return future

@@ -19,7 +19,6 @@ from typing import Any, Callable
 
 import numpy as np
 import pandas as pd
-from scipy import stats as _stats
 
 from .jsonable import json_ready
 from . import leakage as _leakage
@@ -774,6 +773,8 @@ def shift_table(X_before: np.ndarray, X_after: np.ndarray, inputs, bins: int = 1
         a, b = A[:, j], B[:, j]
         psi = population_stability_index(a, b, bins)
         ks = ks_statistic(a, b)
+        from scipy import stats as _stats   # imported only when a shift is tested
+
         p = float(_stats.ks_2samp(a, b).pvalue) if a.size and b.size else float("nan")
         rows.append({"input": str(name), "mean_before": float(a.mean()),
                      "mean_after": float(b.mean()),

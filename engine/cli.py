@@ -330,7 +330,8 @@ def command_run(args: argparse.Namespace) -> int:
     result = build_pack(args.out, loaded=loaded, source_name=loaded.report.source_name,
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,
                         load_options={"decimal": decimal, "sheet": args.sheet},
-                        source_path=str(Path(args.data).resolve()))
+                        source_path=str(Path(args.data).resolve()),
+                        model_file_in_background=True)
     _report(result)
     return EXIT_OK
 
@@ -399,7 +400,8 @@ def command_rerun(args: argparse.Namespace) -> int:
                         loaded.report.source_name, data=data, spec=spec, compare_orders=
                         [(int(q), float(a)) for q, a in cells] if cells else None,
                         progress=progress, load_options=opts,
-                        source_path=str(Path(path).resolve()))
+                        source_path=str(Path(path).resolve()),
+                        model_file_in_background=True)
     _report(result)
     return EXIT_OK
 

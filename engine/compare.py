@@ -8,6 +8,7 @@ from .analysis import DataLike, fit_cell
 from .final_fit import FinalModel
 from .labels import penalty_text
 from .spec import SweepSpec
+from .threads import one_thread
 
 
 def fit_candidates(data: DataLike, spec: SweepSpec,
@@ -19,10 +20,11 @@ def fit_candidates(data: DataLike, spec: SweepSpec,
     dict mapping ``(order, penalty)`` to its `FinalModel`, in the given order.
     """
     out: dict[tuple[int, float], FinalModel] = {}
-    for q, a in cells:
-        key = (int(q), float(a))
-        if key not in out:
-            out[key] = fit_cell(data, spec, key[0], key[1])
+    with one_thread():
+        for q, a in cells:
+            key = (int(q), float(a))
+            if key not in out:
+                out[key] = fit_cell(data, spec, key[0], key[1])
     return out
 
 

@@ -12,6 +12,8 @@ from typing import Callable, Iterable
 
 import numpy as np
 
+from .threads import blas_threads, product_threads
+
 
 @dataclass
 class Moments:
@@ -70,8 +72,46 @@ def combine(parts: Moments, weights: np.ndarray) -> tuple[float, np.ndarray, np.
     return float(n[0]), mean[0], M[0]
 
 
+def _merge(n_a, m_a, M_a, n_b, m_b, M_b):
+    """Pairwise update of two summaries (new arrays; either may be empty)."""
+    if n_b == 0:
+        return n_a, m_a.copy(), M_a.copy()
+    if n_a == 0:
+        return n_b, m_b.copy(), M_b.copy()
+    n = n_a + n_b
+    d = m_b - m_a
+    return n, m_a + d * (n_b / n), M_a + M_b + (n_a * n_b / n) * np.outer(d, d)
+
+
+def _prefix_suffix(parts: Moments):
+    """Summaries of pieces ``0..i-1`` (prefix) and ``i..L-1`` (suffix) for every ``i``.
+
+    Built by pairwise merges only, so a training set "all pieces but a
+    range" is one more merge and never a subtraction (no cancellation).
+    """
+    L, q = parts.mean.shape
+    pre = (np.zeros(L + 1), np.zeros((L + 1, q)), np.zeros((L + 1, q, q)))
+    suf = (np.zeros(L + 1), np.zeros((L + 1, q)), np.zeros((L + 1, q, q)))
+    for i in range(L):
+        pre[0][i + 1], pre[1][i + 1], pre[2][i + 1] = _merge(
+            pre[0][i], pre[1][i], pre[2][i], parts.n[i], parts.mean[i], parts.comoment[i])
+        j = L - 1 - i
+        suf[0][j], suf[1][j], suf[2][j] = _merge(
+            parts.n[j], parts.mean[j], parts.comoment[j], suf[0][j + 1], suf[1][j + 1],
+            suf[2][j + 1])
+    return pre, suf
+
+
 def combine_batch(parts: Moments, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Combine pieces for several selections at once.
+
+    Work grows linearly with the number of selections and pieces for the
+    usual shapes: a selection of a few pieces is merged piece by piece; a
+    selection of "all pieces but one contiguous range" (training sets of
+    k-fold and blocked folds, prefixes of a learning curve) is one merge of a
+    prefix and a suffix summary built once. Other selections fall back to one
+    batched product (``S x L`` work per matrix entry). Every route uses the
+    pairwise update, never "total minus part".
 
     Parameters
     ----------
@@ -82,6 +122,37 @@ def combine_batch(parts: Moments, weights: np.ndarray) -> tuple[np.ndarray, np.n
     -------
     ``(n, mean, comoment)`` of shapes (S,), (S, q), (S, q, q).
     """
+    sel = np.asarray(weights) > 0
+    S, L = sel.shape
+    q = parts.mean.shape[1]
+    counts = sel.sum(axis=1)
+    n_out, m_out, M_out = np.zeros(S), np.zeros((S, q)), np.zeros((S, q, q))
+    rest = []
+    pre_suf = None
+    for s in range(S):
+        ones = np.flatnonzero(sel[s])
+        zeros = np.flatnonzero(~sel[s])
+        if counts[s] <= 2 or counts[s] * 4 <= L:
+            acc = (0.0, np.zeros(q), np.zeros((q, q)))
+            for i in ones:
+                acc = _merge(*acc, parts.n[i], parts.mean[i], parts.comoment[i])
+            n_out[s], m_out[s], M_out[s] = acc
+        elif zeros.size == 0 or zeros[-1] - zeros[0] + 1 == zeros.size:
+            if pre_suf is None:
+                pre_suf = _prefix_suffix(parts)
+            (pn, pm, pM), (sn, sm, sM) = pre_suf
+            a, b = (int(zeros[0]), int(zeros[-1]) + 1) if zeros.size else (L, L)
+            n_out[s], m_out[s], M_out[s] = _merge(pn[a], pm[a], pM[a], sn[b], sm[b], sM[b])
+        else:
+            rest.append(s)
+    if rest:
+        n_r, m_r, M_r = _combine_dense(parts, sel[rest])
+        n_out[rest], m_out[rest], M_out[rest] = n_r, m_r, M_r
+    return n_out, m_out, M_out
+
+
+def _combine_dense(parts: Moments, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Any selections at once by one batched product (``S x L x q x q`` work)."""
     W = np.asarray(weights, dtype=float)
     Wn = W * parts.n[None, :]
     n = Wn.sum(axis=1)
@@ -196,28 +267,29 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     G_full = np.empty((q, q))
     s = np.empty(q)
     cuts = np.flatnonzero(np.diff(sl)) + 1
-    for a, b in zip(np.r_[0, cuts], np.r_[cuts, sl.size]):
-        lab = int(sl[a])
-        if lab < 0:
-            continue
-        for c0 in range(a, b, chunk_rows):
-            c1 = min(c0 + chunk_rows, b)
-            R = buf[:c1 - c0]
-            expand(Us[c0:c1], R[:, :P])
-            R[:, :P] -= shift_f
-            G = R.T @ R
-            m = G[P, P]
-            G_full[:P, :P] = G[:P, :P]
-            s[:P] = G[:P, P]
-            r = [v[c0:c1] - sh for v, sh in zip(ys, shift_y)]
-            for t in range(n_targets):
-                g = R.T @ r[t]
-                G_full[:P, P + t] = g[:P]
-                G_full[P + t, :P] = g[:P]
-                s[P + t] = g[P]
-                for u in range(t + 1):
-                    G_full[P + t, P + u] = G_full[P + u, P + t] = r[t] @ r[u]
-            merge_into(acc, lab, m, shift + s / m, G_full - np.outer(s, s) / m)
+    with blas_threads(product_threads()):   # large cross-products: idle cores help
+        for a, b in zip(np.r_[0, cuts], np.r_[cuts, sl.size]):
+            lab = int(sl[a])
+            if lab < 0:
+                continue
+            for c0 in range(a, b, chunk_rows):
+                c1 = min(c0 + chunk_rows, b)
+                R = buf[:c1 - c0]
+                expand(Us[c0:c1], R[:, :P])
+                R[:, :P] -= shift_f
+                G = R.T @ R
+                m = G[P, P]
+                G_full[:P, :P] = G[:P, :P]
+                s[:P] = G[:P, P]
+                r = [v[c0:c1] - sh for v, sh in zip(ys, shift_y)]
+                for t in range(n_targets):
+                    g = R.T @ r[t]
+                    G_full[:P, P + t] = g[:P]
+                    G_full[P + t, :P] = g[:P]
+                    s[P + t] = g[P]
+                    for u in range(t + 1):
+                        G_full[P + t, P + u] = G_full[P + u, P + t] = r[t] @ r[u]
+                merge_into(acc, lab, m, shift + s / m, G_full - np.outer(s, s) / m)
     return acc
 
 

@@ -246,6 +246,45 @@ def save_pipeline(model: FinalModel, path: Path) -> Path:
     return Path(path)
 
 
+def _save_in_child(model: FinalModel, path: Path) -> None:
+    """Child-process body: save the model; any failure only sets the exit status."""
+    import os
+
+    try:
+        save_pipeline(model, path)
+    except BaseException:  # the parent writes the file itself then
+        os._exit(1)
+
+
+class _ModelFileWriter:
+    """Write ``model.skops`` in a forked child process while the pack goes on.
+
+    Importing scikit-learn and skops costs more than everything else in a
+    small pack; a child process forked from a single-threaded parent does it
+    on another core. The parent checks the child's exit status and writes
+    the file itself if the child failed. Without fork (or with other threads
+    running, where forking is unsafe) the file is written in this process.
+    """
+
+    def __init__(self, model: FinalModel, path: Path, background: bool) -> None:
+        import multiprocessing as mp
+        import threading
+
+        self.model, self.path, self.proc = model, Path(path), None
+        if background and threading.active_count() == 1 and "fork" in mp.get_all_start_methods():
+            self.proc = mp.get_context("fork").Process(target=_save_in_child,
+                                                       args=(model, self.path), daemon=True)
+            self.proc.start()
+
+    def finish(self) -> Path:
+        """Wait for the file; write it here when the child did not."""
+        if self.proc is not None:
+            self.proc.join()
+            if self.proc.exitcode == 0 and self.path.is_file():
+                return self.path
+        return save_pipeline(self.model, self.path)
+
+
 def load_pipeline(path: str | Path):
     """Load a pipeline saved by `save_pipeline`, refusing anything else.
 
@@ -859,7 +898,8 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
                spec: SweepSpec, analysis: Analysis | None = None, checks: Any | None = None,
                compare_orders: Sequence[int | tuple[int, float]] | None = None,
                progress: Progress | None = None, load_options: dict | None = None,
-               source_path: str | None = None) -> PackResult:
+               source_path: str | None = None,
+               model_file_in_background: bool = False) -> PackResult:
     """Write the meeting pack for one request into ``out_dir``.
 
     Parameters
@@ -878,6 +918,9 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
     progress : called as ``progress(fraction_done, message)``.
     load_options : how the file was read (``decimal``, ``sheet``), for re-runs.
     source_path : where the file was read from, for re-runs.
+    model_file_in_background : write ``model.skops`` in a forked child process
+        while the rest of the pack is computed (for the command line; a
+        server with threads writes it in-process).
 
     Returns
     -------
@@ -901,10 +944,22 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         progress(0.56, "Fitting the compared cells on all rows")
     models = fit_candidates(data, spec, cells)
     model = models[_cell_key(rec.order, rec.penalty)]
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputProblem(f"Could not write the pack to '{out}': {exc.strerror or exc}. "
+                           "Choose a folder you can write to.", code="cannot_write") from None
+    model_writer = _ModelFileWriter(model, out / "model.skops", model_file_in_background)
     if progress:
         progress(0.62, "Learning curve")
     lc_orders = sorted({q for q, _ in learning_cells(cells)})
     lc = learning_curve(data, spec, orders=lc_orders)
+    # the charts need nothing from the checks: draw them in the background meanwhile
+    if progress:
+        progress(0.70, "Drawing charts")
+    from . import charts as _charts
+    chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note)
+    rendering = _charts.render_charts(chart_objs)
     if checks is None:
         if progress:
             progress(0.72, "Checks")
@@ -918,22 +973,15 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
     record = record_dict(spec, facts, roles, cells, load_options, source_path)
 
     if progress:
-        progress(0.76, "Drawing charts")
-    from . import charts as _charts
-    chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note)
-    pngs: dict[str, bytes] = {}
-    svgs: dict[str, str] = {}
-    for i, (stem, ch) in enumerate(chart_objs.items()):
-        pngs[stem] = _charts.chart_to_png(ch)
-        svgs[stem] = _charts.chart_to_svg(ch)
-        if progress:
-            progress(0.76 + 0.2 * (i + 1) / len(chart_objs), f"Drawn {CHART_FILES[stem].lower()}")
-
-    if progress:
-        progress(0.97, "Writing files")
+        progress(0.90, "Writing files")
     try:
         out.mkdir(parents=True, exist_ok=True)
         written: dict[str, Path] = {}
+        # the model file first: its imports (scikit-learn, skops) overlap the drawing
+        model_path = model_writer.finish()
+        drawn = rendering.result()
+        pngs = {stem: png for stem, (png, _) in drawn.items()}
+        svgs = {stem: svg for stem, (_, svg) in drawn.items()}
 
         def put_text(name: str, text: str) -> None:
             p = out / name
@@ -965,7 +1013,7 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
             pd.DataFrame({"term": list(model.terms),
                           "coefficient": np.asarray(model.coefficients, float)}),
             out / "model_coefficients.csv")
-        written["model.skops"] = save_pipeline(model, out / "model.skops")
+        written["model.skops"] = model_path
     except OSError as exc:
         raise InputProblem(f"Could not write the pack to '{out}': {exc.strerror or exc}. "
                            "Choose a folder you can write to.", code="cannot_write") from None

@@ -4,7 +4,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from sklearn.model_selection import GroupKFold, KFold
 
 from .labels import scheme_name
 from .errors import InputProblem
@@ -106,6 +105,13 @@ def _round_from_splits(n: int, train_sets, valid_sets) -> Round:
     else:
         uniq_cols, rep, pieces = np.unique(sig.T, axis=0, return_index=True, return_inverse=True)
         pieces = pieces.ravel()
+    # number pieces by first appearance in row order, so that contiguous row
+    # ranges (blocks in time) are contiguous piece ranges (cheap combinations)
+    first = np.argsort(rep, kind="stable")
+    renumber = np.empty_like(first)
+    renumber[first] = np.arange(first.size)
+    pieces = renumber[np.asarray(pieces).ravel()]
+    rep = rep[first]
     used = sig.any(axis=0)
     pieces = np.where(used, pieces, -1)
     n_pieces = int(rep.size)
@@ -180,7 +186,11 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
     elif kind == "blocked":
         g = int(scheme.gap)
         tr_list, va_list = [], []
-        for _, va in KFold(n_splits=k, shuffle=False).split(idx):
+        # contiguous blocks sized as scikit-learn's KFold(shuffle=False) sizes them
+        sizes = np.full(k, n // k, dtype=int)
+        sizes[: n % k] += 1
+        for start, stop in zip(np.r_[0, np.cumsum(sizes)[:-1]], np.cumsum(sizes)):
+            va = idx[start:stop]
             lo, hi = va[0], va[-1]
             keep = (idx < lo - g) | (idx > hi + g)
             tr_list.append(idx[keep])
@@ -196,6 +206,8 @@ def make_plan(scheme: SchemeSpec, n_rows: int, *, seed: int = 0,
             raise InputProblem(f"The group column has {g_uniq} distinct groups, fewer than the "
                                f"{k} folds asked for. Use at most {g_uniq} folds.",
                                code="too_few_groups", column=scheme.group_column)
+        from sklearn.model_selection import GroupKFold   # imported only when groups are used
+
         sp = list(GroupKFold(n_splits=k).split(idx, groups=g_codes))
         rounds_sets.append(([np.sort(a) for a, _ in sp], [np.sort(b) for _, b in sp]))
         desc = f"{scheme_name(kind)}: {k} folds; each of {g_uniq} groups held out whole."
