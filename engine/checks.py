@@ -150,11 +150,17 @@ class CheckReport:
         ``scheme_comparison`` (when run), ``period_shift``, ``extrapolation``,
         ``leverage``, ``samples_per_parameter``, ``conditioning``.
     notes : plain sentences on how the checks were run.
+    row_order : how the row order was read (see `row_order_basis`): a status
+        and one sentence.
+    skipped : checks computed but not used as warnings, each ``{"code",
+        "reason"}``.
     """
 
     findings: list[Finding] = field(default_factory=list)
     tables: dict[str, pd.DataFrame] = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
+    row_order: dict = field(default_factory=dict)
+    skipped: list[dict] = field(default_factory=list)
 
     def codes(self) -> list[str]:
         """Codes of the findings, each once, in the order found."""
@@ -172,7 +178,8 @@ class CheckReport:
         return None
 
     def to_dict(self) -> dict:
-        return {"findings": [f.to_dict() for f in self.findings], "notes": list(self.notes)}
+        return {"findings": [f.to_dict() for f in self.findings], "notes": list(self.notes),
+                "row_order": dict(self.row_order), "skipped": [dict(x) for x in self.skipped]}
 
 
 # ---------------------------------------------------------------------------
@@ -579,6 +586,88 @@ def sorted_by_input(data: DataLike, analysis: Analysis) -> str | None:
     return None
 
 
+_TIME_SCHEMES = ("blocked", "holdout")
+#: Checks that read the row order as time.
+ROW_ORDER_CHECKS = ("serial_dependence", "period_shift")
+
+
+@dataclass(frozen=True)
+class RowOrder:
+    """How the checks read the order of the rows.
+
+    Attributes
+    ----------
+    status : ``'order_column'`` (rows sorted by the order column),
+        ``'time_scheme'`` (blocked folds or a later-period holdout take the
+        file's row order as time order), ``'stated'`` (the user said the file's
+        row order is time order), ``'not_time'`` (the user said it is not),
+        ``'sorted_by_input'`` (rows listed by an input, no order given) or
+        ``'assumed'`` (nothing said: the file's row order is taken as time).
+    sentence : one plain sentence saying so, for the page and the pack.
+    known : the time order rests on an order column, the scheme or the user's word.
+    use : the row-order checks may raise warnings.
+    """
+
+    status: str
+    sentence: str
+    known: bool
+    use: bool
+
+    def to_dict(self) -> dict:
+        return {"status": self.status, "sentence": self.sentence, "known": self.known,
+                "used": self.use}
+
+
+def row_order_basis(data: DataLike, analysis: Analysis) -> RowOrder:
+    """Whether (and why) the row order may be read as time by the checks.
+
+    An order column, or a time scheme (blocked folds, later-period holdout),
+    makes the order known. Otherwise the user's answer counts
+    (``SchemeSpec.rows_in_time_order``); without one, rows sorted by an input
+    are not read as time (the row-order checks are skipped), and any other
+    row order is assumed to be time order, stated as such, and its warnings
+    go no higher than caution.
+    """
+    scheme = analysis.spec.scheme
+    if _has_order(data, analysis):
+        col = scheme.order_column
+        return RowOrder("order_column", (f"Rows were sorted by the order column {col}."
+                                         if col else "Rows were sorted by their order values."),
+                        True, True)
+    if scheme.kind in _TIME_SCHEMES:
+        return RowOrder("time_scheme", "No order column was given; the validation scheme "
+                        "takes the file's row order as time order, and so do these checks.",
+                        True, True)
+    stated = getattr(scheme, "rows_in_time_order", None)
+    if stated is True:
+        return RowOrder("stated", "No order column was given; as stated, the file's row "
+                        "order was read as time order.", True, True)
+    if stated is False:
+        return RowOrder("not_time", "As stated, the file's row order is not time order, so "
+                        "the checks that read the row order as time were not used.", False, False)
+    name = sorted_by_input(data, analysis)
+    if name is not None:
+        return RowOrder("sorted_by_input", f"No order column was given and the rows are listed "
+                        f"by the input {name}, so their order follows that input rather than "
+                        "time: the checks that read the row order as time were computed but "
+                        "not used as warnings (choose an order column, or say the rows are in "
+                        "time order, to use them).", False, False)
+    return RowOrder("assumed", "No order column was given and it was not said whether the rows "
+                    "are in time order: the checks that read the row order as time assume the "
+                    "file's row order is time order, and their warnings go no higher than "
+                    "caution.", False, True)
+
+
+def _row_order_advice(basis: RowOrder) -> str:
+    if basis.status == "assumed":
+        return (" This assumes the file's row order is time order (no order column was given); "
+                "if it is not, set this warning aside, and if it is, say so or choose an order "
+                "column.")
+    if basis.status in ("time_scheme", "stated"):
+        return " No order column was given, so the row order of the table was taken as the order in time."
+    return ""
+
+
 def suggested_gap(r: float, n: int, folds: int) -> int:
     """Blocked-fold gap: `GAP_MULTIPLE` decorrelation lengths, capped at half a block."""
     cap = max(int(n // (2 * max(folds, 2))), 0)
@@ -593,8 +682,8 @@ def suggested_gap(r: float, n: int, folds: int) -> int:
 # the checks
 # ---------------------------------------------------------------------------
 def check_serial_dependence(data: DataLike, analysis: Analysis,
-                            final_model: FinalModel | None = None
-                            ) -> tuple[Finding | None, pd.DataFrame, pd.DataFrame | None]:
+                            final_model: FinalModel | None = None,
+                            basis: RowOrder | None = None) -> tuple[Finding | None, pd.DataFrame, pd.DataFrame | None]:
     """Are neighbouring rows dependent, and does the scheme account for it?
 
     Computes the lag-1 autocorrelation of the target and of the recommended
@@ -604,8 +693,13 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
     `RESIDUAL_AUTOCORRELATION_LIMIT` (0.5) or Durbin-Watson lies outside
     `DURBIN_WATSON_RANGE` (1 to 3). When the scheme shuffles rows (k-fold,
     repeated, leave-one-out) the sweep is also run on blocked folds with a gap
-    of `GAP_MULTIPLE` decorrelation lengths (capped at half a block) and both
-    validation R² are reported.
+    of `GAP_MULTIPLE` decorrelation lengths (capped at half a block) and the
+    two are compared in errors: the ratio of the validation MSEs of the same
+    model, and both R² against the target's variance over all rows (serious
+    when blocked folds' error is at least `FLATTERY_RATIO` times the shuffled
+    folds', caution below). Warnings go no higher than caution when the row
+    order is only assumed to be time order, and none is raised when the rows
+    are not in time order (`row_order_basis`).
 
     Returns
     -------
@@ -656,13 +750,15 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
 
     fires = ((np.isfinite(r_resid) and abs(r_resid) > RESIDUAL_AUTOCORRELATION_LIMIT)
              or (np.isfinite(dw) and not (DURBIN_WATSON_RANGE[0] <= dw <= DURBIN_WATSON_RANGE[1])))
-    if not fires or sorted_by_input(data, analysis) is not None:
+    basis = row_order_basis(data, analysis) if basis is None else basis
+    if not fires or not basis.use:
         return None, table, None
 
     kind = spec.scheme.kind
     details: dict[str, Any] = {"target_lag1": r_target, "residual_lag1": r_resid,
                                "durbin_watson": dw, "effective_sample_size": ess,
-                               "rows": n, "suggested_gap": gap, "scheme": kind}
+                               "rows": n, "suggested_gap": gap, "scheme": kind,
+                               "row_order": basis.status}
     head = (f"Validation errors of neighbouring rows move together (lag-1 autocorrelation "
             f"{_corr(r_resid)}, Durbin-Watson {_corr(dw)})")
     ess_txt = (f"the {_rows(n)} rows carry about as much information as "
@@ -673,16 +769,17 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
             data, analysis, folds, gap)
         details.update({"shuffled_r2": rec.validation_r2, "blocked_r2": same_r2,
                         "blocked_best_r2": blocked_rec_r2, "blocked_scheme": blocked_desc})
+        severity = "serious"
         if comparison is not None:
-            message = (f"{head}, so shuffled folds flatter the model: shuffled folds say "
-                       f"validation R² {_r2(rec.validation_r2)}, blocked folds with a "
-                       f"{gap}-row gap say {_r2(same_r2)} for the same model ({rec.label}).")
+            message, flatters = _flattery_sentence(head, comparison, gap, rec.label,
+                                                   spec.target, details)
+            if not flatters:
+                severity = "caution"
         else:
-            message = (f"{head}, so shuffled folds (validation R² {_r2(rec.validation_r2)}) "
-                       f"flatter the model; blocked folds could not be run on these rows.")
+            message = (f"{head}, so shuffled folds may flatter the model; blocked folds could "
+                       "not be run on these rows to measure by how much.")
         advice = (f"Switch to blocked folds with a gap of about {gap} rows (or a later-period "
                   f"holdout) and judge the model by those numbers; {ess_txt}.")
-        severity = "serious"
     else:
         message = f"{head}: {ess_txt}."
         if kind == "blocked" and int(spec.scheme.gap) < gap:
@@ -694,12 +791,48 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
                       f"are worth about {_rows(max(ess, 1))} independent ones when judging how "
                       "many parameters the data support.")
         severity = "caution"
-    if not _has_order(data, analysis):
-        advice += (" No order column was given, so the row order of the table was taken as "
-                   "the order in time.")
+    if not basis.known:
+        severity = "caution"
+    advice += _row_order_advice(basis)
     finding = Finding("serial_dependence", message, float(r_resid if np.isfinite(r_resid) else dw),
                       advice, severity, details)
     return finding, table, comparison
+
+
+#: Blocked-fold validation MSE at least this many times the shuffled folds' MSE
+#: for the same model counts as shuffled folds flattering it (chosen here).
+FLATTERY_RATIO = 1.25
+
+
+def _flattery_sentence(head: str, comparison: pd.DataFrame, gap: int, label: str,
+                       target: str, details: dict) -> tuple[str, bool]:
+    """Shuffled against blocked folds for the same model, in errors.
+
+    The ratio of the two validation MSEs, and both R² against one common
+    variance (the target's over all rows), so the two R² differ exactly as
+    the errors do.
+    """
+    c = comparison.set_index("role")
+    mine = c.loc["your scheme, recommended model"]
+    same = c.loc["same model, blocked folds"]
+    ratio = float(same["mse_ratio"])
+    details.update({"mse_ratio": ratio, "shuffled_mse": float(mine["validation_mse"]),
+                    "blocked_mse": float(same["validation_mse"]),
+                    "shuffled_r2_common": float(mine["validation_r2_common"]),
+                    "blocked_r2_common": float(same["validation_r2_common"])})
+    numbers = (f"MSE {_num(float(same['validation_mse']))} against "
+               f"{_num(float(mine['validation_mse']))}; R² {_r2(float(same['validation_r2_common']))} "
+               f"against {_r2(float(mine['validation_r2_common']))}, both measured against the "
+               f"variance of {target} over all rows")
+    r_txt = _num(ratio, 3) if np.isfinite(ratio) else "infinitely many"
+    if ratio >= FLATTERY_RATIO:
+        return (f"{head}, so shuffled folds flatter the model: for the same model ({label}), "
+                f"blocked folds with a {gap}-row gap give a validation error {r_txt} times "
+                f"that of shuffled folds ({numbers})."), True
+    return (f"{head}; for the same model ({label}), blocked folds with a {gap}-row gap give a "
+            f"validation error only {r_txt} times that of shuffled folds ({numbers}), so "
+            f"shuffled folds flatter it little here (the check calls {FLATTERY_RATIO:g} times "
+            "or more flattering)."), False
 
 
 def _scheme_comparison(data: DataLike, analysis: Analysis, folds: int, gap: int):
@@ -729,7 +862,13 @@ def _scheme_comparison(data: DataLike, analysis: Analysis, folds: int, gap: int)
          "penalty": brec.penalty, "validation_r2": brec.validation_r2,
          "validation_mse": brec.validation_mse, "validation_rmse": math.sqrt(brec.validation_mse)},
     ]
-    return (pd.DataFrame(rows), blocked.plan.description, float(brec.validation_r2),
+    table = pd.DataFrame(rows)
+    var_y = float(np.var(np.asarray(data.y, float)))
+    table["validation_r2_common"] = (1.0 - table["validation_mse"] / var_y
+                                     if var_y > 0 else float("nan"))
+    table["mse_ratio"] = table["validation_mse"] / float(rec.validation_mse) \
+        if rec.validation_mse > 0 else float("nan")
+    return (table, blocked.plan.description, float(brec.validation_r2),
             float(same["validation_r2"]))
 
 
@@ -788,7 +927,8 @@ def shift_table(X_before: np.ndarray, X_after: np.ndarray, inputs, bins: int = 1
     return t.drop(columns="_abs_smd").reset_index(drop=True)
 
 
-def check_period_shift(data: DataLike, analysis: Analysis) -> tuple[Finding | None, pd.DataFrame]:
+def check_period_shift(data: DataLike, analysis: Analysis,
+                       basis: RowOrder | None = None) -> tuple[Finding | None, pd.DataFrame]:
     """Do the inputs of the later period differ from those of the earlier one?
 
     Per input: standardised mean difference, Kolmogorov-Smirnov statistic,
@@ -796,14 +936,17 @@ def check_period_shift(data: DataLike, analysis: Analysis) -> tuple[Finding | No
     of later rows outside the earlier range (`shift_table`). An input has
     moved when its PSI exceeds 0.1 (common practice: 0.1-0.25 moderate, above
     0.25 major) and the KS p-value is below 0.01 (a gate against noise in small
-    samples). Fires when any input moved; serious when one exceeds 0.25.
+    samples). Fires when any input moved; serious when one exceeds 0.25 and
+    the row order is known to be time order (`row_order_basis`), caution when
+    it is only assumed; quiet when the rows are not in time order.
     """
     before, after, how = period_rows(data, analysis)
     X = np.asarray(data.X, float)
     table = shift_table(X[before], X[after], analysis.spec.inputs)
     table.insert(0, "comparison", how)
     moved = table[table["moved"]]
-    if moved.empty or sorted_by_input(data, analysis) is not None:
+    basis = row_order_basis(data, analysis) if basis is None else basis
+    if moved.empty or not basis.use:
         return None, table
     top = moved.iloc[0]
     names = list(moved["input"])
@@ -820,10 +963,8 @@ def check_period_shift(data: DataLike, analysis: Analysis) -> tuple[Finding | No
               "later-period holdout and consider refitting on recent rows before trusting "
               "predictions for the new period. PSI above 0.25 is commonly read as a major "
               "shift, 0.1-0.25 as moderate.")
-    if not _has_order(data, analysis):
-        advice += (" No order column was given, so the row order of the table was taken as "
-                   "the order in time.")
-    severity = "serious" if float(top["psi"]) > PSI_MAJOR else "caution"
+    advice += _row_order_advice(basis)
+    severity = "serious" if float(top["psi"]) > PSI_MAJOR and basis.known else "caution"
     details = {"inputs_moved": names, "comparison": how, "psi": float(top["psi"]),
                "smd": float(top["smd"]), "ks": float(top["ks"]),
                "share_outside": float(top["share_outside"])}
@@ -1243,12 +1384,11 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress) -> Che
     rec_model = models.get(rec_key) or fit_candidates(data, spec, [rec_key])[rec_key]
     report = CheckReport()
     summary = []
-    sorted_name = sorted_by_input(data, analysis)
-    if sorted_name is not None:
-        report.notes.append(
-            f"No order column was given and the rows are sorted by {sorted_name}, so the row "
-            "order is not an order in time: the serial dependence and period shift checks "
-            "were computed but not used as warnings.")
+    basis = row_order_basis(data, analysis)
+    report.row_order = basis.to_dict()
+    report.notes.append(basis.sentence)
+    if not basis.use:
+        report.skipped = [{"code": c, "reason": basis.sentence} for c in ROW_ORDER_CHECKS]
 
     tick(0.1, "Looking for inputs that reproduce the target")
     f0, t_leak = check_target_leakage(data, spec.inputs, spec.target)
@@ -1260,7 +1400,7 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress) -> Che
                     "monotone function)"))
 
     tick(0.15, "Checking for dependence between neighbouring rows")
-    f, t_serial, comparison = check_serial_dependence(data, analysis, rec_model)
+    f, t_serial, comparison = check_serial_dependence(data, analysis, rec_model, basis)
     report.tables["serial"] = t_serial
     if comparison is not None:
         report.tables["scheme_comparison"] = comparison
@@ -1269,7 +1409,7 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress) -> Che
                     f"Durbin-Watson outside {DURBIN_WATSON_RANGE[0]:g}-{DURBIN_WATSON_RANGE[1]:g}"))
 
     tick(0.45, "Comparing the earlier and later rows")
-    f2, t_shift = check_period_shift(data, analysis)
+    f2, t_shift = check_period_shift(data, analysis, basis)
     report.tables["period_shift"] = t_shift
     summary.append(("period_shift", f2, float(t_shift["psi"].max()) if len(t_shift) else float("nan"),
                     f"an input with PSI above {PSI_MODERATE} and KS p-value below {SHIFT_P_VALUE}"))
@@ -1304,12 +1444,13 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress) -> Che
                     f"validation MSE more than {GAP_RATIO:g} times training MSE"))
 
     report.findings = [x for x in (f0, f, f2, f3, f4, f5, f6, f7) if x is not None]
-    time_codes = ("serial_dependence", "period_shift")
+    skipped = {x["code"]: x["reason"] for x in report.skipped}
     report.tables["summary"] = pd.DataFrame(
         [{"code": c, "fired": fi is not None, "severity": fi.severity if fi else "",
           "value": v, "fires_when": rule,
-          "note": (f"not used: rows sorted by {sorted_name}, no order column"
-                   if sorted_name is not None and c in time_codes else "")}
+          "note": (f"not used: {skipped[c]}" if c in skipped else
+                   f"assumes the file's row order is time order"
+                   if basis.status == "assumed" and c in ROW_ORDER_CHECKS else "")}
          for c, fi, v, rule in summary])
     report.notes += [
         f"Checked {len(cells)} candidate{'s' if len(cells) != 1 else ''}: "

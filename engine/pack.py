@@ -440,6 +440,27 @@ def _finding_dicts(checks: Any) -> list[dict]:
     return out
 
 
+def _check_facts(checks: Any) -> dict:
+    """How the checks read the row order, and which were computed but not used."""
+    return {"row_order": dict(getattr(checks, "row_order", {}) or {}),
+            "skipped": [dict(x) for x in (getattr(checks, "skipped", []) or [])],
+            "notes": list(getattr(checks, "notes", []) or [])}
+
+
+def _check_note_lines(s: dict) -> list[str]:
+    """Plain sentences under the warnings: skipped checks and the row-order assumption."""
+    c = s.get("checks") or {}
+    out = []
+    skipped = c.get("skipped") or []
+    if skipped:
+        names = " and ".join(x["code"].replace("_", " ") for x in skipped)
+        reasons = list(dict.fromkeys(x["reason"] for x in skipped))
+        out.append(f"Not used as warnings: {names}. " + " ".join(reasons))
+    elif (c.get("row_order") or {}).get("status") in ("assumed", "time_scheme", "stated"):
+        out.append("Row order: " + c["row_order"]["sentence"])
+    return out
+
+
 def _roles(data: DataLike, spec: SweepSpec) -> dict:
     sc = spec.scheme
     return {"target": spec.target, "inputs": list(spec.inputs),
@@ -680,6 +701,8 @@ def render_markdown(s: dict) -> str:
                          f"{md_escape(w['message'])}{val}{adv}")
     else:
         lines.append("No warnings.")
+    for line in _check_note_lines(s):
+        lines += ["", md_escape(line)]
     lines += ["", "## Caution", "", CAUTION, "",
               "Charts: " + ", ".join(f"{stem}.png" for stem in CHART_FILES) + ". Tables: "
               "validation_grid.csv, learning_curve.csv, coefficients.csv, warnings.csv, "
@@ -786,7 +809,8 @@ def chart_layout(s: dict) -> str:
     warnings) three narrower columns show each chart larger than three short
     rows would. Charts are about 1.5 times as wide as tall.
     """
-    free = PAGE_BUDGET_MM - 95.0 - _warnings_height_mm(s["warnings"])
+    free = (PAGE_BUDGET_MM - 95.0 - _warnings_height_mm(s["warnings"])
+            - 7.0 * len(_check_note_lines(s)))
     two = min(92.0, 1.5 * (free / 3.0))
     three = min(60.0, 1.5 * (free / 2.0))
     return "three" if three > two else "two"
@@ -813,6 +837,8 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
                           f"{_h(w['message'])}{val}{adv}</li>")
     warn_html = (f"<ol class=\"warn\">{''.join(warn_items)}</ol>" if warn_items
                  else "<p style=\"margin:0 0 1.5mm 0\">No warnings.</p>")
+    warn_html += "".join(f"<p class=\"adv\" style=\"margin:0 0 1.5mm 0\">{_h(line)}</p>"
+                         for line in _check_note_lines(s))
     rows = []
     for c in s["candidates"]:
         cls = " class=\"rec\"" if "recommended" in c["role"] else ""
@@ -970,6 +996,7 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
     roles = _roles(data, spec)
     candidates = leading_candidates(analysis)
     summary = summary_dict(analysis, model, facts, roles, findings, cells, candidates, lc.note)
+    summary["checks"] = plain(_check_facts(checks))
     record = record_dict(spec, facts, roles, cells, load_options, source_path)
 
     if progress:

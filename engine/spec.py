@@ -42,6 +42,9 @@ class SchemeSpec:
         when absent the row order of the table is used.
     group_column : column of group labels (grouped).
     split_column : column of fold labels (column).
+    rows_in_time_order : without an order column, whether the file's row order
+        is time order: True (yes), False (no) or None (not said; the checks
+        that read the row order as time then assume it and say so).
     """
 
     kind: str = "kfold"
@@ -52,6 +55,7 @@ class SchemeSpec:
     order_column: str | None = None
     group_column: str | None = None
     split_column: str | None = None
+    rows_in_time_order: bool | None = None
 
     def validate(self) -> None:
         if self.kind not in SCHEMES:

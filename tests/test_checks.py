@@ -183,10 +183,30 @@ def test_random_walk_shuffled_folds_flatter_and_serial_dependence_fires(random_w
     assert shuffled > 0.5
     assert blocked < 0.1
     assert comp.loc["same model, blocked folds", "scheme"] == "blocked"
-    # both numbers in the message, as printed
-    assert f"{shuffled:.2f}" in f.message
-    blocked_txt = f"{blocked:.2f}" if blocked > -10 else f"{blocked:,.0f}"
-    assert blocked_txt in f.message
+    # the message compares errors: the MSE ratio of the same model and both R²
+    # against one common variance (the target's over all rows), as printed
+    ratio = comp.loc["same model, blocked folds", "mse_ratio"]
+    mse_s = comp.loc["your scheme, recommended model", "validation_mse"]
+    mse_b = comp.loc["same model, blocked folds", "validation_mse"]
+    assert ratio == pytest.approx(mse_b / mse_s, rel=1e-12) and ratio > 5
+    assert f"{ratio:.3g} times that of shuffled folds" in f.message
+    r2s = comp.loc["your scheme, recommended model", "validation_r2_common"]
+    r2b = comp.loc["same model, blocked folds", "validation_r2_common"]
+    y = np.asarray(data.y)
+    assert r2s == pytest.approx(1 - mse_s / np.var(y)) and r2b == pytest.approx(1 - mse_b / np.var(y))
+    # with one common variance the R² differ exactly as the errors do
+    assert (1 - r2b) / (1 - r2s) == pytest.approx(ratio, rel=1e-12)
+    assert f"R² {r2b:.2f} against {r2s:.2f}" in f.message
+    # the per-block R² (each block against its own mean) is not what the message quotes
+    assert f"{blocked:,.0f}" not in f.message
+    # Durbin-Watson in the message: statsmodels' value on the final fit's residuals
+    from statsmodels.stats.stattools import durbin_watson as sm_dw
+    from engine.final_fit import fit_final
+    rec = an.recommendation.recommended
+    m = fit_final(data.X, data.y, an.spec.inputs, rec.order, rec.penalty, an.spec.interactions)
+    dw = sm_dw(np.asarray(data.y) - m.predict(data.X))          # statsmodels
+    assert f"Durbin-Watson {dw:.2f}" in f.message
+    assert f.details["durbin_watson"] == pytest.approx(dw, rel=1e-10)
     assert "blocked folds" in f.advice.lower()
     assert f.details["residual_lag1"] > 0.5
     serial = rep.tables["serial"].set_index("measure")["value"]
@@ -304,7 +324,7 @@ def test_rows_sorted_by_an_input_do_not_count_as_time():
     rep = run_checks(data, an, candidates=[(2, 0.0), (8, 0.0)])
     assert "serial_dependence" not in rep.codes()
     assert "period_shift" not in rep.codes()
-    assert any("sorted by probe_mV" in n for n in rep.notes)
+    assert any("listed by the input probe_mV" in n for n in rep.notes)
     ext = rep.by_code("extrapolation")
     assert ext is not None and ext.details["cells"] == [[8, 0.0]]
 
