@@ -127,8 +127,8 @@ def test_pack_says_which_checks_were_skipped_and_why(tmp_path):
     s = json.loads((tmp_path / "summary.json").read_text())
     assert [x["code"] for x in s["checks"]["skipped"]] == list(ROW_ORDER_CHECKS)
     assert s["checks"]["row_order"]["status"] == "sorted_by_input"
-    md = (tmp_path / "summary.md").read_text()
-    assert "Not used as warnings: serial dependence and period shift." in md
+    md = (tmp_path / "summary.md").read_text()   # names escaped: a word joiner after ':'
+    assert "Not used as warnings" in md and "serial dependence and period shift." in md
     assert "listed by the input day" in md
     html = (tmp_path / "summary.html").read_text()
     assert "Not used as warnings: serial dependence and period shift." in html
@@ -146,5 +146,5 @@ def test_pack_states_the_row_order_assumption(tmp_path):
     s = json.loads((tmp_path / "summary.json").read_text())
     assert s["checks"]["row_order"]["status"] == "assumed" and s["checks"]["skipped"] == []
     md = (tmp_path / "summary.md").read_text()
-    assert "Row order: No order column was given" in md
+    assert "Row order" in md and "No order column was given" in md
     assert "assume the file's row order is time order" in md
