@@ -116,6 +116,26 @@ class Analysis:
             return data, spec
         return self.model_data, self.model_spec
 
+    def view(self) -> "Analysis":
+        """This analysis at the recommended cell's rung, as a plain (order x penalty) one.
+
+        Its request and columns are those of the recommended cell (current and
+        past values as ordinary inputs), so final fits, checks, comparisons and
+        learning curves run on it unchanged; the recommendation is the one of
+        the whole grid. Without rung axes: the analysis itself.
+        """
+        if self.model_spec is None:
+            return self
+        from .ladder import subset_sweep
+        rec = self.recommendation.recommended
+        keep = [i for i, k in enumerate(self.sweep.rung_keys)
+                if all(k.get(n) == getattr(rec, n, None) for n in RUNG_COLUMNS[:3])]
+        sweep = subset_sweep(self.sweep, keep)
+        return Analysis(spec=self.model_spec, sweep=sweep, validation=sweep.validation_table(),
+                        recommendation=self.recommendation, basis=self.basis, plan=self.plan,
+                        n_rows=self.n_rows, notes=list(self.notes),
+                        rows_left_out=self.rows_left_out)
+
     def at_rung(self, cell=None) -> pd.DataFrame:
         """Rows of the validation table that share the rung (lag depths, inputs used) of ``cell``.
 

@@ -245,3 +245,20 @@ def linear_terms(basis: PolynomialBasis, d: int) -> np.ndarray:
     deg = basis.terms.sum(axis=1)
     return np.array([int(np.flatnonzero((deg == 1) & (basis.terms[:, j] == 1))[0])
                      for j in range(d)])
+
+
+def subset_sweep(res: SweepResult, keep: list[int]) -> SweepResult:
+    """The term sets ``keep`` of a sweep (every setting and split), as a sweep of their own."""
+    keep = [int(i) for i in keep]
+    pick = np.asarray(keep, dtype=np.int64)
+    return SweepResult(
+        orders=[res.orders[i] for i in keep], penalties=res.penalties,
+        parameters=np.asarray(res.parameters)[pick], term_names=[res.term_names[i] for i in keep],
+        n_train=res.n_train, n_valid=res.n_valid, train_mse=res.train_mse[pick],
+        valid_mse=res.valid_mse[pick], valid_r2=res.valid_r2[pick], edf=res.edf[pick],
+        coef_std=[res.coef_std[i] for i in keep], coef_raw=[res.coef_raw[i] for i in keep],
+        intercept_raw=res.intercept_raw[pick], loo=res.loo,
+        loo_se=None if res.loo_se is None else res.loo_se[pick],
+        plan_description=res.plan_description, notes=list(res.notes),
+        families=res.families, l1_ratios=res.l1_ratios,
+        rung_keys=[res.rung_keys[i] for i in keep])

@@ -237,3 +237,20 @@ def test_bad_lag_requests_are_named():
         analyse(data, SweepSpec("y", ("x",), lags=LagSpec(inputs=("w",), depths=(1,))))
     with pytest.raises(InputProblem, match="leaves no rows"):
         analyse(data, SweepSpec("y", ("x",), max_order=1, lags=LagSpec(depths=(0, 12))))
+
+
+def test_view_is_the_plain_analysis_of_the_chosen_columns():
+    # the recommended rung's cells equal a plain sweep on those columns (pandas-shift design)
+    x, y = simulate_ar2(1, n=300)
+    spec = SweepSpec("y", ("x",), orders=(1, 2), penalties=(0.0, 1.0),
+                     scheme=SchemeSpec("blocked", folds=4, gap=3),
+                     lags=LagSpec(depths=(0, 3), target_depths=(0, 2, 3)))
+    a = analyse(ArrayData(x, y, ("x",), "y"), spec)
+    v = a.view()
+    assert v.spec.lags is None and v.spec.inputs == a.model_spec.inputs
+    rec = a.recommendation.recommended
+    assert (rec.lags, rec.target_lags) == (3, 2)
+    assert v.spec.inputs == ("x", "x_lag1", "x_lag2", "x_lag3", "y_lag1", "y_lag2")
+    plain = analyse(a.model_data, v.spec)
+    np.testing.assert_allclose(v.sweep.valid_mse, plain.sweep.valid_mse, rtol=1e-10)
+    assert len(v.validation) == 4 and len(a.validation) == 2 * 3 * 4
