@@ -20,6 +20,7 @@ from pathlib import Path
 from typing import Sequence
 
 from .errors import InputProblem
+from .lagged import LagSpec
 from .spec import (DEFAULT_FOLDS, DEFAULT_GAP, DEFAULT_HOLDOUT_FRACTION, DEFAULT_MAX_ORDER,
                    DEFAULT_PENALTY_COUNT, DEFAULT_PENALTY_HIGH, DEFAULT_PENALTY_LOW,
                    DEFAULT_REPEATS, DEFAULT_SEED, SCHEME_HELP, SCHEMES, SchemeSpec, SweepSpec,
@@ -99,6 +100,24 @@ def parse_orders(text: str) -> tuple[int, ...]:
     if not out:
         raise argparse.ArgumentTypeError("Give at least one order, e.g. 1,2,3.")
     return tuple(out)
+
+
+def parse_depths(text: str) -> tuple[int, ...]:
+    """Lag depths: comma-separated whole numbers or ranges, e.g. ``0-4`` or ``0,1,3``."""
+    out: list[int] = []
+    for part in _names(text):
+        lo, _, hi = part.partition("-")
+        try:
+            a, b = int(lo), int(hi) if hi else int(lo)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"Lag depth '{part}' is not a whole number or a "
+                                             "range like 0-4.") from None
+        if a < 0 or b > 200 or b < a:
+            raise argparse.ArgumentTypeError(f"Lag depths '{part}' must lie in 0-200, low to high.")
+        out += list(range(a, b + 1))
+    if not out:
+        raise argparse.ArgumentTypeError("Give at least one lag depth, e.g. 0-4.")
+    return tuple(sorted(set(out)))
 
 
 def _int_at_least(minimum: int):
@@ -214,6 +233,20 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--compare", type=parse_orders, default=None, metavar="1,2,6",
                      help="orders to show side by side, at the recommended penalty (default: "
                           "order 1, the recommended order and the highest)")
+    run.add_argument("--more-targets", type=_names, default=None, metavar="A,B",
+                     help="more columns to predict from the same inputs: one pass over the "
+                          "rows, a recommendation and a pack section per target")
+    run.add_argument("--lags", type=parse_depths, default=None, metavar="0-4",
+                     help="compare these lag depths of the inputs (depth L uses the values "
+                          "0..L rows back; rows in time order)")
+    run.add_argument("--target-lags", type=parse_depths, default=None, metavar="0-2",
+                     help="compare these depths of past target values as terms (needs "
+                          "--scheme blocked with --gap at least the deepest, or holdout)")
+    run.add_argument("--lag-inputs", type=_names, default=None, metavar="A,B",
+                     help="inputs whose past values are used (default: every input)")
+    run.add_argument("--rank-inputs", choices=("lasso", "given"), default=None,
+                     help="compare the first 1, 2, ... inputs, ranked inside each split by "
+                          "their entry into the lasso path (lasso) or in --inputs order (given)")
     run.add_argument("--out", required=True, metavar="DIR",
                      help="folder to write the pack into (created if missing)")
 
@@ -297,11 +330,26 @@ def _report(result, stream=None) -> None:
     r = s["recommended"]
     pen = "no penalty" if r["penalty"] == 0 else f"ridge penalty {r['penalty']:.3g}"
     rmse = r.get("validation_rmse")
-    print(f"Recommended: order {r['order']}, {pen} (validation RMSE "
+    from .labels import rung_text
+    more = rung_text(r.get("lags"), r.get("target_lags"), r.get("inputs_used"))
+    print(f"Recommended: order {r['order']}, {pen}{more} (validation RMSE "
           f"{rmse:.4g} in units of {s['roles']['target']}; "
           f"{len(s['warnings'])} warning{'s' if len(s['warnings']) != 1 else ''}).",
           file=stream)
+    for t in s.get("targets") or []:
+        if t["target"] != s["roles"]["target"]:
+            print(f"Target {t['target']}: {t['recommended']} (section {t['section']}).",
+                  file=stream)
     print(f"Pack written to {result.out_dir} ({len(result.files)} files).", file=stream)
+
+
+def _prepare(frame, targets: tuple[str, ...], inputs, **roles):
+    """Prepared data for one target, or for several (`engine.targets.prepare_targets`)."""
+    from .loading import prepare
+    from .targets import prepare_targets
+    if len(targets) == 1:
+        return prepare(frame, targets[0], inputs, **roles)
+    return prepare_targets(frame, targets, inputs, **roles)
 
 
 def command_run(args: argparse.Namespace) -> int:
@@ -313,20 +361,27 @@ def command_run(args: argparse.Namespace) -> int:
     progress = _StderrProgress()
     progress(0.0, f"Reading {args.data}")
     loaded = _load(args.data, decimal=decimal, sheet=args.sheet)
+    more = tuple(args.more_targets or ())
     inputs = args.inputs if args.inputs is not None else _default_inputs(
-        loaded, args.target, (args.order_column, args.group_column, args.split_column))
+        loaded, args.target, (args.order_column, args.group_column, args.split_column) + more)
     if not inputs:
         raise InputProblem(f"No input columns are left besides the target '{args.target}'. "
                            "Name them with --inputs.", code="no_inputs")
-    data = prepare(loaded.frame, args.target, inputs, order_column=args.order_column,
-                   group_column=args.group_column, split_column=args.split_column)
+    data = _prepare(loaded.frame, (args.target,) + more, inputs,
+                    order_column=args.order_column, group_column=args.group_column,
+                    split_column=args.split_column)
     _say_drops(data)
+    lags = None
+    if args.lags is not None or args.target_lags is not None:
+        lags = LagSpec(inputs=tuple(args.lag_inputs or ()), depths=args.lags or (0,),
+                       target_depths=args.target_lags or (0,))
     scheme = SchemeSpec(kind=args.scheme, folds=args.folds, repeats=args.repeats, gap=args.gap,
                         holdout_fraction=args.holdout_fraction, order_column=args.order_column,
                         group_column=args.group_column, split_column=args.split_column)
     spec = SweepSpec(target=data.target, inputs=tuple(data.inputs), max_order=args.max_order,
                      orders=args.orders, interactions=args.interactions, penalties=penalties,
-                     scheme=scheme, seed=args.seed)
+                     scheme=scheme, seed=args.seed, lags=lags, nested_inputs=args.rank_inputs,
+                     extra_targets=more)
     result = build_pack(args.out, loaded=loaded, source_name=loaded.report.source_name,
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,
                         load_options={"decimal": decimal, "sheet": args.sheet},
@@ -391,9 +446,10 @@ def command_rerun(args: argparse.Namespace) -> int:
         raise InputProblem(f"The request in the record cannot be read ({exc}).",
                            code="bad_record") from None
     roles = rec["roles"]
-    data = prepare(loaded.frame, roles.get("target", spec.target), list(roles.get("inputs",
-                   spec.inputs)), order_column=roles.get("order_column"),
-                   group_column=roles.get("group_column"), split_column=roles.get("split_column"))
+    targets = spec.targets if spec.extra_targets else (roles.get("target", spec.target),)
+    data = _prepare(loaded.frame, targets, list(roles.get("inputs", spec.inputs)),
+                    order_column=roles.get("order_column"),
+                    group_column=roles.get("group_column"), split_column=roles.get("split_column"))
     _say_drops(data)
     cells = [tuple(c) for c in rec.get("compare_cells") or []] or None
     result = build_pack(args.out, loaded=loaded, source_name=facts.get("file") or

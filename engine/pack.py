@@ -39,7 +39,7 @@ from .errors import InputProblem
 from .final_fit import FinalModel
 from .markup import escape_name, escape_text
 from .recommend import Cell
-from .labels import (CHARTS, number_text, penalty_text, penalty_words, scheme_name,
+from .labels import (CHARTS, number_text, penalty_text, penalty_words, rung_text, scheme_name,
                      severity_rank)
 from .spec import SCHEME_HELP, SweepSpec
 
@@ -59,6 +59,9 @@ PACK_FILES = (
     "validation_grid.csv", "learning_curve.csv", "coefficients.csv", "warnings.csv",
     "model_coefficients.csv", "model.skops",
 )
+
+#: several targets: the side-by-side table at the top of the pack
+TARGETS_FILE = "targets.csv"
 
 #: Leading characters that make a spreadsheet run a cell as a formula
 #: (common practice, after the OWASP "CSV injection" advice).
@@ -420,11 +423,37 @@ def _cell_dict(cell: Cell, row: pd.Series | None = None) -> dict:
          "validation_r2": cell.validation_r2, "train_mse": cell.train_mse,
          "parameters": int(cell.parameters), "effective_df": cell.effective_df,
          "samples_per_parameter": cell.samples_per_parameter, "reason": cell.reason}
+    for k in RUNG_KEYS:   # the cell's other axes, when the grid has them
+        v = getattr(cell, k, None)
+        if v is not None:
+            d[k] = v
     return d
 
 
 _GRID_KEYS = ("order", "penalty", "parameters", "effective_df", "train_mse", "train_mse_se",
               "validation_mse", "validation_mse_se", "validation_rmse", "validation_r2", "folds")
+#: keys of grid rows for the other axes (lag depths, inputs used, target), present when swept
+RUNG_KEYS = ("lags", "target_lags", "inputs_used", "target")
+
+
+def _grid_keys(table: pd.DataFrame) -> tuple[str, ...]:
+    return _GRID_KEYS + tuple(k for k in RUNG_KEYS if k in table.columns)
+
+
+def _axes_dict(full: Analysis) -> dict:
+    """The request's axes beyond order and penalty, for summary.json."""
+    spec = full.spec
+    out: dict = {}
+    if spec.lags is not None:
+        out["lags"] = {**spec.lags.to_dict(), "rows_left_out": int(full.rows_left_out)}
+    if spec.nested_inputs is not None:
+        out["inputs_ranked"] = spec.nested_inputs
+    if spec.extra_targets:
+        out["targets"] = list(spec.targets)
+    if out:
+        out["target"] = full.target
+        out["chosen_columns"] = list(full.model_spec.inputs)
+    return out
 
 
 def _finding_dicts(checks: Any) -> list[dict]:
@@ -490,11 +519,18 @@ def _data_facts(data: DataLike, loaded: Any, source_name: str) -> dict:
 
 def summary_dict(analysis: Analysis, model: FinalModel, data_facts: dict, roles: dict,
                  findings: list[dict], cells: list[tuple[int, float]],
-                 candidates: pd.DataFrame, lc_note: str = "") -> dict:
-    """The content of ``summary.json`` (plain data; NaN turned into None)."""
+                 candidates: pd.DataFrame, lc_note: str = "", full: Analysis | None = None) -> dict:
+    """The content of ``summary.json`` (plain data; NaN turned into None).
+
+    ``full`` is the whole many-axis analysis when ``analysis`` is its view at
+    the recommended rung (`Analysis.view`): its grid, axes and notes are used.
+    """
     rec = analysis.recommendation
-    spec = analysis.spec
-    grid = [{k: r[k] for k in _GRID_KEYS} for _, r in analysis.validation.iterrows()]
+    full = analysis if full is None else full
+    spec = full.spec
+    keys = _grid_keys(full.validation)
+    grid = [{k: (None if pd.isna(r[k]) else r[k]) if k in RUNG_KEYS else r[k] for k in keys}
+            for _, r in full.validation.iterrows()]
     cand = [{**{k: r[k] for k in _GRID_KEYS}, "role": r["role"]}
             for _, r in candidates.iterrows()]
     out = {
@@ -508,7 +544,7 @@ def summary_dict(analysis: Analysis, model: FinalModel, data_facts: dict, roles:
                        "when_to_use": SCHEME_HELP.get(spec.scheme.kind, "")},
         "sweep": {"orders": spec.order_list(), "penalties": list(spec.penalties),
                   "interactions": bool(spec.interactions), "seed": int(spec.seed),
-                  "cells": int(len(analysis.validation)), "notes": list(analysis.notes)},
+                  "cells": int(len(full.validation)), "notes": list(full.notes)},
         "rule": rec.rule,
         "threshold": rec.threshold,
         "best": _cell_dict(rec.best),
@@ -529,6 +565,10 @@ def summary_dict(analysis: Analysis, model: FinalModel, data_facts: dict, roles:
         "warnings": findings,
         "caution": CAUTION,
     }
+    axes = _axes_dict(full)
+    if axes:
+        out["sweep"]["axes"] = axes
+        out["roles"] = {**roles, "target": full.target}
     return plain(out)
 
 
@@ -629,7 +669,14 @@ def _grid_words(s: dict) -> str:
     else:
         p = "penalties " + ", ".join(_penalty_short(v) for v in pens)
     inter = ", with products of inputs" if s["sweep"]["interactions"] else ""
-    return f"{o} × {p}{inter} = {s['sweep']['cells']} cells"
+    ax = s["sweep"].get("axes") or {}
+    more = ""
+    if "lags" in ax:
+        more += (f" × {len(ax['lags']['depths'])} input lag depths"
+                 f" × {len(ax['lags']['target_depths'])} target lag depths")
+    if "inputs_ranked" in ax:
+        more += f" × {len(s['roles']['inputs'])} input counts"
+    return f"{o} × {p}{inter}{more} = {s['sweep']['cells']} cells"
 
 
 def _mse_words(c: dict, se_name: str = "") -> str:
@@ -642,7 +689,25 @@ def _mse_words(c: dict, se_name: str = "") -> str:
 
 def _headline(s: dict) -> str:
     r = s["recommended"]
-    return f"order {r['order']}, {_penalty_words(r['penalty'])}"
+    return (f"order {r['order']}, {_penalty_words(r['penalty'])}"
+            + rung_text(r.get("lags"), r.get("target_lags"), r.get("inputs_used")))
+
+
+def _axes_words(s: dict) -> list[str]:
+    """Sentences on the grid's other axes (lag depths, ranked inputs), for both summaries."""
+    ax = s["sweep"].get("axes")
+    if not ax:
+        return []
+    out = []
+    if "lags" in ax:
+        lg = ax["lags"]
+        out.append("Lag depths compared: inputs " + ", ".join(str(v) for v in lg["depths"])
+                   + "; target " + ", ".join(str(v) for v in lg["target_depths"]) + ".")
+    out += [n for n in s["sweep"]["notes"] if "past values" in n or "ranked" in n
+            or "first k inputs" in n]
+    if ax.get("chosen_columns"):
+        out.append("Columns of the recommended model: " + ", ".join(ax["chosen_columns"]) + ".")
+    return out
 
 
 def _input_range_words(s: dict, esc: Callable[[Any], str]) -> str:
@@ -660,13 +725,16 @@ def render_markdown(s: dict) -> str:
               f"{_num(r['validation_r2'])}; "
               f"{_num(r['effective_df'], 3)} effective parameters.", "",
               f"Why: {md_escape(r['reason'])}", "",
-              f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}: validation MSE "
+              f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}"
+              f"{rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used'))}: validation MSE "
               f"{_mse_words(b)}. "
               f"Rule: {md_escape(s['rule'])}.", ""]
     lines += ["## Data", "",
               f"- File: {escape_name(d['file'])}",
               f"- SHA-256: `{d['sha256'] or 'not from a file'}`",
-              f"- Rows used: {d['rows_used']} of {d['rows_in']}; dropped: {_drop_words_md(d)}",
+              f"- Rows used: {d['rows_used']} of {d['rows_in']}; dropped: {_drop_words_md(d)}"
+              + (f"; {d['rows_left_out_for_lags']} more left out at the start for lags"
+                 if d.get("rows_left_out_for_lags") else ""),
               f"- Target: {tgt}",
               f"- Inputs: {', '.join(md_escape(c) for c in roles['inputs'])}"]
     for key, label in (("order_column", "Order column"), ("group_column", "Group column"),
@@ -674,7 +742,18 @@ def render_markdown(s: dict) -> str:
         if roles.get(key):
             lines.append(f"- {label}: {escape_name(roles[key])}")
     lines += [f"- Validation: {md_escape(s['validation']['description'])}",
-              f"- Grid: {_grid_words(s)}", ""]
+              f"- Grid: {_grid_words(s)}"]
+    lines += [f"- {md_escape(w)}" for w in _axes_words(s)]
+    lines += [""]
+    if s.get("targets"):
+        lines += ["## Targets side by side", "",
+                  "| target | recommended | validation MSE | ± SE | validation R² | section |",
+                  "|---|---|---:|---:|---:|---|"]
+        for t in s["targets"]:
+            lines.append(f"| {escape_name(t['target'])} | {md_escape(t['recommended'])} | "
+                         f"{_num(t['validation_mse'])} | {_num(t['validation_mse_se'], 2)} | "
+                         f"{_num(t['validation_r2'])} | {md_escape(t.get('section', ''))} |")
+        lines += [""]
     lines += ["## Leading candidates", "",
               "| order | penalty | validation MSE | ± SE | validation R² | eff. parameters | role |",
               "|---:|---:|---:|---:|---:|---:|---|"]
@@ -885,7 +964,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
    MSE {_h(_mse_words(r, '1 SE'))} · R² {_num(r['validation_r2'])} ·
    {_num(r['effective_df'], 3)} effective parameters</div>
   <div>{_h(r['reason'])}</div>
-  <div style="margin-top:.8mm">Best cell: order {b['order']}, {_h(_penalty_words(b['penalty']))}
+  <div style="margin-top:.8mm">Best cell: order {b['order']}, {_h(_penalty_words(b['penalty']))}{_h(rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used')))}
    (MSE {_h(_mse_words(b))}).
    Chosen by the {_h(s['rule'].split(':')[0])}.</div>
  </div>
@@ -894,11 +973,11 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
   <dl>
    <dt>File</dt><dd>{_h(d['file'])}</dd>
    <dt>SHA-256</dt><dd><code>{_h(sha)}</code></dd>
-   <dt>Rows</dt><dd>{d['rows_used']} used of {d['rows_in']}; dropped: {_h(_drop_words(d))}</dd>
+   <dt>Rows</dt><dd>{d['rows_used']} used of {d['rows_in']}; dropped: {_h(_drop_words(d))}{f"; {d['rows_left_out_for_lags']} more left out at the start for lags" if d.get("rows_left_out_for_lags") else ""}</dd>
    <dt>Target</dt><dd>{tgt}</dd>
    <dt>Inputs</dt><dd>{inputs}</dd>{extra_roles}
    <dt>Validation</dt><dd>{_h(s['validation']['description'])}</dd>
-   <dt>Grid</dt><dd>{_h(_grid_words(s))}</dd>
+   <dt>Grid</dt><dd>{_h(_grid_words(s))}</dd>{"".join(f"<dt>Target</dt><dd>{_h(t['target'])}: {_h(t['recommended'])}, validation MSE {_h(_num(t['validation_mse']))} (folder {_h(t.get('section', ''))})</dd>" for t in s.get("targets") or [])}{"".join(f"<dt>Axes</dt><dd>{_h(w)}</dd>" for w in _axes_words(s))}
   </dl>
  </div>
 </div>
@@ -920,12 +999,54 @@ def _stage(progress: Progress | None, lo: float, hi: float) -> Progress | None:
     return lambda f, msg: progress(lo + (hi - lo) * float(f), msg)
 
 
+def targets_table(analyses: list[Analysis], folders: list[str] | None = None) -> pd.DataFrame:
+    """One row per target: its recommended cell side by side with the others'."""
+    rows = []
+    for i, a in enumerate(analyses):
+        r = a.recommendation.recommended
+        rows.append({"target": a.target, "recommended": r.label, "order": r.order,
+                     "penalty": r.penalty, "lags": r.lags, "target_lags": r.target_lags,
+                     "inputs_used": r.inputs_used, "validation_mse": r.validation_mse,
+                     "validation_mse_se": r.validation_mse_se,
+                     "validation_r2": r.validation_r2, "effective_df": r.effective_df,
+                     "section": (folders[i] if folders else "")})
+    t = pd.DataFrame(rows)
+    return t.dropna(axis=1, how="all")
+
+
+def _build_target_packs(out_dir, *, data, spec, analyses, progress, **kw) -> PackResult:
+    """A pack per target: the first at the top, the others in folders ``target_2``, ...
+
+    Every pack shows the side-by-side table of all targets (``targets.csv``).
+    """
+    from .analysis import analyse_targets
+    out = Path(out_dir)
+    if analyses is None:
+        analyses = analyse_targets(data, spec, progress=_stage(progress, 0.0, 0.3))
+    folders = ["."] + [f"target_{i}" for i in range(2, len(analyses) + 1)]
+    table = targets_table(analyses, folders)
+    first = None
+    for i, (a, folder) in enumerate(zip(analyses, folders)):
+        lo = 0.3 + 0.7 * i / len(analyses)
+        res = build_pack(out / folder, data=data, spec=spec, analysis=a, targets=table,
+                         progress=_stage(progress, lo, lo + 0.7 / len(analyses)), **kw)
+        first = first or res
+    try:
+        write_csv(table, out / TARGETS_FILE)
+    except OSError as exc:
+        raise InputProblem(f"Could not write the pack to '{out}': {exc.strerror or exc}. "
+                           "Choose a folder you can write to.", code="cannot_write") from None
+    first.files.append(out / TARGETS_FILE)
+    return first
+
+
 def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, data: DataLike,
                spec: SweepSpec, analysis: Analysis | None = None, checks: Any | None = None,
                compare_orders: Sequence[int | tuple[int, float]] | None = None,
                progress: Progress | None = None, load_options: dict | None = None,
                source_path: str | None = None,
-               model_file_in_background: bool = False) -> PackResult:
+               model_file_in_background: bool = False, analyses: list[Analysis] | None = None,
+               targets: pd.DataFrame | None = None) -> PackResult:
     """Write the meeting pack for one request into ``out_dir``.
 
     Parameters
@@ -959,16 +1080,28 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         outside the sweep.
     """
     out = Path(out_dir)
+    if spec.extra_targets and targets is None:
+        return _build_target_packs(out, data=data, spec=spec, analyses=analyses,
+                                   progress=progress, loaded=loaded, source_name=source_name,
+                                   checks=checks, compare_orders=compare_orders,
+                                   load_options=load_options, source_path=source_path,
+                                   model_file_in_background=model_file_in_background)
     if analysis is None:
         analysis = analyse(data, spec, progress=_stage(progress, 0.0, 0.55))
     elif analysis.spec != spec:
         raise InputProblem("The analysis given was run for another request; run it again "
                            "for this one.", code="stale_analysis")
+    # a grid over lag depths, input counts or targets: the recommended rung's columns
+    # stand in for the inputs in every step that fits or checks one cell
+    full = analysis
+    analysis = full.view()
+    source_data = data
+    data, _ = full.working(data, spec)
     cells = compare_cells(analysis, compare_orders)
     rec = analysis.recommendation.recommended
     if progress:
         progress(0.56, "Fitting the compared cells on all rows")
-    models = fit_candidates(data, spec, cells)
+    models = fit_candidates(data, analysis.spec, cells)
     model = models[_cell_key(rec.order, rec.penalty)]
     try:
         out.mkdir(parents=True, exist_ok=True)
@@ -979,7 +1112,7 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
     if progress:
         progress(0.62, "Learning curve")
     lc_orders = sorted({q for q, _ in learning_cells(cells)})
-    lc = learning_curve(data, spec, orders=lc_orders)
+    lc = learning_curve(data, analysis.spec, orders=lc_orders)
     # the charts need nothing from the checks: draw them in the background meanwhile
     if progress:
         progress(0.70, "Drawing charts")
@@ -992,11 +1125,17 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         from .checks import run_checks
         checks = run_checks(data, analysis, cells, progress=_stage(progress, 0.72, 0.76))
     findings = _finding_dicts(checks)
-    facts = _data_facts(data, loaded, source_name)
-    roles = _roles(data, spec)
+    facts = _data_facts(source_data, loaded, source_name)
+    if full.rows_left_out:
+        facts["rows_used"] = int(full.n_rows)
+        facts["rows_left_out_for_lags"] = int(full.rows_left_out)
+    roles = _roles(source_data, spec)
     candidates = leading_candidates(analysis)
-    summary = summary_dict(analysis, model, facts, roles, findings, cells, candidates, lc.note)
+    summary = summary_dict(analysis, model, facts, roles, findings, cells, candidates, lc.note,
+                           full=full)
     summary["checks"] = plain(_check_facts(checks))
+    if targets is not None:
+        summary["targets"] = plain(targets.to_dict(orient="records"))
     record = record_dict(spec, facts, roles, cells, load_options, source_path)
 
     if progress:
@@ -1028,10 +1167,10 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         for stem in CHART_FILES:
             put_bytes(f"{stem}.png", pngs[stem])
             put_text(f"{stem}.svg", svgs[stem])
-        written["validation_grid.csv"] = write_csv(analysis.validation,
+        written["validation_grid.csv"] = write_csv(full.validation,
                                                    out / "validation_grid.csv")
         written["learning_curve.csv"] = write_csv(lc.table, out / "learning_curve.csv")
-        written["coefficients.csv"] = write_csv(analysis.sweep.coefficient_table(),
+        written["coefficients.csv"] = write_csv(full.sweep.coefficient_table(),
                                                 out / "coefficients.csv")
         written["warnings.csv"] = write_csv(
             pd.DataFrame(findings, columns=["number", "code", "severity", "message", "value",
@@ -1047,7 +1186,7 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
     if progress:
         progress(1.0, "Pack written")
     return PackResult(out_dir=out, files=[written[n] for n in PACK_FILES if n in written],
-                      summary=summary, record=record, analysis=analysis, model=model)
+                      summary=summary, record=record, analysis=full, model=model)
 
 
 def pack_zip_bytes(out_dir: str | Path) -> bytes:
@@ -1063,6 +1202,13 @@ def pack_zip_bytes(out_dir: str | Path) -> bytes:
             p = out / name
             if p.is_file():
                 zf.write(p, arcname=f"{top}/{name}")
+        # several targets: the side-by-side table and one section (folder) per further target
+        if (out / TARGETS_FILE).is_file():
+            zf.write(out / TARGETS_FILE, arcname=f"{top}/{TARGETS_FILE}")
+            for sub in sorted(out.glob("target_*")):
+                for name in PACK_FILES:
+                    if (sub / name).is_file():
+                        zf.write(sub / name, arcname=f"{top}/{sub.name}/{name}")
     return buf.getvalue()
 
 

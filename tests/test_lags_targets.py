@@ -254,3 +254,57 @@ def test_view_is_the_plain_analysis_of_the_chosen_columns():
     plain = analyse(a.model_data, v.spec)
     np.testing.assert_allclose(v.sweep.valid_mse, plain.sweep.valid_mse, rtol=1e-10)
     assert len(v.validation) == 4 and len(a.validation) == 2 * 3 * 4
+
+
+def test_command_line_lags_and_two_targets_pack_and_rerun(tmp_path, capsys):
+    # one pack section per target, grid rows with the new keys, rerun gives the same summary
+    import json
+
+    from engine.cli import main
+
+    x, y = simulate_ar2(3, n=240)
+    rng = np.random.default_rng(1)
+    f = pd.DataFrame({"t": np.arange(x.size), "x": x, "y": y,
+                      "z": 0.5 * x ** 2 + 0.2 * rng.normal(size=x.size)})
+    src = tmp_path / "log.csv"
+    f.to_csv(src, index=False)
+    out = tmp_path / "pack"
+    code = main(["run", str(src), "--target", "y", "--more-targets", "z", "--inputs", "x",
+                 "--order-column", "t", "--scheme", "blocked", "--folds", "4", "--gap", "3",
+                 "--lags", "0-4", "--target-lags", "0-3", "--max-order", "1",
+                 "--penalties", "0,1", "--out", str(out)])
+    printed = capsys.readouterr().out
+    assert code == 0, printed
+    assert "input lags 3, target lags 2" in printed and "Target z:" in printed
+    s = json.loads((out / "summary.json").read_text())
+    assert s["recommended"]["lags"] == 3 and s["recommended"]["target_lags"] == 2
+    assert len(s["grid"]) == 5 * 4 * 2 * 2
+    assert {"lags", "target_lags", "target", "order", "penalty", "validation_mse"} <= set(s["grid"][0])
+    assert s["sweep"]["axes"]["lags"]["rows_left_out"] == 4
+    assert s["data"]["rows_used"] == x.size - 4
+    assert [t["target"] for t in s["targets"]] == ["y", "z"]
+    z = json.loads((out / "target_2" / "summary.json").read_text())
+    assert z["roles"]["target"] == "z" and all(r["target"] == "z" for r in z["grid"])
+    md = (out / "summary.md").read_text()
+    assert "Targets side by side" in md and "left out at every lag depth" in md
+    again = tmp_path / "again"
+    assert main(["rerun", str(out / "record.json"), "--out", str(again)]) == 0
+    assert (again / "summary.json").read_text() == (out / "summary.json").read_text()
+    from engine.pack import pack_zip_bytes
+    import io
+    import zipfile
+    names = zipfile.ZipFile(io.BytesIO(pack_zip_bytes(out))).namelist()
+    assert "pack/targets.csv" in names and "pack/target_2/summary.json" in names
+
+
+def test_plain_grid_rows_keep_their_keys():
+    # a request without the new axes gives grid rows without the new keys
+    from engine.pack import _GRID_KEYS, _cell_dict, _grid_keys
+
+    x, y = simulate_ar2(4, n=80)
+    a = analyse(ArrayData(x, y, ("x",), "y"), SweepSpec("y", ("x",), max_order=2,
+                                                        penalties=(0.0, 1.0)))
+    assert _grid_keys(a.validation) == _GRID_KEYS
+    assert not {"lags", "target_lags", "inputs_used", "target"} & set(
+        _cell_dict(a.recommendation.recommended))
+    assert a.view() is a and a.working("d", "s") == ("d", "s")
