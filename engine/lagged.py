@@ -83,6 +83,11 @@ class LagSpec:
                 raise InputProblem(f"Column '{name}' is chosen for lags but is not one of the "
                                    "inputs; add it to the inputs or drop it from the lags.",
                                    code="bad_lags", column=name)
+        if (self.max_depth > 0 and getattr(scheme, "rows_in_time_order", None) is False
+                and not scheme.order_column):
+            raise InputProblem("Past values need rows in time order: choose an order/time "
+                               "column, or say that the file's rows are in time order.",
+                               code="lags_need_order")
         if self.max_target_depth > 0:
             kind = scheme.kind
             if kind not in TIME_SCHEMES:

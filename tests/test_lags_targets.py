@@ -308,3 +308,12 @@ def test_plain_grid_rows_keep_their_keys():
     assert not {"lags", "target_lags", "inputs_used", "target"} & set(
         _cell_dict(a.recommendation.recommended))
     assert a.view() is a and a.working("d", "s") == ("d", "s")
+
+
+def test_lags_refused_when_rows_are_said_not_to_be_in_time_order():
+    x, y = simulate_ar2(0, n=60)
+    spec = SweepSpec("y", ("x",), max_order=1, lags=LagSpec(depths=(0, 2)),
+                     scheme=SchemeSpec("kfold", rows_in_time_order=False))
+    with pytest.raises(InputProblem, match="time order") as err:
+        analyse(ArrayData(x, y, ("x",), "y"), spec)
+    assert err.value.code == "lags_need_order"
