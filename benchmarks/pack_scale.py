@@ -33,8 +33,10 @@ STEPS = [
     ("Reading", "read"), ("Preparing", "prepare"), ("Summarising", "sweep"),
     ("Fitting order", "sweep"), ("Leave-one-out", "sweep"),
     ("Fitting the compared", "side-by-side fits"), ("Learning curve", "learning curve"),
-    ("Checks", "checks"), ("Check", "checks"), ("Drawing", "charts"), ("Drawn", "charts"),
-    ("Writing", "write files"), ("Pack written", "done"),
+    ("Checks", "checks"), ("Check", "checks"), ("Drawing", "charts (built; drawn in background)"),
+    ("Drawn", "charts"), ("Looking", "checks"), ("Comparing", "checks"), ("Probing", "checks"),
+    ("Computing", "checks"), ("Counting", "checks"),
+    ("Writing", "model file, waiting for charts, write files"), ("Pack written", "done"),
 ]
 
 

@@ -250,11 +250,13 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
                     plan=plan, n_rows=int(len(data.y)), notes=list(res.notes))
 
 
-def fit_cell(data: DataLike, spec: SweepSpec, order: int, penalty: float) -> FinalModel:
-    """Fit one cell on all rows (see `engine.final_fit.fit_final`)."""
+def fit_cell(data: DataLike, spec: SweepSpec, order: int, penalty: float,
+             summary=None) -> FinalModel:
+    """Fit one cell on all rows (see `engine.final_fit.fit_final`; ``summary``:
+    all-rows summaries to solve from, `engine.summaries.summarise_rows`)."""
     _check_data(data, spec)
     return fit_final(data.X, data.y, spec.inputs, order, penalty, spec.interactions,
-                     target=spec.target)
+                     target=spec.target, summary=summary)
 
 
 def train_sizes(fractions, n_max: int) -> np.ndarray:
@@ -298,6 +300,69 @@ def learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None = N
         return _learning_curve(data, spec, orders, plan)
 
 
+def _learning_statistics(basis: PolynomialBasis, data: DataLike, plan: FoldPlan, sizes):
+    """Per split: training summaries of the first ``size`` training rows (row order)
+    for every size, and the validation summary.
+
+    One pass over the rows per round of splits: rows are cut into pieces by
+    (round piece, row block), the blocks bounded by every split's cut rows, so
+    each prefix of each split's training rows is a union of pieces. Falls back
+    to one pass per split when those pieces would not fit in memory.
+
+    Yields ``(split, cuts, (n_t, m_t, M_t), (n_v, m_v, M_v))``.
+    """
+    n = len(data.y)
+    q = basis.n_terms + 1
+    by_round: dict[int, list[int]] = {}
+    for i, (r, _) in enumerate(plan.split_round):
+        by_round.setdefault(r, []).append(i)
+    for r, members in by_round.items():
+        rnd = plan.rounds[r]
+        cut_rows = {}
+        bounds = {0, n}
+        for i in members:
+            tr = plan.train_sets[i]
+            cuts = [min(int(c), len(tr)) for c in sizes]
+            b = [int(tr[c - 1]) + 1 if c > 0 else 0 for c in cuts]
+            cut_rows[i] = (cuts, b)
+            bounds.update(b)
+        B = np.array(sorted(bounds))
+        nb = len(B) - 1
+        L = rnd.n_pieces * nb
+        if L * q * q * 8 > 1.5e9:      # too many pieces for memory: one pass per split
+            for i in members:
+                yield (i, *_split_learning_statistics(basis, data, plan, i, sizes))
+            continue
+        block = np.searchsorted(B, np.arange(n), side="right") - 1
+        labels = np.where(rnd.pieces >= 0, rnd.pieces * nb + block, -1)
+        st = piece_statistics(basis, data.X, data.y, labels, L)
+        for i in members:
+            j = plan.split_round[i][1]
+            cuts, b = cut_rows[i]
+            train = rnd.train[j] > 0
+            sel = np.stack([np.outer(train, np.arange(nb) < np.searchsorted(B, bz)).ravel()
+                            for bz in b])
+            valid = np.outer(rnd.valid[j] > 0, np.ones(nb, bool)).ravel()[None, :]
+            yield i, cuts, combine_batch(st, sel), combine_batch(st, valid)
+
+
+def _split_learning_statistics(basis, data, plan, i, sizes):
+    """`_learning_statistics` for one split, by its own pass over the rows."""
+    tr, va = plan.train_sets[i], plan.valid_sets[i]
+    cuts = [min(int(c), len(tr)) for c in sizes]
+    labels = np.full(len(data.y), -1, dtype=np.int64)
+    prev = 0
+    for j, c in enumerate(cuts):
+        labels[tr[prev:c]] = j
+        prev = max(prev, c)
+    labels[va] = len(cuts)
+    st = piece_statistics(basis, data.X, data.y, labels, len(cuts) + 1)
+    # cumulative training sets: prefixes of the chunks, all sizes at once
+    sel = np.tril(np.ones((len(cuts), len(cuts) + 1)))
+    sel[:, -1] = 0
+    return cuts, combine_batch(st, sel), (st.n[-1:], st.mean[-1:], st.comoment[-1:])
+
+
 def _learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None,
                     plan: FoldPlan | None) -> LearningCurve:
     spec.validate()
@@ -316,20 +381,8 @@ def _learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None,
     pen = np.asarray(spec.penalties, float)
     sizes = train_sizes(spec.learning_sizes, len(plan.train_sets[0]))
     rows = []
-    for s, (tr, va) in enumerate(zip(plan.train_sets, plan.valid_sets)):
-        cuts = [min(int(c), len(tr)) for c in sizes]
-        labels = np.full(len(data.y), -1, dtype=np.int64)
-        prev = 0
-        for j, c in enumerate(cuts):
-            labels[tr[prev:c]] = j
-            prev = max(prev, c)
-        labels[va] = len(cuts)
-        st = piece_statistics(basis, data.X, data.y, labels, len(cuts) + 1)
-        n_v, m_v, M_v = st.n[-1:], st.mean[-1:], st.comoment[-1:]
-        # cumulative training sets: prefixes of the chunks, all sizes at once
-        sel = np.tril(np.ones((len(cuts), len(cuts) + 1)))
-        sel[:, -1] = 0
-        n_t, m_t, M_t = combine_batch(st, sel)
+    for s, cuts, (n_t, m_t, M_t), (n_v, m_v, M_v) in _learning_statistics(basis, data, plan,
+                                                                           sizes):
         last = M_t.shape[1] - 1
         for q in orders:
             p = basis.n_terms_at(q)

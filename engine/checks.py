@@ -28,6 +28,8 @@ from .design import PolynomialBasis
 from .errors import InputProblem
 from .final_fit import FinalModel, fit_final
 from .spec import SchemeSpec
+from .summaries import (LARGE_ROWS, SAMPLE_ROWS, SHIFT_SAMPLE_ROWS, fold_summaries,
+                        out_of_fold_from_summaries, seeded_sample, split_leverage)
 
 Progress = Callable[[float, str], None]
 
@@ -530,7 +532,7 @@ def _first_round(analysis: Analysis) -> list[tuple[np.ndarray, np.ndarray]]:
 
 
 def out_of_fold_residuals(data: DataLike, analysis: Analysis, order: int,
-                          penalty: float) -> tuple[np.ndarray, np.ndarray]:
+                          penalty: float, fold_stats=None) -> tuple[np.ndarray, np.ndarray]:
     """Validation residuals of one cell, each row from a fit that did not see it.
 
     The cell is refitted on the training rows of each split of the analysis's
@@ -544,6 +546,9 @@ def out_of_fold_residuals(data: DataLike, analysis: Analysis, order: int,
     """
     X, y = np.asarray(data.X, float), np.asarray(data.y, float)
     spec = analysis.spec
+    if fold_stats is not None and not analysis.plan.loo:
+        # the same fits from each split's training summaries (`engine.summaries`)
+        return out_of_fold_from_summaries(fold_stats, X, y, order, penalty)
     if analysis.plan.loo:
         e = y - fit_predict(X, y, X, spec.inputs, order, penalty, spec.interactions)
         Ft, _ = model_terms(X, None, spec.inputs, order, penalty, spec.interactions)
@@ -683,7 +688,8 @@ def suggested_gap(r: float, n: int, folds: int) -> int:
 # ---------------------------------------------------------------------------
 def check_serial_dependence(data: DataLike, analysis: Analysis,
                             final_model: FinalModel | None = None,
-                            basis: RowOrder | None = None) -> tuple[Finding | None, pd.DataFrame, pd.DataFrame | None]:
+                            basis: RowOrder | None = None, fold_stats=None
+                            ) -> tuple[Finding | None, pd.DataFrame, pd.DataFrame | None]:
     """Are neighbouring rows dependent, and does the scheme account for it?
 
     Computes the lag-1 autocorrelation of the target and of the recommended
@@ -713,7 +719,8 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
         final_model = fit_final(X, y, spec.inputs, rec.order, rec.penalty, spec.interactions,
                                 target=spec.target)
     r_target = lag1_autocorrelation(y)
-    rows, oof = out_of_fold_residuals(data, analysis, rec.order, rec.penalty)
+    rows, oof = out_of_fold_residuals(data, analysis, rec.order, rec.penalty,
+                                      fold_stats=fold_stats)
     contiguous = rows.size > 2 and np.all(np.diff(rows) == 1)
     # residual autocorrelation over consecutive validated rows only
     if contiguous or rows.size == n:
@@ -942,6 +949,13 @@ def check_period_shift(data: DataLike, analysis: Analysis,
     """
     before, after, how = period_rows(data, analysis)
     X = np.asarray(data.X, float)
+    if before.size > SHIFT_SAMPLE_ROWS or after.size > SHIFT_SAMPLE_ROWS:
+        # large tables: a stated, seeded sample of each period (`engine.summaries`)
+        seed = int(analysis.spec.seed)
+        before = seeded_sample(before, SHIFT_SAMPLE_ROWS, seed)
+        after = seeded_sample(after, SHIFT_SAMPLE_ROWS, seed + 1)
+        how += (f", on a seeded sample of {_rows(before.size)} and {_rows(after.size)} rows "
+                f"(seed {seed})")
     table = shift_table(X[before], X[after], analysis.spec.inputs)
     table.insert(0, "comparison", how)
     moved = table[table["moved"]]
@@ -1073,7 +1087,8 @@ def check_extrapolation(data: DataLike, models: dict[tuple[int, float], FinalMod
 
 
 def check_leverage(data: DataLike, analysis: Analysis,
-                   cells: list[tuple[int, float]]) -> tuple[Finding | None, pd.DataFrame]:
+                   cells: list[tuple[int, float]], fold_stats=None
+                   ) -> tuple[Finding | None, pd.DataFrame]:
     """Do held-out rows lie far from the rows each fit learned from?
 
     For each candidate and each split of the analysis's first round, the
@@ -1091,7 +1106,19 @@ def check_leverage(data: DataLike, analysis: Analysis,
         val_above = val_total = tr_above = tr_total = 0
         max_lev = 0.0
         thresholds = []
-        if analysis.plan.loo:
+        sampled = False
+        if fold_stats is not None and not analysis.plan.loo:
+            # large tables: fits and thresholds from summaries, shares on a seeded sample
+            for part in split_leverage(fold_stats, X, q, a, int(spec.seed),
+                                       SAMPLE_ROWS):
+                thresholds.append(part["threshold"])
+                val_above += part["validation_share_above"] * part["validation_rows"]
+                val_total += part["validation_rows"]
+                tr_above += part["training_share_above"] * part["training_rows"]
+                tr_total += part["training_rows"]
+                max_lev = max(max_lev, part["max_validation_leverage"])
+                sampled = sampled or part["sampled"]
+        elif analysis.plan.loo:
             Ft, _ = model_terms(X, None, spec.inputs, q, a, spec.interactions)
             h = leverage(Ft, None, a)
             n = X.shape[0]
@@ -1119,10 +1146,11 @@ def check_leverage(data: DataLike, analysis: Analysis,
                      "validation_share_above": val_above / max(val_total, 1),
                      "training_share_above": tr_above / max(tr_total, 1),
                      "max_validation_leverage": max_lev,
-                     "validation_rows": val_total})
+                     "validation_rows": val_total, "sampled": sampled})
     table = pd.DataFrame(rows, columns=["model", "order", "penalty", "threshold",
                                         "validation_share_above", "training_share_above",
-                                        "max_validation_leverage", "validation_rows"])
+                                        "max_validation_leverage", "validation_rows",
+                                        "sampled"])
     if table.empty:
         return None, table
     excess = table["validation_share_above"] - table["training_share_above"]
@@ -1221,8 +1249,16 @@ def check_conditioning(data: DataLike, models: dict[tuple[int, float], FinalMode
     X = np.asarray(data.X, float)
     rows = []
     for (q, a), m in models.items():
-        c = float(m.condition_number) if a == 0 else penalised_condition_number(
-            X, m.input_names, q, a, interactions)
+        sv = getattr(m, "design_singular_values", None)
+        if a == 0:
+            c = float(m.condition_number)
+        elif sv is not None and len(sv):
+            # the fit's own singular values (missing ones, terms beyond rows, count as 0)
+            s2 = np.r_[np.asarray(sv, float), np.zeros(max(len(m.terms) - 1 - len(sv), 0))] ** 2
+            low = s2.min() + a
+            c = float(np.sqrt((s2.max() + a) / low)) if low > 0 else float("inf")
+        else:
+            c = penalised_condition_number(X, m.input_names, q, a, interactions)
         rows.append({"model": _model_name(q, a), "order": q, "penalty": a,
                      "condition_number": c, "design_condition_number": float(m.condition_number)})
     table = pd.DataFrame(rows, columns=["model", "order", "penalty", "condition_number",
@@ -1345,7 +1381,8 @@ def default_candidates(analysis: Analysis) -> list[tuple[int, float]]:
 
 def run_checks(data: DataLike, analysis: Analysis,
                candidates: list[tuple[int, float]] | None = None,
-               progress: Progress | None = None) -> CheckReport:
+               progress: Progress | None = None,
+               models: dict[tuple[int, float], FinalModel] | None = None) -> CheckReport:
     """Run every warning-sign check on a finished analysis.
 
     Parameters
@@ -1357,6 +1394,8 @@ def run_checks(data: DataLike, analysis: Analysis,
         rows per parameter and conditioning; default the recommended and best
         cells.
     progress : called as ``progress(fraction_done, message)``.
+    models : the candidates already fitted on all rows (`engine.compare.fit_candidates`),
+        so that they are fitted once; missing ones are fitted here.
 
     Returns
     -------
@@ -1366,10 +1405,11 @@ def run_checks(data: DataLike, analysis: Analysis,
         train/validation gap; tables for each.
     """
     with single_threaded_blas():
-        return _run_checks(data, analysis, candidates, progress)
+        return _run_checks(data, analysis, candidates, progress, models)
 
 
-def _run_checks(data: DataLike, analysis: Analysis, candidates, progress) -> CheckReport:
+def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
+                fitted=None) -> CheckReport:
     def tick(f: float, msg: str) -> None:
         if progress:
             progress(f, msg)
@@ -1379,8 +1419,20 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress) -> Che
         (int(q), float(a)) for q, a in candidates]
     rec = analysis.recommendation.recommended
     tick(0.0, "Fitting the candidates on all rows")
-    models = fit_candidates(data, spec, cells)
+    fitted = dict(fitted or {})
+    missing = [c for c in cells if c not in fitted]
+    if missing:
+        fitted.update(fit_candidates(data, spec, missing))
+    models = {c: fitted[c] for c in cells}
     rec_key = (int(rec.order), float(rec.penalty))
+    fold_stats = None
+    if np.asarray(data.y).size >= LARGE_ROWS and not analysis.plan.loo:
+        # large tables: one pass gives every split's training summaries, shared by the
+        # residual and leverage checks (no refits on the rows)
+        top = max([q for q, _ in cells] + [int(rec.order)])
+        design = PolynomialBasis.fit(np.asarray(data.X, float), spec.inputs, top,
+                                     spec.interactions)
+        fold_stats = fold_summaries(data.X, data.y, design, analysis.plan)
     rec_model = models.get(rec_key) or fit_candidates(data, spec, [rec_key])[rec_key]
     report = CheckReport()
     summary = []
@@ -1400,7 +1452,8 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress) -> Che
                     "monotone function)"))
 
     tick(0.15, "Checking for dependence between neighbouring rows")
-    f, t_serial, comparison = check_serial_dependence(data, analysis, rec_model, basis)
+    f, t_serial, comparison = check_serial_dependence(data, analysis, rec_model, basis,
+                                                      fold_stats=fold_stats)
     report.tables["serial"] = t_serial
     if comparison is not None:
         report.tables["scheme_comparison"] = comparison
@@ -1422,7 +1475,16 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress) -> Che
                     "range beyond that range"))
 
     tick(0.7, "Computing leverage of held-out rows")
-    f4, t_lev = check_leverage(data, analysis, cells)
+    f4, t_lev = check_leverage(data, analysis, cells, fold_stats=fold_stats)
+    if len(t_lev) and "sampled" in t_lev and bool(t_lev["sampled"].any()):
+        report.notes.append(
+            f"Leverage: thresholds and fits from all rows; the shares of rows above the "
+            f"threshold were counted on a seeded sample of at most {SAMPLE_ROWS:,} training "
+            f"and {SAMPLE_ROWS:,} held-out rows per split (seed {int(spec.seed)}).")
+    if fold_stats is not None:
+        report.notes.append(
+            "Out-of-fold residuals: each split's fit solved from its training summaries, "
+            "residuals of every held-out row in one pass over the rows (no sample).")
     report.tables["leverage"] = t_lev
     exc = (t_lev["validation_share_above"] - t_lev["training_share_above"]).max() if len(t_lev) else float("nan")
     summary.append(("high_leverage", f4, float(exc),

@@ -361,6 +361,7 @@ def command_run(args: argparse.Namespace) -> int:
     progress = _StderrProgress()
     progress(0.0, f"Reading {args.data}")
     loaded = _load(args.data, decimal=decimal, sheet=args.sheet)
+    progress(0.0, "Preparing the chosen columns")
     more = tuple(args.more_targets or ())
     inputs = args.inputs if args.inputs is not None else _default_inputs(
         loaded, args.target, (args.order_column, args.group_column, args.split_column) + more)

@@ -5,6 +5,8 @@ import numpy as np
 import pandas as pd
 
 from .analysis import DataLike, fit_cell
+from .design import PolynomialBasis
+from .summaries import LARGE_ROWS, summarise_rows
 from .final_fit import FinalModel
 from .labels import penalty_text
 from .spec import SweepSpec
@@ -15,16 +17,25 @@ def fit_candidates(data: DataLike, spec: SweepSpec,
                    cells: list[tuple[int, float]]) -> dict[tuple[int, float], FinalModel]:
     """Fit each (order, penalty) cell on all rows.
 
+    From `engine.summaries.LARGE_ROWS` rows on, every cell is solved from one
+    shared pass of cross-product summaries at the highest order asked for
+    (`engine.final_fit.fit_final` with ``summary``); below, by QR on the rows.
+
     Returns
     -------
     dict mapping ``(order, penalty)`` to its `FinalModel`, in the given order.
     """
     out: dict[tuple[int, float], FinalModel] = {}
+    keys = list(dict.fromkeys((int(q), float(a)) for q, a in cells))
     with one_thread():
-        for q, a in cells:
-            key = (int(q), float(a))
-            if key not in out:
-                out[key] = fit_cell(data, spec, key[0], key[1])
+        summary = None
+        if keys and np.asarray(data.y).size >= LARGE_ROWS:
+            # one pass over the rows at the highest order serves every candidate
+            basis = PolynomialBasis.fit(np.asarray(data.X, float), spec.inputs,
+                                        max(q for q, _ in keys), spec.interactions)
+            summary = summarise_rows(data.X, data.y, basis)
+        for key in keys:
+            out[key] = fit_cell(data, spec, key[0], key[1], summary=summary)
     return out
 
 

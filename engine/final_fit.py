@@ -18,6 +18,9 @@ from .design import PolynomialBasis, chebyshev_columns, chebyshev_table
 from .errors import InputProblem
 
 
+_PREDICT_CHUNK = 65_536
+
+
 @dataclass
 class FinalModel:
     """A fitted polynomial model in original units.
@@ -60,6 +63,8 @@ class FinalModel:
     x_min: np.ndarray
     x_max: np.ndarray
     notes: list[str] = field(default_factory=list)
+    #: singular values of the centred, standardised raw-term design (largest first)
+    design_singular_values: np.ndarray | None = None
 
     def predict(self, X) -> np.ndarray:
         """Predictions for raw inputs ``X`` of shape (m, d) (or (m,) with one input)."""
@@ -70,6 +75,9 @@ class FinalModel:
             raise InputProblem(f"Expected {len(self.input_names)} input columns "
                                f"({', '.join(self.input_names)}), got {X.shape[1]}.",
                                code="bad_predict_input")
+        if X.shape[0] > _PREDICT_CHUNK:   # bounded memory: the powers of one chunk at a time
+            return np.concatenate([self.predict(X[i:i + _PREDICT_CHUNK])
+                                   for i in range(0, X.shape[0], _PREDICT_CHUNK)])
         U = (X - self.centre) / self.half_range
         out = np.full(X.shape[0], self.scaled_intercept)
         if not len(self.exponents):
@@ -178,9 +186,71 @@ def _too_large(order: int) -> InputProblem:
 # ---------------------------------------------------------------------------
 # public entry point
 # ---------------------------------------------------------------------------
+def _solve_from_summary(summary, X: np.ndarray, y: np.ndarray, order: int, penalty: float,
+                        As: np.ndarray, r: np.ndarray, a0: np.ndarray, refine: int = 1):
+    """The fit from all-rows cross-product summaries (large tables).
+
+    Least squares is solved on the standardised Chebyshev working basis by a
+    rank-tolerant eigen-decomposition and refined with ``refine`` streamed
+    passes of residuals (seminormal refinement); ridge on standardised raw
+    terms, as in the sweep. Singular values of the standardised raw-term design
+    come from the eigenvalues of its cross-product matrix.
+
+    Returns
+    -------
+    (chebyshev coefficients incl. intercept, edf, rank, sv, dsd_s)
+    """
+    basis = summary.basis
+    p, m, M = summary.block(order)
+    n = summary.n
+    Mff, Mfy = M[:p, :p], M[:p, p]
+    ybar = float(m[p])
+    Mraw = As @ Mff @ As.T
+    dsd_s = np.sqrt(np.clip(np.diag(Mraw), 0, None) / n)
+    safe = np.where(dsd_s > 0, dsd_s, 1.0)
+    C = Mraw / np.outer(safe, safe)
+    C = (C + C.T) / 2
+    if penalty == 0:
+        du = np.sqrt(np.clip(np.diag(Mff), 0, None) / n)
+        du = np.where(du > 0, du, 1.0)
+        lam, Q = np.linalg.eigh(Mff / np.outer(du, du))
+        tol = max(float(lam[-1]), 0.0) * max(p, 10) * np.finfo(float).eps * 10
+        keep = lam > tol
+        inv = np.where(keep, 1.0 / np.where(keep, lam, 1.0), 0.0)
+
+        def solve(v):
+            return (Q @ (inv * (Q.T @ (v / du)))) / du
+
+        b = solve(Mfy)
+        U = basis.scale(X)
+        mf = m[:p]
+        for _ in range(refine):
+            g = np.zeros(p)
+            for c0 in range(0, y.size, _PREDICT_CHUNK):
+                F = basis.expand_scaled(U[c0:c0 + _PREDICT_CHUNK], order=order) - mf
+                res = (y[c0:c0 + _PREDICT_CHUNK] - ybar) - F @ b
+                g += F.T @ res
+            b = b + solve(g)
+        g_all = np.r_[ybar - float(mf @ b), b]
+        rank = int(keep.sum()) + 1
+        lam_raw = np.clip(np.linalg.eigvalsh(C), 0, None)
+        edf = float(min(rank, n))
+    else:
+        lam_raw, Qr = np.linalg.eigh(C)
+        lam_raw = np.clip(lam_raw, 0, None)
+        c = (As @ Mfy) / safe
+        w = Qr @ ((Qr.T @ c) / (lam_raw + penalty))
+        beta_c = As.T @ (w / safe)
+        g_all = np.r_[ybar - float(m[:p] @ beta_c), beta_c]
+        rank = p + 1
+        edf = 1.0 + float(np.sum(lam_raw / (lam_raw + penalty)))
+    sv = np.sqrt(np.sort(lam_raw)[::-1])
+    return g_all, edf, rank, sv, dsd_s
+
+
 def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: float = 0.0,
               interactions: bool = False, target: str = "y",
-              basis: PolynomialBasis | None = None) -> FinalModel:
+              basis: PolynomialBasis | None = None, summary=None) -> FinalModel:
     """Fit the model of ``order`` and ``penalty`` on all rows.
 
     Parameters
@@ -192,6 +262,9 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
     interactions : include products of inputs.
     target : name of the target, for reports.
     basis : scaling to use; fitted on ``X`` when None.
+    summary : all-rows summaries (`engine.summaries.RowSummary`) of ``X`` and
+        ``y``; when given, the fit is solved from them (large tables: no
+        full design in memory) instead of by QR on the rows.
 
     Returns
     -------
@@ -202,6 +275,10 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         X = X[:, None]
     y = np.asarray(y, dtype=float)
     n, d = X.shape
+    if summary is not None and summary.basis.max_order >= order:
+        basis = summary.basis
+    else:
+        summary = None
     if basis is None or basis.max_order < order:
         basis = PolynomialBasis.fit(X, input_names, order, interactions)
     p = basis.n_terms_at(order)
@@ -214,12 +291,23 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
     A, a0 = basis.raw_map(order)
     if not (np.all(np.isfinite(A)) and np.all(np.isfinite(a0))):
         raise _too_large(order)
-    Fu = basis.expand_scaled(U, order=order) if p else np.zeros((n, 0))
     # each raw term divided by the largest entry of its row of A (raw powers can be
     # huge); standardisation removes the factor again
     r = np.abs(A).max(axis=1) if p else np.ones(0)
     r = np.where(r > 0, r, 1.0)
     As = A / r[:, None] if p else A
+    if summary is not None and p:
+        g, edf, rank, sv, dsd_s = _solve_from_summary(summary, X, y, order, penalty, As, r, a0)
+        if rank < p + 1:
+            notes.append(f"The design has rank {rank} for {p + 1} parameters: some terms are "
+                         "exact combinations of others; the minimum-norm solution is reported.")
+        cond = float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf")
+        dsd = dsd_s * r
+        poly_u = _chebyshev_to_monomials(np.vstack([np.zeros((1, d), int), E]),
+                                         [Fraction(float(v)) for v in g])
+        return _finish(basis, X, y, order, penalty, input_names, target, E, poly_u,
+                       scale_u, shift_u, dsd, cond, edf, notes, sv)
+    Fu = basis.expand_scaled(U, order=order) if p else np.zeros((n, 0))
     raw_s = Fu @ As.T + a0 / r if p else Fu
     raw_mean_s = raw_s.mean(axis=0) if p else np.zeros(0)
     dsd_s = raw_s.std(axis=0) if p else np.zeros(0)
@@ -252,7 +340,15 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         poly_u = _chebyshev_to_monomials(np.vstack([np.zeros((1, d), int), E]),
                                          [Fraction(b0c)] + [Fraction(float(b)) for b in beta_c])
         edf = 1.0 + float(np.sum(sv ** 2 / (sv ** 2 + penalty)))
-    # exact map to raw powers
+    return _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u,
+                   shift_u, dsd, cond, edf, notes, sv if p else None)
+
+
+def _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u, shift_u,
+            dsd, cond, edf, notes, sv) -> FinalModel:
+    """Exact map to raw powers, the model, and its fit summaries."""
+    n, d = X.shape
+    ybar = float(np.mean(y))
     poly_x = _substitute(poly_u, scale_u, shift_u)
     zero = tuple([0] * d)
     keys = [tuple(int(v) for v in e) for e in E]
@@ -269,7 +365,8 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         centre=basis.centre.copy(), half_range=basis.half_range.copy(), exponents=E.copy(),
         scaled_intercept=su_int, scaled_coefficients=su, condition_number=cond, n_rows=n,
         r2=float("nan"), residual_sd=float("nan"), train_mse=float("nan"), effective_df=edf,
-        x_min=X.min(axis=0), x_max=X.max(axis=0), notes=notes)
+        x_min=X.min(axis=0), x_max=X.max(axis=0), notes=notes,
+        design_singular_values=None if sv is None else np.asarray(sv, float))
     resid = y - model.predict(X)
     sse = float(resid @ resid)
     sst = float(np.sum((y - ybar) ** 2))

@@ -1123,7 +1123,8 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         if progress:
             progress(0.72, "Checks")
         from .checks import run_checks
-        checks = run_checks(data, analysis, cells, progress=_stage(progress, 0.72, 0.76))
+        checks = run_checks(data, analysis, cells, progress=_stage(progress, 0.72, 0.76),
+                            models=models)
     findings = _finding_dicts(checks)
     facts = _data_facts(source_data, loaded, source_name)
     if full.rows_left_out:

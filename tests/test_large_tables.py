@@ -1,0 +1,91 @@
+"""Large-table routes (summaries, streamed passes, seeded samples) against the row-wise routes.
+
+The row-wise routes are themselves checked against scikit-learn and NIST
+elsewhere; here the same request runs both ways on a table small enough for
+both, with the size switch lowered.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from engine import ArrayData, SchemeSpec, SweepSpec, analyse
+from engine import checks as C
+from engine import compare, summaries
+
+
+def _data(n=3000, seed=0):
+    rng = np.random.default_rng(seed)
+    X = rng.uniform(-2, 3, size=(n, 3)) + [10, 0, 100]
+    e = np.zeros(n)
+    for i in range(1, n):          # serially dependent noise
+        e[i] = 0.7 * e[i - 1] + rng.normal(0, 0.3)
+    y = 1 + 0.5 * X[:, 0] - 0.2 * X[:, 1] ** 2 + 0.01 * X[:, 2] + e
+    return ArrayData(X, y, inputs=("a", "b", "c"), target="y")
+
+
+@pytest.fixture
+def large_route(monkeypatch):
+    """Switch the large-table routes on for small tables (and sample nothing)."""
+    def on(sample_rows=10**9):
+        monkeypatch.setattr(compare, "LARGE_ROWS", 100)
+        monkeypatch.setattr(C, "LARGE_ROWS", 100)
+        monkeypatch.setattr(summaries, "SAMPLE_ROWS", sample_rows)
+        monkeypatch.setattr(C, "SAMPLE_ROWS", sample_rows)
+    return on
+
+
+@pytest.mark.parametrize("scheme", [SchemeSpec("kfold", folds=5), SchemeSpec("blocked", folds=4, gap=10)])
+def test_checks_from_summaries_match_the_row_wise_checks(scheme, large_route, monkeypatch):
+    data = _data()
+    spec = SweepSpec("y", ("a", "b", "c"), max_order=3, scheme=scheme, seed=3)
+    analysis = analyse(data, spec)
+    cells = [(1, 0.0), (3, 0.0), (3, 1.0)]
+    exact = C.run_checks(data, analysis, cells)
+    large_route()
+    # with the sample covering every row the summaries route must give the same numbers
+    monkeypatch.setattr(summaries, "SAMPLE_ROWS", 10**9)
+    fast = C.run_checks(data, analysis, cells)
+    assert exact.codes() == fast.codes()
+    for name in ("serial", "conditioning"):
+        a, b = exact.tables[name], fast.tables[name]
+        col = "value" if name == "serial" else "condition_number"
+        np.testing.assert_allclose(b[col].to_numpy(float), a[col].to_numpy(float), rtol=1e-7)
+    la, lb = exact.tables["leverage"], fast.tables["leverage"]
+    for col in ("threshold", "validation_share_above", "training_share_above",
+                "max_validation_leverage"):
+        np.testing.assert_allclose(lb[col].to_numpy(float), la[col].to_numpy(float),
+                                   rtol=1e-7, atol=1e-12)
+    assert any("one pass over the rows" in n for n in fast.notes)
+
+
+def test_sampled_leverage_is_stated_and_close(large_route):
+    data = _data(6000, seed=1)
+    spec = SweepSpec("y", ("a", "b", "c"), max_order=2, scheme=SchemeSpec("kfold", folds=3))
+    analysis = analyse(data, spec)
+    exact = C.run_checks(data, analysis, [(2, 0.0)])
+    large_route(sample_rows=1500)
+    fast = C.run_checks(data, analysis, [(2, 0.0)])
+    la, lb = exact.tables["leverage"], fast.tables["leverage"]
+    np.testing.assert_allclose(lb["threshold"], la["threshold"], rtol=1e-9)
+    # shares from 1,500 of ~2,000 held-out rows per split: within sampling error
+    assert abs(float(lb["validation_share_above"][0]) - float(la["validation_share_above"][0])) < 0.03
+    assert bool(lb["sampled"][0])
+    assert any("seeded sample of at most 1,500" in n for n in fast.notes)
+
+
+@pytest.mark.parametrize("penalty", [0.0, 0.3])
+def test_candidate_fits_from_summaries_match_qr(penalty, large_route):
+    data = _data(4000, seed=2)
+    spec = SweepSpec("y", ("a", "b", "c"), max_order=3, interactions=True)
+    exact = compare.fit_candidates(data, spec, [(3, penalty), (2, penalty)])
+    large_route()
+    fast = compare.fit_candidates(data, spec, [(3, penalty), (2, penalty)])
+    for key in exact:
+        a, b = exact[key], fast[key]
+        np.testing.assert_allclose(b.coefficients, a.coefficients, rtol=1e-8,
+                                   atol=1e-10 * np.abs(a.coefficients).max())
+        np.testing.assert_allclose(b.predict(data.X), a.predict(data.X), rtol=1e-10, atol=1e-9)
+        np.testing.assert_allclose(b.condition_number, a.condition_number, rtol=1e-6)
+        np.testing.assert_allclose(b.effective_df, a.effective_df, rtol=1e-9)
+        np.testing.assert_allclose(b.train_mse, a.train_mse, rtol=1e-9)
