@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import re
 import tempfile
 import threading
 import time
@@ -33,8 +32,10 @@ from engine import (SCHEME_HELP, InputProblem, SchemeSpec, SweepSpec, analyse,
                     default_penalties, learning_curve)
 from engine import charts as C
 from engine.compare import fit_candidates
-from engine.labels import (CHARTS, SCHEME_NAMES, SCHEMES_WITH_FOLDS, TABLES, column_header,
-                           human_headers, option_label, penalty_text)
+from engine.labels import (CHARTS, ROW_ORDER_ANSWERS, ROW_ORDER_HELP, SCHEME_NAMES,
+                           SCHEMES_WITH_FOLDS, TABLES, column_header, human_headers,
+                           option_label, penalty_text)
+from engine.roles import default_roles
 from engine.loading import DEFAULT_MAX_BYTES, describe_drops, load_table, prepare
 from engine.markup import escape_text
 from engine.spec import (DEFAULT_FOLDS, DEFAULT_GAP, DEFAULT_HOLDOUT_FRACTION, DEFAULT_MAX_ORDER,
@@ -61,6 +62,8 @@ class Preset:
     group_column: str | None = None
     split_column: str | None = None
     scheme: str = "kfold"
+    notes: tuple[str, ...] = ()          # why these roles (uploaded tables)
+    left_out: tuple[str, ...] = ()       # numeric columns kept out of the default inputs
     folds: int = DEFAULT_FOLDS
     repeats: int = DEFAULT_REPEATS
     gap: int = DEFAULT_GAP
@@ -106,7 +109,7 @@ VIEW_KEYS = ("view_penalty", "lc_order", "lc_penalty", "cmp_orders", "cmp_penalt
              "cmp_zero", "coef_order", "coef_penalty")
 SETUP_KEYS = ("target", "inputs", "all_inputs", "order_column", "group_column", "split_column",
               "scheme", "folds", "repeats", "gap", "holdout_fraction", "max_order",
-              "interactions", "pen_range", "pen_count", "pen_zero", "seed")
+              "interactions", "pen_range", "pen_count", "pen_zero", "seed", "rows_time")
 
 # ---------------------------------------------------------------------------
 # errors: readable messages, never a traceback
@@ -244,29 +247,22 @@ def source_label(choice: str) -> str:
 
 
 def guess_preset(frame: pd.DataFrame, numeric: list[str]) -> Preset:
-    """Defaults for an uploaded table: last numeric column as target, the rest as inputs.
+    """Defaults for an uploaded table, with the reasons (`engine.roles.default_roles`).
 
-    A numeric column whose name reads like a clock or a counter (time,
-    minute, index, ...) and whose values only ever increase is offered as the
-    order column instead of an input, when another input remains.
+    The target is a column of measurements at an end of the table (codes, row
+    numbers and clocks passed over); the inputs are the other numeric columns
+    less row numbers and columns that reproduce the target; a clock-like
+    column that only increases is offered as the order column.
     """
     if not numeric:
         return Preset()
-    target = numeric[-1]
-    order_col = None
-    clock = re.compile(r"(?i)(time|minute|hour|second|date|day|index|seq|step|sample|^t$|^row)")
-    for c in numeric[:-1]:
-        v = frame[c].to_numpy(float)
-        v = v[np.isfinite(v)]
-        if (clock.search(c) and v.size > 2 and np.all(np.diff(v) > 0)
-                and len(numeric) > 2):
-            order_col = c
-            break
-    inputs = tuple(c for c in numeric if c not in (target, order_col))[:40]
-    many = len([c for c in numeric if c not in (target, order_col)]) > 12
-    return Preset(target=target, inputs=() if many else inputs, all_inputs=many,
-                  order_column=order_col, scheme="blocked" if order_col else "kfold",
-                  max_order=1 if many else 4)
+    r = default_roles(frame, numeric)
+    pool = [c for c in numeric if c not in (r.target, r.order_column) and c not in r.left_out]
+    many = len(pool) > 12
+    return Preset(target=r.target, inputs=() if many else r.inputs, all_inputs=many,
+                  order_column=r.order_column, scheme="blocked" if r.order_column else "kfold",
+                  max_order=1 if many else DEFAULT_MAX_ORDER, notes=tuple(r.sentences()),
+                  left_out=tuple(r.left_out))
 
 
 def apply_preset(p: Preset) -> None:
@@ -289,6 +285,7 @@ def apply_preset(p: Preset) -> None:
     ss["pen_count"] = p.pen_count
     ss["pen_zero"] = p.pen_zero
     ss["seed"] = p.seed
+    ss["rows_time"] = next(iter(ROW_ORDER_ANSWERS))
     ss["_preset"] = p
 
 
@@ -322,10 +319,13 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
     keep("order_column", NONE)
     if ss["order_column"] not in [NONE] + columns:
         ss["order_column"] = NONE
+    preset = ss.get("_preset", Preset())
+    left_out = preset.left_out if target == preset.target else ()
     if all_inputs:
         order_pick = ss.get("order_column", NONE)
-        inputs = [c for c in others if c != order_pick]
-        st.sidebar.caption(f"{len(inputs)} input columns.")
+        inputs = [c for c in others if c != order_pick and c not in left_out]
+        st.sidebar.caption(f"{len(inputs)} input columns"
+                           + (f" ({len(left_out)} left out, see below)." if left_out else "."))
     else:
         keep("inputs", others[:1])
         current = list(ss["inputs"])
@@ -334,10 +334,18 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
         # list the user made stays empty and gets a message below
         ss["inputs"] = valid or (others[:1] if current else [])
         inputs = st.sidebar.multiselect("Inputs", others, key="inputs")
+    if target == preset.target and preset.notes:
+        st.sidebar.caption(md(" ".join(preset.notes)))
     order_col = st.sidebar.selectbox(
         "Order / time column (optional)", [NONE] + [c for c in columns if c != target],
         key="order_column", help="Rows are sorted by it; time blocks and the later-period "
                                  "holdout follow it.")
+    rows_time = None
+    if order_col == NONE:
+        keep("rows_time", next(iter(ROW_ORDER_ANSWERS)))
+        rows_time = ROW_ORDER_ANSWERS[st.sidebar.radio(
+            option_label("rows_in_time_order"), list(ROW_ORDER_ANSWERS), key="rows_time",
+            horizontal=True, help=ROW_ORDER_HELP)]
     keep("group_column", NONE)
     keep("split_column", NONE)
     for k in ("group_column", "split_column"):
@@ -407,7 +415,8 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
         penalties=default_penalties(lo, hi, int(pen_count), bool(pen_zero)),
         scheme=SchemeSpec(kind=scheme, folds=int(folds or 5), repeats=int(repeats or 3),
                           gap=int(gap or 0), holdout_fraction=float(frac),
-                          order_column=order_c, group_column=group_c, split_column=split_c),
+                          order_column=order_c, group_column=group_c, split_column=split_c,
+                          rows_in_time_order=rows_time),
         seed=int(seed))
     return Choices(roles=roles, spec=spec)
 
@@ -689,6 +698,9 @@ def warnings_panel(pending: Future) -> None:
                 if st.toggle("Show every check, fired or not", key="show_all_checks"):
                     st.dataframe(human_headers(summary), hide_index=True)
                     table_download(summary, "checks")
+    row_order = getattr(report, "row_order", {}) or {}
+    if row_order.get("status") in ("assumed", "sorted_by_input", "not_time"):
+        st.caption(md(row_order.get("sentence", "")))   # what the row-order checks assumed
 
 
 def trust_panel(data, analysis, run_key: str = "") -> None:

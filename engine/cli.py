@@ -190,10 +190,15 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--target", required=True, metavar="COL", help="column to predict")
     run.add_argument("--inputs", type=_names, metavar="A,B,...", default=None,
                      help="input columns, comma separated (default: every numeric column "
-                          "except the target and the order, group and split columns)")
+                          "except the target, the order, group and split columns, row numbers "
+                          "and columns that reproduce the target; those left out are named)")
     run.add_argument("--order-column", metavar="COL", default=None,
                      help="column giving the order of rows in time (numbers or dates); rows "
                           "are sorted by it; used by the blocked and holdout schemes")
+    run.add_argument("--rows-in-time-order", choices=("yes", "no"), default=None,
+                     help="without --order-column: whether the file's row order is time order. "
+                          "Unsaid, the checks for serial dependence and period shift assume "
+                          "it and say so (warnings at most 'caution'); 'no' skips them")
     run.add_argument("--group-column", metavar="COL", default=None,
                      help="column of group labels (batch, subject, site) for --scheme grouped")
     run.add_argument("--split-column", metavar="COL", default=None,
@@ -319,9 +324,29 @@ def _say_drops(data, stream=None) -> None:
         print(f"{PROG}: {text}", file=stream or sys.stderr, flush=True)
 
 
-def _default_inputs(loaded, target: str, exclude: Sequence[str | None]) -> list[str]:
+def _default_inputs(loaded, target: str, exclude: Sequence[str | None]
+                    ) -> tuple[list[str], dict[str, str]]:
+    """Every other numeric column, less row numbers and columns that reproduce
+    the target (`engine.roles.screen_inputs`); returns the inputs and the reasons."""
+    from .roles import screen_inputs
+
     skip = {target, *[c for c in exclude if c]}
-    return [c for c in loaded.report.numeric_columns if c not in skip]
+    cands = [c for c in loaded.report.numeric_columns if c not in skip]
+    if target not in loaded.report.numeric_columns:
+        return cands, {}          # prepare() names the problem with the target
+    return screen_inputs(loaded.frame, target, cands)
+
+
+def _say_left_out(left: dict[str, str], data, stream=None) -> None:
+    """Columns kept out of the default inputs, on stderr and in the pack's data notes."""
+    if not left:
+        return
+    text = ("Left out of the default inputs: " + "; ".join(f"{c} ({why})" for c, why in left.items())
+            + ". Name the inputs with --inputs to use them.")
+    print(f"{PROG}: {text}", file=stream or sys.stderr, flush=True)
+    notes = getattr(data, "notes", None)
+    if isinstance(notes, list):
+        notes.append(text)
 
 
 def _report(result, stream=None) -> None:
@@ -363,8 +388,13 @@ def command_run(args: argparse.Namespace) -> int:
     loaded = _load(args.data, decimal=decimal, sheet=args.sheet)
     progress(0.0, "Preparing the chosen columns")
     more = tuple(args.more_targets or ())
-    inputs = args.inputs if args.inputs is not None else _default_inputs(
-        loaded, args.target, (args.order_column, args.group_column, args.split_column) + more)
+    left: dict[str, str] = {}
+    if args.inputs is not None:
+        inputs = args.inputs
+    else:
+        inputs, left = _default_inputs(
+            loaded, args.target,
+            (args.order_column, args.group_column, args.split_column) + more)
     if not inputs:
         raise InputProblem(f"No input columns are left besides the target '{args.target}'. "
                            "Name them with --inputs.", code="no_inputs")
@@ -372,13 +402,16 @@ def command_run(args: argparse.Namespace) -> int:
                     order_column=args.order_column, group_column=args.group_column,
                     split_column=args.split_column)
     _say_drops(data)
+    _say_left_out(left, data)
     lags = None
     if args.lags is not None or args.target_lags is not None:
         lags = LagSpec(inputs=tuple(args.lag_inputs or ()), depths=args.lags or (0,),
                        target_depths=args.target_lags or (0,))
     scheme = SchemeSpec(kind=args.scheme, folds=args.folds, repeats=args.repeats, gap=args.gap,
                         holdout_fraction=args.holdout_fraction, order_column=args.order_column,
-                        group_column=args.group_column, split_column=args.split_column)
+                        group_column=args.group_column, split_column=args.split_column,
+                        rows_in_time_order={"yes": True, "no": False}.get(
+                            args.rows_in_time_order))
     spec = SweepSpec(target=data.target, inputs=tuple(data.inputs), max_order=args.max_order,
                      orders=args.orders, interactions=args.interactions, penalties=penalties,
                      scheme=scheme, seed=args.seed, lags=lags, nested_inputs=args.rank_inputs,

@@ -218,7 +218,16 @@ OPTIONS = {
     "interactions": ("Products of inputs (interactions)", "--interactions"),
     "penalties": ("Ridge penalty range", "--penalty-range"),
     "seed": ("Seed for the shuffles", "--seed"),
+    "rows_in_time_order": ("Are the rows in time order?", "--rows-in-time-order"),
 }
+
+#: Answers to "are the rows in time order?" (asked when no order column is
+#: chosen): page text -> `SchemeSpec.rows_in_time_order`.
+ROW_ORDER_ANSWERS = {"Not said": None, "Yes": True, "No": False}
+ROW_ORDER_HELP = ("Checks for dependence between neighbouring rows and for a shift between "
+                  "earlier and later rows read the row order as time. Not said: they assume "
+                  "the file's row order is time order, say so, and their warnings stay at "
+                  "caution. No: they are not used.")
 
 
 def option_label(key: str) -> str:
