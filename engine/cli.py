@@ -302,7 +302,8 @@ def _penalty_grid(args: argparse.Namespace) -> tuple[float, ...]:
 
 
 def _load(path: str, *, decimal: str | None, sheet, name: str | None = None):
-    from .loading import load_table
+    """Read a local file; the browser's upload cap does not apply to the user's own disk."""
+    from .loading import NO_SIZE_LIMIT, load_table
 
     p = Path(path)
     if not p.exists():
@@ -312,7 +313,7 @@ def _load(path: str, *, decimal: str | None, sheet, name: str | None = None):
                            code="not_found")
     if isinstance(sheet, str) and sheet.isdigit():
         sheet = int(sheet)
-    return load_table(str(p), name=name, decimal=decimal, sheet=sheet)
+    return load_table(str(p), name=name, decimal=decimal, sheet=sheet, max_bytes=NO_SIZE_LIMIT)
 
 
 def _say_drops(data, stream=None) -> None:

@@ -30,6 +30,7 @@ from .errors import InputProblem
 
 __all__ = [
     "DEFAULT_MAX_BYTES",
+    "NO_SIZE_LIMIT",
     "ERROR_CODES",
     "LoadReport",
     "LoadedTable",
@@ -40,6 +41,8 @@ __all__ = [
 ]
 
 DEFAULT_MAX_BYTES = 200 * 1024 * 1024
+#: ``max_bytes`` meaning "no size limit" (the command line reading the user's own files).
+NO_SIZE_LIMIT = 1 << 62
 
 #: Codes `load_table` and `prepare` put on the `InputProblem` they raise.
 ERROR_CODES = (
@@ -250,7 +253,7 @@ def _read_source(source: Source, name: str | None, max_bytes: int) -> tuple[byte
             if size > max_bytes:
                 raise _too_large(display, size, max_bytes)
             with path.open("rb") as handle:
-                raw = handle.read(max_bytes + 1)
+                raw = handle.read(min(size, max_bytes) + 1)
         except InputProblem:
             raise
         except (OSError, ValueError) as exc:
@@ -653,7 +656,7 @@ def _build_columns(raw: pd.DataFrame, decimal: str, display: str
         if kind == "text":
             kept = kept.where(present)  # blank and missing-marker cells become missing
         out[col] = kept.reset_index(drop=True)
-    frame = pd.DataFrame(out, index=pd.RangeIndex(len(raw)))
+    frame = pd.DataFrame(out, index=pd.RangeIndex(len(raw)), copy=False)  # no second copy
     # which cells were set to missing because they were not numbers (row labels), so
     # that `prepare` can say why it drops a row
     frame.attrs[UNPARSABLE_ATTR] = {"rows": unparsable, "first": unparsable_first}
@@ -778,6 +781,104 @@ def _read_text(raw: bytes, display: str, decimal: str
         notes.append("The first row holds only numbers but was read as column names; "
                      "add a header row if the file has none.")
     return body.reset_index(drop=True), delimiter, notes
+
+
+#: Text files from this size on are first tried with pyarrow's columnar CSV reader.
+COLUMNAR_MIN_BYTES = 1 << 20
+
+
+def _read_text_columnar(raw: bytes, display: str, decimal: str
+                        ) -> tuple[pd.DataFrame, str | None, list[str]] | None:
+    """The common case of a large text table, through pyarrow's CSV reader.
+
+    Used for plain UTF-8 files without a byte order mark, a decimal point, a
+    one-line header and the same number of fields on every line; the
+    delimiter and the header are found exactly as `_read_text` finds them.
+    Columns of numbers come out as float64 in one step; any other column is
+    read again as text and classified as `_read_text` would. Returns None
+    (the hand-written reader then takes over, with its messages) for anything
+    else: a decimal comma, another encoding, ragged rows, quoted line breaks.
+    """
+    if decimal != "." or len(raw) < COLUMNAR_MIN_BYTES or raw.startswith(b"\xef\xbb\xbf"):
+        return None
+    try:
+        import pyarrow as pa
+        import pyarrow.csv as pacsv
+    except ImportError:  # pragma: no cover - pyarrow is a requirement
+        return None
+    if raw.count(b'"') % 2:
+        return None   # a quote never closed: the other reader names the line
+    head = raw[:65536]
+    cut = head.rfind(b"\n")
+    if b"\x00" in head or cut <= 0:
+        return None
+    try:
+        sample = head[:cut].decode("utf-8")
+    except UnicodeDecodeError:
+        return None
+    if "\r" in sample.replace("\r\n", ""):
+        return None
+    sample = sample.replace("\r\n", "\n")
+    delimiter = _detect_delimiter(sample, decimal)
+    if delimiter is None:
+        return None
+    header, header_lines = _split_header(sample, delimiter, display)
+    if not header or header_lines != 1:
+        return None
+    names, notes = _clean_names(header, display)
+    if len(names) != len(header):
+        return None
+    keys = [f"c{i}" for i in range(len(header))]
+    source = pa.py_buffer(raw)
+
+    def read(types=None, include=None):
+        return pacsv.read_csv(
+            pa.BufferReader(source),
+            read_options=pacsv.ReadOptions(skip_rows=1, column_names=keys),
+            parse_options=pacsv.ParseOptions(delimiter=delimiter, quote_char='"',
+                                             newlines_in_values=False,
+                                             ignore_empty_lines=True),
+            convert_options=pacsv.ConvertOptions(
+                null_values=_na_tokens(), strings_can_be_null=True,
+                quoted_strings_can_be_null=True, column_types=types,
+                include_columns=include))
+
+    try:
+        table = read()
+        if any(pa.types.is_boolean(f.type) and table.column(f.name).null_count
+               for f in table.schema):
+            return None   # true/false with gaps: the other reader keeps them as read_csv does
+        other = [k for k, f in zip(keys, table.schema)
+                 if not (pa.types.is_floating(f.type) or pa.types.is_integer(f.type)
+                         or pa.types.is_boolean(f.type))]
+        if other:   # dates, true/false, text: as text, classified like the other reader's
+            counts = np.bincount(np.frombuffer(raw, dtype=np.uint8), minlength=256)
+            if int(counts[:32].sum() - counts[[9, 10, 12, 13, 26]].sum()) or b"\x00" in raw:
+                return None   # control characters: the other reader explains them
+            text = read({k: pa.string() for k in other}, other)
+            for k in other:
+                table = table.set_column(keys.index(k), k, text.column(k))
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError, ValueError):
+        return None
+    if table.num_rows == 0:
+        return None
+    columns = {}
+    for name, k, f in zip(names, keys, table.schema):
+        col = table.column(k)
+        if pa.types.is_floating(f.type) or pa.types.is_integer(f.type):
+            columns[name] = col.to_numpy(zero_copy_only=False).astype(float, copy=False)
+        elif pa.types.is_boolean(f.type):
+            columns[name] = col.to_numpy(zero_copy_only=False).astype(bool)
+        else:
+            columns[name] = pd.Series(col.to_pylist())   # text dtype as read_csv infers it
+    del table
+    frame = pd.DataFrame(columns, index=pd.RangeIndex(len(next(iter(columns.values())))),
+                         copy=False)
+    header_numbers = pd.to_numeric(pd.Series(names, dtype=object), errors="coerce")
+    if len(names) and header_numbers.notna().all():
+        notes.append("The first row holds only numbers but was read as column names; "
+                     "add a header row if the file has none.")
+    return frame, delimiter, notes
 
 
 def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.DataFrame, list[str]]:
@@ -916,7 +1017,7 @@ def _read_parquet(raw: bytes, display: str) -> tuple[pd.DataFrame, list[str]]:
 
 def load_table(source: Source, *, name: str | None = None, decimal: str | None = None,
                sheet: str | int | None = None,
-               max_bytes: int = DEFAULT_MAX_BYTES) -> LoadedTable:
+               max_bytes: int | None = None) -> LoadedTable:
     """Read a table from a file, bytes or an uploaded file object.
 
     Parameters
@@ -929,7 +1030,8 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
         ``','``. With ``','`` the delimiter must be a semicolon or a tab, and
         values containing ``'.'`` are not read as numbers.
     sheet : worksheet name or 0-based number for Excel files; default the first.
-    max_bytes : largest size accepted.
+    max_bytes : largest size accepted; default `DEFAULT_MAX_BYTES` (the
+        browser's upload cap); `NO_SIZE_LIMIT` for none.
 
     Returns
     -------
@@ -948,6 +1050,8 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
     else:
         raise InputProblem(f"The decimal mark must be '.' or ',' (got {decimal!r}).",
                            code="bad_decimal")
+    if max_bytes is None:
+        max_bytes = DEFAULT_MAX_BYTES
     try:
         limit = int(max_bytes)
     except (TypeError, ValueError):
@@ -962,7 +1066,8 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
     delimiter: str | None = None
     try:
         if file_format == "csv":
-            cells, delimiter, more = _read_text(raw, display, dec)
+            fast = _read_text_columnar(raw, display, dec)
+            cells, delimiter, more = fast if fast is not None else _read_text(raw, display, dec)
         elif file_format == "xlsx":
             cells, more = _read_xlsx(raw, display, sheet)
         else:
