@@ -31,6 +31,8 @@ import streamlit as st
 from engine import (SCHEME_HELP, InputProblem, SchemeSpec, SweepSpec, analyse,
                     default_penalties, learning_curve)
 from engine import charts as C
+from dashboard.grid_axes import axes_controls, grid_heatmap
+from engine.labels import rung_text
 from engine.compare import fit_candidates
 from engine.labels import (CHARTS, ROW_ORDER_ANSWERS, ROW_ORDER_HELP, SCHEME_NAMES,
                            SCHEMES_WITH_FOLDS, TABLES, column_header, human_headers,
@@ -105,7 +107,7 @@ DEMOS: dict[str, Demo] = {
 
 PENALTY_STEPS = [10.0 ** k for k in range(-8, 7)]
 NONE = "(none)"
-VIEW_KEYS = ("view_penalty", "lc_order", "lc_penalty", "cmp_orders", "cmp_penalty",
+VIEW_KEYS = ("heat_x", "heat_y", "view_penalty", "lc_order", "lc_penalty", "cmp_orders", "cmp_penalty",
              "cmp_zero", "coef_order", "coef_penalty")
 SETUP_KEYS = ("target", "inputs", "all_inputs", "order_column", "group_column", "split_column",
               "scheme", "folds", "repeats", "gap", "holdout_fraction", "max_order",
@@ -286,6 +288,8 @@ def apply_preset(p: Preset) -> None:
     ss["pen_zero"] = p.pen_zero
     ss["seed"] = p.seed
     ss["rows_time"] = next(iter(ROW_ORDER_ANSWERS))
+    for k in ("lags_max", "target_lags_max", "nested_inputs"):   # past values, input sets
+        ss.pop(k, None)
     ss["_preset"] = p
 
 
@@ -404,6 +408,7 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
     seed = st.sidebar.number_input(option_label("seed"), min_value=0, max_value=2**31 - 1,
                                    step=1, key="seed")
 
+    lags, nested = axes_controls(scheme, int(gap or 0), len(inputs))
     order_c = None if order_col == NONE else order_col
     group_c = None if group_col == NONE else group_col
     split_c = None if split_col in (NONE, None) or scheme != "column" else split_col
@@ -417,7 +422,7 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
                           gap=int(gap or 0), holdout_fraction=float(frac),
                           order_column=order_c, group_column=group_c, split_column=split_c,
                           rows_in_time_order=rows_time),
-        seed=int(seed))
+        seed=int(seed), lags=lags, nested_inputs=nested)
     return Choices(roles=roles, spec=spec)
 
 
@@ -502,7 +507,8 @@ def recommendation_panel(analysis, target: str) -> None:
     r, b = rec.recommended, rec.best
     unit = C.column_units(target)
     with st.container(border=True):
-        st.markdown(f"#### Recommended: {C.cell_text(r.order, r.penalty)}")
+        st.markdown(f"#### Recommended: {C.cell_text(r.order, r.penalty)}"
+                    + rung_text(r.lags, r.target_lags, r.inputs_used))
         rmse = float(np.sqrt(r.validation_mse))
         se_rmse = float(r.validation_mse_se / (2 * rmse)) if rmse > 0 else float("nan")
         m1, m2, m3, m4 = st.columns(4)
@@ -523,7 +529,8 @@ def recommendation_panel(analysis, target: str) -> None:
         m3.caption(f"validation error is {ratio:.2f}× training error" if np.isfinite(ratio)
                    else "training error is zero")
         m4.metric("Lowest validation error (MSE)", f"{b.validation_mse:.4g}", help=b.reason)
-        m4.caption(f"± {b.validation_mse_se:.2g} · {C.cell_text(b.order, b.penalty)}")
+        m4.caption(f"± {b.validation_mse_se:.2g} · {C.cell_text(b.order, b.penalty)}"
+                   + rung_text(b.lags, b.target_lags, b.inputs_used))
         st.markdown(md(r.reason))
         st.caption(md(f"{analysis.plan.description} Rule: {rec.rule}."))
         st.caption("Where this model feeds a safety or compliance decision (a calibration "
@@ -816,7 +823,8 @@ def tab_validation(analysis, target: str) -> None:
 
 def tab_heatmap(analysis, target: str) -> None:
     rec = analysis.recommendation
-    chart = C.heatmap_chart(analysis.validation, rec.best, rec.recommended, target)
+    chart = grid_heatmap(analysis, target) or C.heatmap_chart(analysis.validation, rec.best,
+                                                              rec.recommended, target)
     chart_block(chart, "order_penalty_heatmap",
                 [(analysis.sweep.fold_table(), "validation_per_split")])
 
@@ -1048,6 +1056,14 @@ def main() -> None:
                   f"{'s' if len(spec.inputs) != 1 else ''}"))
     if data.rows_dropped:
         st.warning(md(describe_drops(data)), icon=":material/filter_alt:")
+    # lag depths / input counts: the page's per-cell views use the recommended rung's columns
+    full, data_all = analysis, data
+    analysis = full.view()
+    data, _ = full.working(data_all, spec)
+    if full.model_spec is not None and full.model_spec.inputs != spec.inputs:
+        st.caption(md("Columns of the recommended model: " + ", ".join(full.model_spec.inputs)
+                      + (f" · {full.rows_left_out:,} rows at the start left out for lags"
+                         if full.rows_left_out else "")))
     mark("sweep")
     guarded("showing the recommendation", recommendation_panel, analysis, target)
     # slow engine calls run in the background, in this order, while the quick
@@ -1064,14 +1080,14 @@ def main() -> None:
     with tabs[0]:
         guarded("drawing the validation curve", tab_validation, analysis, target)
     with tabs[1]:
-        guarded("drawing the heat map", tab_heatmap, analysis, target)
+        guarded("drawing the heat map", tab_heatmap, full, target)
     with tabs[4]:
         guarded("drawing the coefficients", tab_coefficients, analysis, target)
     with tabs[2]:
         guarded("drawing the learning curve", tab_learning, analysis_key, data, analysis,
                 target)
     with tabs[5]:
-        guarded("showing the data", tab_data, loaded, data)
+        guarded("showing the data", tab_data, loaded, data_all)
     mark("quick tabs")
     with tabs[3]:  # last: it fits models on all rows
         compare_orders = guarded("comparing orders", tab_compare, analysis_key, data,
@@ -1083,7 +1099,7 @@ def main() -> None:
     mark("checks")
     with st.sidebar:
         st.subheader("5 · Meeting pack")
-        guarded("preparing the pack", pack_panel, loaded, name, data, analysis, spec,
+        guarded("preparing the pack", pack_panel, loaded, name, data_all, full, spec,
                 compare_orders, pending)
 
 

@@ -367,6 +367,82 @@ def heatmap_chart(validation: pd.DataFrame, best: Cell, recommended: Cell, targe
     return _finish(chart)
 
 
+def grid_heatmap_chart(cells: pd.DataFrame, x: str, y: str, best: Cell, recommended: Cell,
+                       target: str = "y", held: str = "", *,
+                       units: str | None = None) -> alt.TopLevelMixin:
+    """Map of mean validation error over any two axes of a grid (the others held fixed).
+
+    ``cells`` is a slice of the validation table with one row per (x, y) pair
+    (`engine.ladder.grid_slice`); the best and recommended cells are marked
+    when they lie in it. ``held`` names the fixed axes for the title.
+    """
+    from .labels import GRID_AXES
+
+    t = cells.copy()
+    t = t[np.isfinite(t["validation_mse"].astype(float))]
+
+    def text(axis: str, v) -> str:
+        return penalty_text(float(v)) if axis == "penalty" else (
+            str(v) if axis == "family" else f"{float(v):g}")
+
+    for a in (x, y):
+        t[f"{a}_label"] = [text(a, v) for v in t[a]]
+    sort = {a: [text(a, v) for v in sorted(t[a].unique(), key=lambda v: (str(type(v)), v))]
+            for a in (x, y)}
+    short, title = _metric_words("mse", target, units)
+    use_log = _log_scale_wanted(t["validation_mse"].to_numpy())
+    cscale = alt.Scale(type="log" if use_log else "linear", range=ERROR_RAMP,
+                       **({} if use_log else {"zero": False}))
+    ex = alt.X(f"{x}_label:O", title=GRID_AXES.get(x, x), sort=sort[x],
+               axis=alt.Axis(labelAngle=0))
+    ey = alt.Y(f"{y}_label:O", title=GRID_AXES.get(y, y), sort=sort[y])
+    heat = alt.Chart(t).mark_rect(stroke="#ffffff", strokeWidth=0.5).encode(
+        x=ex, y=ey,
+        color=alt.Color("validation_mse:Q", scale=cscale, title=f"validation {short}",
+                        legend=alt.Legend(orient="right", format=".3g", gradientLength=200)),
+        tooltip=[alt.Tooltip(f"{x}_label:N", title=GRID_AXES.get(x, x)),
+                 alt.Tooltip(f"{y}_label:N", title=GRID_AXES.get(y, y)),
+                 alt.Tooltip("validation_mse:Q", title=f"validation {short}", format=".4g"),
+                 alt.Tooltip("validation_mse_se:Q", title="one SE", format=".3g"),
+                 alt.Tooltip("effective_df:Q", title="effective degrees of freedom",
+                             format=".2f")])
+    marks = []
+    for c, m in ((best, "lowest validation error"), (recommended, "recommended")):
+        hit = t
+        for a in cells.columns:
+            if a in ("order", "penalty", "lags", "target_lags", "inputs_used") and a not in (x, y):
+                v = getattr(c, a, None)
+                if v is not None and len(hit) and not np.isclose(float(hit[a].iloc[0]), float(v)):
+                    hit = hit.iloc[0:0]
+        vx, vy = getattr(c, x, None), getattr(c, y, None)
+        if len(hit) and vx is not None and vy is not None:
+            marks.append({f"{x}_label": text(x, vx), f"{y}_label": text(y, vy), "mark": m,
+                          "cell": c.label, "error": c.validation_mse})
+    layers = [heat]
+    if marks:
+        layers.append(alt.Chart(pd.DataFrame(marks)).mark_point(
+            size=200, strokeWidth=2.5, filled=False).encode(
+            x=ex, y=ey,
+            shape=alt.Shape("mark:N", title=None,
+                            scale=alt.Scale(domain=["lowest validation error", "recommended"],
+                                            range=["diamond", "circle"]),
+                            legend=alt.Legend(orient="bottom")),
+            stroke=alt.Stroke("mark:N", title=None,
+                              scale=alt.Scale(domain=["lowest validation error", "recommended"],
+                                              range=[PALETTE["best"], PALETTE["recommended"]]),
+                              legend=alt.Legend(orient="bottom")),
+            tooltip=[alt.Tooltip("cell:N", title="cell"),
+                     alt.Tooltip("error:Q", title=f"validation {short}", format=".4g")]))
+    notes = [title + (", logarithmic colour scale." if use_log else ".")]
+    if held:
+        notes.append("Held fixed: " + held + ".")
+    chart = alt.layer(*layers).properties(
+        width=max(260, min(_WIDTH, 38 * len(sort[x]))), height=max(200, 18 * len(sort[y])),
+        title=_title(f"Validation error over {GRID_AXES.get(x, x).split(' (')[0]} and "
+                     f"{GRID_AXES.get(y, y).split(' (')[0]}", notes))
+    return _finish(chart)
+
+
 # ---------------------------------------------------------------------------
 # learning curve
 # ---------------------------------------------------------------------------

@@ -289,7 +289,30 @@ COLUMNS = {
     "message": "Message",
     "advice": "Advice",
     "role": "Role",
+    "lags": "Input lag depth",
+    "target_lags": "Target lag depth",
+    "inputs_used": "Inputs used",
+    "target": "Target",
 }
+
+#: Axes of a grid (validation-table column -> axis title in charts and page).
+GRID_AXES = {
+    "order": "polynomial order",
+    "penalty": "ridge penalty (on standardised terms)",
+    "lags": "input lag depth (rows back)",
+    "target_lags": "target lag depth (rows back)",
+    "inputs_used": "inputs used (first k of the ranking)",
+    "family": "penalty family",
+    "l1_ratio": "lasso share of the penalty (l1 ratio)",
+}
+
+#: Options of the newer axes: request field -> (page label, command-line flag).
+OPTIONS.update({
+    "lags": ("Deepest input lag to compare", "--lags"),
+    "target_lags": ("Deepest target lag to compare", "--target-lags"),
+    "nested_inputs": ("Compare the first k inputs", "--rank-inputs"),
+    "extra_targets": ("More targets", "--more-targets"),
+})
 
 
 def column_header(name: str) -> str:

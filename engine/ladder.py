@@ -262,3 +262,37 @@ def subset_sweep(res: SweepResult, keep: list[int]) -> SweepResult:
         plan_description=res.plan_description, notes=list(res.notes),
         families=res.families, l1_ratios=res.l1_ratios,
         rung_keys=[res.rung_keys[i] for i in keep])
+
+
+#: axes a grid may have, in the order the page offers them
+GRID_AXES = ("order", "penalty", "lags", "target_lags", "inputs_used", "family", "l1_ratio")
+
+
+def grid_axes(table) -> list[str]:
+    """Axes of a validation table with more than one value."""
+    return [k for k in GRID_AXES if k in table.columns and table[k].nunique(dropna=True) > 1]
+
+
+def grid_slice(table, x: str, y: str, fixed: dict):
+    """Rows of a validation table with every axis but ``x`` and ``y`` held at ``fixed``.
+
+    Axes not named in ``fixed`` (and not ``x`` or ``y``) must have a single
+    value; the result has one row per (x, y) pair.
+    """
+    from .errors import InputProblem
+
+    keep = np.ones(len(table), bool)
+    for k in grid_axes(table):
+        if k in (x, y):
+            continue
+        if k not in fixed:
+            raise InputProblem(f"Hold the axis '{k}' at one value to draw the other two.",
+                               code="bad_axes")
+        v = fixed[k]
+        col = table[k]
+        keep &= (col.astype(str) == str(v)).to_numpy() if k == "family" else \
+            np.isclose(col.astype(float).to_numpy(), float(v), rtol=1e-12, atol=0)
+    out = table[keep]
+    if out.duplicated([x, y]).any():  # pragma: no cover - guarded by grid_axes
+        raise InputProblem("The chosen axes do not identify one cell each.", code="bad_axes")
+    return out

@@ -147,3 +147,43 @@ def test_upload_charts_and_png_download(server, upload_csv, output_dir, tmp_path
             assert not page.locator("[data-testid=stException]").count()
         finally:
             browser.close()
+
+
+def _set_number(page, label: str, value: int) -> None:
+    box = page.get_by_role("spinbutton", name=label)
+    box.fill(str(value))
+    box.press("Enter")
+
+
+@pytest.mark.timeout(300)
+def test_drifting_line_demo_offers_lag_depth(server, output_dir):
+    # the reactor-log demo with lag depths compared, and the heat map over two chosen axes
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=CHROMIUM, args=LAUNCH_ARGS)
+        try:
+            page = browser.new_page(viewport={"width": 1400, "height": 1000})
+            page.goto(server)
+            page.get_by_text("Recommended:").first.wait_for(timeout=90_000)
+            page.locator("[data-testid=stSidebar] [data-testid=stSelectbox]").first.click()
+            page.get_by_text("Demo: reactor line log (3,000 rows)").click()
+            page.get_by_text("drifting_line_sensors.csv ·").first.wait_for(timeout=90_000)
+            page.get_by_text("Past values and input sets").click()
+            _set_number(page, "Deepest input lag to compare", 2)
+            page.get_by_text("Recommended:").first.wait_for(timeout=90_000)
+            _set_number(page, "Deepest target lag to compare", 1)
+            page.wait_for_function(
+                "() => [...document.querySelectorAll('h4')].some(h => "
+                "h.textContent.includes('Recommended:') && h.textContent.includes('target lags'))",
+                timeout=120_000)
+            heading = page.locator("h4", has_text="Recommended:").first.inner_text()
+            assert "input lags" in heading and "target lags" in heading
+            page.get_by_text("rows at the start left out for lags").first.wait_for(timeout=30_000)
+            page.get_by_role("tab", name="Order × penalty heat map").click()
+            page.wait_for_function(
+                "() => [...document.querySelectorAll('[data-testid=stVegaLiteChart] svg')]"
+                ".some(s => s.textContent.includes('Validation error over input lag depth'))",
+                timeout=60_000)
+            _full_screenshot(page, output_dir / "dashboard_drift_lags.png")
+            assert not page.locator("[data-testid=stException]").count()
+        finally:
+            browser.close()

@@ -317,3 +317,25 @@ def test_lags_refused_when_rows_are_said_not_to_be_in_time_order():
     with pytest.raises(InputProblem, match="time order") as err:
         analyse(ArrayData(x, y, ("x",), "y"), spec)
     assert err.value.code == "lags_need_order"
+
+
+def test_page_offers_lag_depth_on_the_drifting_line_demo(repo_root):
+    # headless page (Streamlit AppTest): lag depths on the reactor log, heat map over two axes
+    from streamlit.testing.v1 import AppTest
+
+    at = AppTest.from_file(str(repo_root / "app.py"), default_timeout=120).run()
+    at.selectbox(key="source_choice").set_value("demo:drift").run()
+    at.number_input(key="max_order").set_value(1).run()
+    at.number_input(key="lags_max").set_value(2).run()
+    at.number_input(key="target_lags_max").set_value(1).run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert not [e.value for e in at.error], [e.value for e in at.error]
+    head = [m.value for m in at.markdown if m.value.startswith("#### Recommended:")]
+    assert len(head) == 1 and "input lags" in head[0] and "target lags" in head[0]
+    texts = " ".join(c.value for c in at.caption).replace("\u2060", "")
+    assert "rows at the start left out for lags" in texts
+    assert "same rows" in texts
+    assert at.selectbox(key="heat_x").value == "lags"
+    assert at.selectbox(key="heat_y").value == "target_lags"
+    at.selectbox(key="heat_y").set_value("order").run()
+    assert not at.exception, [e.value for e in at.exception]
