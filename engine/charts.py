@@ -175,6 +175,14 @@ def _log_ticks(low: float, high: float) -> list[float]:
     return [10.0 ** k for k in ks[::step] if low <= 10.0 ** k <= high]
 
 
+#: Tick labels of a logarithmic axis: plain from 0.001 to 10,000, else ``1e+5`` style.
+LOG_LABELS = ("abs(datum.value) >= 1e5 || abs(datum.value) < 1e-3 ? "
+              "replace(format(datum.value, '.0e'), 'e+', 'e') : format(datum.value, '~g')")
+
+#: A learning curve's error axis spans at most this ratio above its lowest error.
+LEARNING_SPAN = 1e5
+
+
 def _log_scale_wanted(values: np.ndarray, ratio: float = 30.0) -> bool:
     v = np.asarray(values, float)
     v = v[np.isfinite(v) & (v > 0)]
@@ -243,7 +251,7 @@ def validation_curve_chart(validation: pd.DataFrame, penalty: float, best: Cell,
             notes.append(f"Training error below {floor:.2g} is drawn at the bottom edge "
                          f"({hidden} order{'s' if hidden != 1 else ''}).")
         yscale = alt.Scale(type="log", domain=[floor, top], clamp=True)
-        yaxis = alt.Axis(values=_log_ticks(floor, top), format="~g")
+        yaxis = alt.Axis(values=_log_ticks(floor, top), labelExpr=LOG_LABELS)
         notes.append("Logarithmic error axis.")
     else:
         frame["training_drawn"] = frame["training"]
@@ -499,8 +507,14 @@ def learning_curve_chart(lc_table: pd.DataFrame, cells: list[tuple[int, float]],
         long["low"] = long["low"].clip(lower=floor)
         top = float(np.nanmax(np.r_[long["high"].to_numpy(float), long["error"].to_numpy(float)]))
         top *= 1.5
+        if top > 30.0 * floor * LEARNING_SPAN:  # tiny training sets of a high order explode
+            top = 30.0 * floor * LEARNING_SPAN
+            notes.append(f"Errors above {top:.0e} are drawn at the top edge."
+                         .replace("e+", "e"))
+            long["error"] = long["error"].clip(upper=top)
+            long["high"] = long["high"].clip(upper=top)
         yscale = alt.Scale(type="log", domain=[floor, top], clamp=True)
-        yaxis = alt.Axis(values=_log_ticks(floor, top), format="~g")
+        yaxis = alt.Axis(values=_log_ticks(floor, top), labelExpr=LOG_LABELS)
         notes.append("Logarithmic error axis.")
     else:
         yscale = alt.Scale(zero=False, nice=True)
@@ -614,8 +628,8 @@ def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
         shade = alt.Chart(pd.DataFrame({"lo": [lo], "hi": [hi]})).mark_rect(
             color=PALETTE["range"], opacity=0.9).encode(
             x=alt.X("lo:Q", scale=xscale, title=xtitle), x2="hi:Q")
-        scatter = alt.Chart(pts).mark_circle(size=30, opacity=0.75, color=PALETTE["points"],
-                                             stroke="#ffffff", strokeWidth=0.6).encode(
+        scatter = alt.Chart(pts).mark_circle(size=42, opacity=0.95, color=PALETTE["points"],
+                                             stroke="#ffffff", strokeWidth=1.0).encode(
             x=alt.X("x:Q", scale=xscale, title=xtitle),
             y=alt.Y("y:Q", scale=yscale, title=tname),
             tooltip=[alt.Tooltip("x:Q", title=xtitle, format=".4g"),
@@ -630,7 +644,8 @@ def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
             tooltip=[alt.Tooltip("model:N"), alt.Tooltip("x:Q", title=xtitle, format=".4g"),
                      alt.Tooltip("prediction:Q", title=f"predicted {tname}", format=".4g"),
                      alt.Tooltip("inside:N", title="inside training range")])
-        chart = alt.layer(shade, scatter, curve).properties(
+        # data points drawn last, above the fitted curves
+        chart = alt.layer(shade, curve, scatter).properties(
             width=_WIDTH + 60, height=_HEIGHT + 40,
             title=_title("Fitted curves over the data", notes))
         return _finish(chart)
@@ -759,7 +774,7 @@ def coefficient_chart(coef_table: pd.DataFrame, order: int, penalty: float,
         floor = float(positive.min()) / 3.0
         top = float(v["magnitude"].max() + (v["std_sd"].fillna(0).max() if has_sd else 0)) * 1.5
         xscale = alt.Scale(type="log", domain=[floor, top], clamp=True)
-        xaxis = alt.Axis(values=_log_ticks(floor, top), format="~g")
+        xaxis = alt.Axis(values=_log_ticks(floor, top), labelExpr=LOG_LABELS)
         v["base"] = floor
         notes.append("Magnitudes span a wide range: logarithmic axis, drawn as stems.")
     else:
@@ -810,6 +825,65 @@ def chart_to_png(chart: alt.TopLevelMixin, scale: float = 2) -> bytes:
     import vl_convert as vlc
 
     return vlc.vegalite_to_png(chart.to_json(), scale=scale)
+
+
+def warm_renderer() -> None:
+    """Start the chart renderer once (its first call pays a start-up cost)."""
+    import vl_convert as vlc
+
+    vlc.vegalite_to_svg({"data": {"values": [{"a": 1}]}, "mark": "point",
+                         "encoding": {"x": {"field": "a", "type": "quantitative"}}})
+
+
+#: Font sizes of charts printed at about 90 mm wide (the meeting pack's summary):
+#: about 7 pt on paper.
+_PRINT_FONTS = {"axis": (15, 15), "legend": (15, 14), "title": (19, 14), "header": 15}
+
+
+def for_print(chart: alt.TopLevelMixin, height: int = 200) -> alt.TopLevelMixin:
+    """A copy of a chart for a printed page: larger type, plots at most ``height`` px tall."""
+    c = chart.copy(deep=True)
+    ax, lg, ti, hd = (_PRINT_FONTS[k] for k in ("axis", "legend", "title", "header"))
+    cfg = _CONFIG.copy(deep=True)
+    cfg.axis.labelFontSize, cfg.axis.titleFontSize = ax
+    cfg.legend.labelFontSize, cfg.legend.titleFontSize = lg
+    cfg.legend.symbolSize = 120
+    cfg.title.fontSize, cfg.title.subtitleFontSize = ti
+    cfg.header.labelFontSize = hd
+
+    def shorten(part: Any) -> None:
+        h = getattr(part, "height", alt.Undefined)
+        if isinstance(h, (int, float)) and h > height:
+            part.height = height
+
+    if isinstance(c, alt.FacetChart):
+        shorten(c.spec)
+        inner = c.spec
+    else:
+        shorten(c)
+        for sub in list(getattr(c, "layer", []) or []):
+            shorten(sub)
+        inner = c
+    w = getattr(inner, "width", alt.Undefined)
+    width = float(w) if isinstance(w, (int, float)) else float(_WIDTH)
+    if isinstance(c, alt.FacetChart):
+        width = max(width * 2, _WIDTH)
+    title = getattr(c, "title", alt.Undefined)
+    if isinstance(title, alt.TitleParams) and title.subtitle is not alt.Undefined:
+        lines = [title.subtitle] if isinstance(title.subtitle, str) else list(title.subtitle)
+        chars = max(30, int(width / (0.56 * ti[1])))  # about 0.56 em per character
+        title.subtitle = [part for line in lines for part in _wrap(str(line), chars)]
+    cfg.axis.labelOverlap = "greedy"
+    cfg.legend.labelLimit = 420
+    c.config = cfg
+    return c
+
+
+def _wrap(text: str, width: int) -> list[str]:
+    """Break a line of text at spaces into lines of at most ``width`` characters."""
+    import textwrap
+
+    return textwrap.wrap(text, width) or [""]
 
 
 def chart_to_svg(chart: alt.TopLevelMixin) -> str:

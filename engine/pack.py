@@ -20,6 +20,7 @@ from __future__ import annotations
 import base64
 import datetime as _dt
 import hashlib
+import html
 import io
 import json
 import math
@@ -62,6 +63,9 @@ PACK_FILES = (
 
 #: several targets: the side-by-side table at the top of the pack
 TARGETS_FILE = "targets.csv"
+
+#: Files a pack holds only when their results were computed (on the page, on request).
+OPTIONAL_FILES = ("nested_cv.csv", "selection_stability.csv")
 
 #: Leading characters that make a spreadsheet run a cell as a formula
 #: (common practice, after the OWASP "CSV injection" advice).
@@ -202,6 +206,8 @@ def sklearn_pipeline(model: FinalModel):
     scaler.scale_ = np.asarray(model.half_range, float).copy()
     scaler.var_ = scaler.scale_ ** 2
     scaler.n_features_in_ = d
+    # predicting from a DataFrame with these columns raises no feature-name warning
+    scaler.feature_names_in_ = np.asarray([str(c) for c in model.input_names], dtype=object)
     steps: list[tuple[str, Any]] = [("scale", scaler)]
     exps = np.asarray(model.exponents, dtype=np.int64).reshape(-1, d)
     interactions = bool(np.any((exps > 0).sum(axis=1) > 1)) if exps.size else False
@@ -572,6 +578,68 @@ def summary_dict(analysis: Analysis, model: FinalModel, data_facts: dict, roles:
     return plain(out)
 
 
+def _nested_dict(nested: Any) -> dict | None:
+    """Nested cross-validation for ``summary.json`` (None when it did not run)."""
+    if nested is None:
+        return None
+    return {"outer_mse": nested.outer_mse, "outer_se": nested.outer_se,
+            "inner_mse": nested.inner_mse, "inner_se": getattr(nested, "inner_se", None),
+            "ratio": nested.ratio, "folds": int(len(nested.per_fold)),
+            "description": nested.description, "notes": list(nested.notes)}
+
+
+def _stability_dict(stability: Any, analysis: Analysis) -> dict | None:
+    """Selection stability for ``summary.json`` (None when it did not run)."""
+    if stability is None:
+        return None
+    rec = analysis.recommendation.recommended
+    t = stability.table
+    hit = t[(t["order"] == rec.order) & np.isclose(t["penalty"], rec.penalty)]
+    return {"method": stability.method, "repetitions": int(len(stability.chosen)),
+            "recommended_share": float(hit["share"].iloc[0]) if not hit.empty else 0.0,
+            "cells": [{"order": int(r["order"]), "penalty": float(r["penalty"]),
+                       "count": int(r["count"]), "share": float(r["share"])}
+                      for _, r in t.iterrows()],
+            "notes": list(stability.notes)}
+
+
+def model_formula(model: FinalModel, digits: int = 7, max_terms: int = 12) -> str:
+    """The fitted model as a formula in the raw inputs, e.g. ``y = 1.5 + 2·x - 0.3·x^2``.
+
+    Coefficients are written to ``digits`` significant digits (full precision in
+    ``model_coefficients.csv``); beyond ``max_terms`` terms the rest is elided.
+    """
+    parts = []
+    for i, (term, v) in enumerate(zip(model.terms, np.asarray(model.coefficients, float))):
+        if i > max_terms:
+            parts.append(f" + … ({len(model.terms) - i} more terms in model_coefficients.csv)")
+            break
+        num = f"{abs(v):.{digits}g}"
+        sign = "-" if v < 0 else "+"
+        body = num if term == "intercept" else f"{num}·{term}"
+        parts.append((("-" if v < 0 else "") + body) if not parts else f" {sign} {body}")
+    return f"{model.target} = " + ("".join(parts) if parts else "0")
+
+
+def usage(model: FinalModel, file: str = "model.skops") -> dict:
+    """How to use the recommended model elsewhere: three lines of Python, the
+    formula and the input range it was fitted on."""
+    example = {name: [float(np.round((lo + hi) / 2, 6))]
+               for name, lo, hi in zip(model.input_names, model.x_min, model.x_max)}
+    frame = ", ".join(f"{name!r}: {vals!r}" for name, vals in list(example.items())[:4])
+    if len(example) > 4:
+        frame += ", ..."
+    python = ["import pandas as pd, skops.io as sio",
+              f"model = sio.load({file!r}, trusted=sio.get_untrusted_types(file={file!r}))",
+              f"model.predict(pd.DataFrame({{{frame}}}))"]
+    return {"python": python,
+            "trust_note": f"Load only the {file} of this pack: loading trusts the scikit-learn "
+                          "types the file names. engine.pack.load_pipeline checks them first.",
+            "formula": model_formula(model),
+            "input_range": {name: [float(lo), float(hi)] for name, lo, hi in
+                            zip(model.input_names, model.x_min, model.x_max)}}
+
+
 def _versions() -> dict:
     import sklearn
 
@@ -801,8 +869,7 @@ _CSS = """
 html { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
 body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-size: 7.6pt;
        line-height: 1.28; color: #1d2330; margin: 0; }
-.page { width: 190mm; height: PAGE_Hmm; margin: 0 auto; display: flex; flex-direction: column;
-        overflow: hidden; }
+.page { width: 190mm; margin: 0 auto; display: flex; flex-direction: column; }
 .page > * { flex: 0 0 auto; }
 h1 { font-size: 13pt; margin: 0 0 .6mm 0; color: #17324d; }
 h2 { font-size: 8pt; margin: 0 0 1mm 0; color: #17324d; text-transform: uppercase;
@@ -814,17 +881,11 @@ h2 { font-size: 8pt; margin: 0 0 1mm 0; color: #17324d; text-transform: uppercas
 .verdict .fig { font-size: 8.2pt; margin-bottom: .8mm; }
 dl { display: grid; grid-template-columns: auto 1fr; gap: .2mm 2.5mm; margin: 0; }
 dt { color: #4a5566; white-space: nowrap; } dd { margin: 0; overflow-wrap: anywhere; }
-.page > .charts { flex: 1 1 auto; min-height: 0; display: grid; grid-template-columns: 1fr 1fr;
-          grid-template-rows: minmax(0, 1fr) minmax(0, 1fr) minmax(min-content, 1fr);
-          gap: 1.6mm 3.5mm; margin-bottom: 2mm; }
-.page > .charts.three { grid-template-columns: 1fr 1fr 1fr;
-          grid-template-rows: minmax(0, 1fr) minmax(min-content, 1fr); gap: 1.6mm 2.5mm; }
-.charts.three table { font-size: 6.6pt; } .charts.three th, .charts.three td { padding: .3mm .7mm; }
-.charts.three figcaption, .charts.three p { font-size: 6.9pt; }
-figure { margin: 0; min-height: 0; break-inside: avoid; }
-figure.chart { border: 0.4pt solid #d5dbe3; position: relative; }
-figure.chart img { position: absolute; inset: 0; width: 100%; height: 100%; object-fit: contain;
-                   display: block; }
+.page > .charts { display: grid; grid-template-columns: 1fr 1fr; gap: 1.6mm 3.5mm;
+          margin-bottom: 1.6mm; align-items: start; }
+figure { margin: 0; break-inside: avoid; }
+figure.chart { border: 0.4pt solid #d5dbe3; }
+figure.chart img { width: 100%; height: auto; display: block; }
 figcaption { font-weight: bold; color: #17324d; margin-bottom: .4mm; }
 table { border-collapse: collapse; width: 100%; font-size: 7.2pt; }
 th, td { padding: .3mm 1.2mm; text-align: right; border-bottom: 0.4pt solid #d5dbe3; }
@@ -835,16 +896,20 @@ ol.warn { margin: 0 0 1.5mm 0; padding-left: 4.5mm; columns: 2; column-gap: 6mm;
           font-size: 7.2pt; line-height: 1.24; }
 ol.warn li { margin-bottom: .6mm; break-inside: avoid; }
 ol.warn .adv { color: #4a5566; }
-.sev { font-weight: bold; text-transform: uppercase; font-size: 6.2pt; padding: 0 .8mm;
-       border-radius: .6mm; color: #fff; background: #6b7685; }
-.sev.caution { background: #a86400; } .sev.serious { background: #a61b1b; }
-.caution { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: 1mm 2mm;
-           font-size: 6.9pt; line-height: 1.22; }
+.sev { display: inline-block; font-weight: bold; text-transform: uppercase; font-size: 6pt;
+       line-height: 1.15; padding: 0 .7mm; border-radius: .6mm; vertical-align: .2pt;
+       border: 0.5pt solid #6b7685; color: #4a5566; background: #fff; }
+.sev.sev-serious { background: #a61b1b; border-color: #a61b1b; color: #fff; }
+.sev.sev-caution { border-color: #a86400; color: #8a5200; background: #fff; }
+.use { border: 0.5pt solid #b8c4d2; padding: 1mm 2mm; margin-bottom: 1.6mm; font-size: 7pt; }
+.use pre { margin: .4mm 0; font-size: 6.5pt; line-height: 1.2; white-space: pre-wrap;
+           overflow-wrap: anywhere; }
+.beforeuse { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: 1mm 2mm;
+             font-size: 6.9pt; line-height: 1.22; }
 .foot { color: #6b7685; font-size: 6.2pt; margin-top: 1.2mm; }
 code { font-size: 6.6pt; overflow-wrap: anywhere; }
 @media screen { body { padding: 6mm 0; background: #f3f5f8; }
-                .page { background: #fff; padding: 6mm 8mm; width: 206mm;
-                        height: calc(PAGE_Hmm + 12mm); } }
+                .page { background: #fff; padding: 6mm 8mm; width: 206mm; } }
 @media print { .page { zoom: var(--fit, 1); } }
 """
 
@@ -895,6 +960,76 @@ def chart_layout(s: dict) -> str:
     return "three" if three > two else "two"
 
 
+def _sorted_warnings(warnings: list[dict]) -> list[dict]:
+    """Warnings most severe first (serious, caution, note), keeping their numbers."""
+    return sorted(warnings, key=lambda w: (severity_rank(w.get("severity")), w.get("number", 0)))
+
+
+#: Printed height (mm) left for the warnings on the one-page summary.
+WARNINGS_ROOM_MM = 34.0
+
+
+def _warnings_html(s: dict, room_mm: float = WARNINGS_ROOM_MM) -> str:
+    """The warnings, most severe first; those that do not fit the page are named only."""
+    ws = _sorted_warnings(s["warnings"])
+    if not ws:
+        return "<p style=\"margin:0 0 1.5mm 0\">No warnings.</p>"
+    items, used, rest = [], 5.0, []
+    for w in ws:
+        h = _warnings_height_mm([w]) - 5.0
+        if items and used + h / 2.0 > room_mm:
+            rest.append(w)
+            continue
+        used += h / 2.0
+        sev = str(w.get("severity") or "note")
+        val = "" if w.get("value") is None else f" <i>(value: {_h(_value_words(w['value']))})</i>"
+        adv = f" <span class=\"adv\">{_h(w['advice'])}</span>" if w.get("advice") else ""
+        items.append(f"<li value=\"{int(w.get('number') or 0)}\"><span class=\"sev "
+                     f"sev-{_h(sev.lower())}\">{_h(sev)}</span> {_h(w['message'])}{val}{adv}</li>")
+    more = ""
+    if rest:
+        more = ("<p style=\"margin:0 0 1.5mm 0\">Also (full text in summary.md): "
+                + "; ".join(f"{int(w.get('number') or 0)}. {_h(w.get('severity') or 'note')}: "
+                            f"{_h(w.get('code'))}" for w in rest) + ".</p>")
+    return f"<ol class=\"warn\">{''.join(items)}</ol>{more}"
+
+
+def _trust_html(s: dict) -> str:
+    """Nested cross-validation and selection stability, when they ran."""
+    out = []
+    n = s.get("nested_cv")
+    if n:
+        out.append(f"Nested cross-validation: error of the whole choice on unseen rows MSE "
+                   f"{_num(n['outer_mse'])} ± {_num(n['outer_se'], 2)} against the sweep's "
+                   f"{_num(n['inner_mse'])} (ratio {_num(n['ratio'], 3)}; about 1 when the "
+                   "sweep's estimate holds).")
+    st = s.get("selection_stability")
+    if st:
+        out.append(f"Selection stability ({_h(st['method'])}, {st['repetitions']} "
+                   f"repetitions): the recommended cell was chosen in "
+                   f"{st['recommended_share']:.0%} of them.")
+    if not out:
+        return ("<p style=\"margin:1mm 0 0 0;color:#4a5566\">Nested cross-validation and "
+                "selection stability were not run for this pack.</p>")
+    return "".join(f"<p style=\"margin:1mm 0 0 0\">{t}</p>" for t in out)
+
+
+def _use_html(s: dict) -> str:
+    """'Use this model': three lines of Python, the formula, the input range."""
+    u = s.get("use")
+    if not u:
+        return ""
+    code = html.escape("\n".join(u["python"]), quote=True)  # code, kept as written
+    ranges = "; ".join(f"{_h(k)} {_num(v[0])} to {_num(v[1])}"
+                       for k, v in list(u["input_range"].items())[:6])
+    if len(u["input_range"]) > 6:
+        ranges += f"; … {len(u['input_range']) - 6} more in summary.json"
+    return (f"<div class=\"use\"><b>Use this model.</b> In Python, with pandas, scikit-learn "
+            f"and skops:<pre>{code}</pre><b>Formula</b> (7 significant digits; full precision "
+            f"in model_coefficients.csv): {_h(u['formula'])}<br><b>Valid for</b> inputs inside "
+            f"the range it was fitted on: {ranges}. Predictions outside it were not checked.</div>")
+
+
 def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
     """``summary.html``: one printed page; charts embedded as base64 PNG; user text escaped."""
     d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
@@ -907,15 +1042,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
         f"<dt>{label}</dt><dd>{_h(roles[key])}</dd>"
         for key, label in (("order_column", "Order column"), ("group_column", "Group column"),
                            ("split_column", "Split column")) if roles.get(key))
-    warn_items = []
-    for w in s["warnings"]:
-        sev = str(w.get("severity") or "note")
-        val = "" if w.get("value") is None else f" <i>(value: {_h(_value_words(w['value']))})</i>"
-        adv = f" <span class=\"adv\">{_h(w['advice'])}</span>" if w.get("advice") else ""
-        warn_items.append(f"<li><span class=\"sev {_h(sev.lower())}\">{_h(sev)}</span> "
-                          f"{_h(w['message'])}{val}{adv}</li>")
-    warn_html = (f"<ol class=\"warn\">{''.join(warn_items)}</ol>" if warn_items
-                 else "<p style=\"margin:0 0 1.5mm 0\">No warnings.</p>")
+    warn_html = _warnings_html(s)
     warn_html += "".join(f"<p class=\"adv\" style=\"margin:0 0 1.5mm 0\">{_h(line)}</p>"
                          for line in _check_note_lines(s))
     rows = []
@@ -925,27 +1052,21 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
                     f"<td>{_num(c['validation_mse'])}</td><td>{_num(c['validation_mse_se'], 2)}</td>"
                     f"<td>{_num(c['validation_r2'])}</td><td>{_num(c['effective_df'], 3)}</td>"
                     f"<td class=\"l\">{_h(c['role'])}</td></tr>")
-    layout = chart_layout(s)
-    stems = (["validation_curve", "order_penalty_heatmap", "order_comparison", "learning_curve",
-              "coefficient_magnitudes"] if layout == "three" else list(CHART_FILES))
     figs = []
-    for stem in stems:
-        title = CHART_FILES[stem]
+    for stem, title in CHART_FILES.items():
         if stem in pngs:
             b64 = base64.b64encode(pngs[stem]).decode("ascii")
             figs.append(f"<figure class=\"chart\"><img alt=\"{_h(title)}\" "
                         f"src=\"data:image/png;base64,{b64}\"></figure>")
     ff = s["final_fit"]
-    ranges = (f"Fitted on {_input_range_words(s, _h)}" if len(ff["input_range"]) <= 2 else
-              "Input ranges fitted on: see summary.json (final_fit)")
     figs.append("<figure><figcaption>Leading candidates (by mean validation error)</figcaption>"
                 "<table><tr><th>order</th><th>penalty</th><th>val. MSE</th><th>± SE</th>"
                 "<th>val. R²</th><th>eff. par.</th><th class=\"l\">role</th></tr>"
                 + "".join(rows) + "</table>"
                 f"<p style=\"margin:1mm 0 0 0\">Recommended model refitted on all {ff['rows']} "
                 f"rows: R² {_num(ff['r2'])}, residual SD {_num(ff['residual_sd'])}, condition "
-                f"number {_num(ff['condition_number'], 3)}. {ranges}; predictions outside "
-                "that range were not checked.</p></figure>")
+                f"number {_num(ff['condition_number'], 3)}.</p>{_trust_html(s)}</figure>")
+    use_html = _use_html(s)
     css = _CSS.replace("PAGE_H", f"{PAGE_BUDGET_MM:g}")
     sha = d["sha256"] or "not from a file"
     script = _FIT_SCRIPT.replace("%BUDGET%", f"{PAGE_BUDGET_MM:g}")
@@ -981,9 +1102,10 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
   </dl>
  </div>
 </div>
-<div class="charts {layout}">{''.join(figs)}</div>
+<div class="charts">{''.join(figs)}</div>
+{use_html}
 <h2>Warnings ({len(s['warnings'])})</h2>{warn_html}
-<div class="caution"><b>Before relying on this model.</b> {_h(CAUTION)}</div>
+<div class="beforeuse"><b>Before relying on this model.</b> {_h(CAUTION)}</div>
 <div class="foot">Fitladder {_h(generated)} · full numbers in summary.json and the CSV tables ·
  model.skops reproduces the recommended model in scikit-learn.</div>
 </div>{script}</body></html>
@@ -1046,8 +1168,13 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
                progress: Progress | None = None, load_options: dict | None = None,
                source_path: str | None = None,
                model_file_in_background: bool = False, analyses: list[Analysis] | None = None,
-               targets: pd.DataFrame | None = None) -> PackResult:
+               targets: pd.DataFrame | None = None, models: dict | None = None,
+               learning: Any | None = None, trust: tuple | None = None) -> PackResult:
     """Write the meeting pack for one request into ``out_dir``.
+
+    Whatever the caller already computed (the dashboard: its sweep, checks,
+    side-by-side fits, learning curve, nested cross-validation and selection
+    stability) is reused as it is; only what is missing is computed here.
 
     Parameters
     ----------
@@ -1068,6 +1195,12 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
     model_file_in_background : write ``model.skops`` in a forked child process
         while the rest of the pack is computed (for the command line; a
         server with threads writes it in-process).
+    models : ``{(order, penalty): FinalModel}`` fits on all rows already made
+        (`engine.compare.fit_candidates`); cells missing from it are fitted.
+    learning : a `LearningCurve` already made; used when it covers the orders
+        drawn, else computed.
+    trust : ``(NestedResult or None, StabilityResult or None)`` from
+        `engine.trust`, written to the pack when given.
 
     Returns
     -------
@@ -1101,7 +1234,11 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
     rec = analysis.recommendation.recommended
     if progress:
         progress(0.56, "Fitting the compared cells on all rows")
-    models = fit_candidates(data, analysis.spec, cells)
+    given = {_cell_key(*k): m for k, m in (models or {}).items()}
+    missing = [c for c in cells if c not in given]
+    if missing:
+        given.update(fit_candidates(data, analysis.spec, missing))
+    models = {c: given[c] for c in cells}
     model = models[_cell_key(rec.order, rec.penalty)]
     try:
         out.mkdir(parents=True, exist_ok=True)
@@ -1112,13 +1249,16 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
     if progress:
         progress(0.62, "Learning curve")
     lc_orders = sorted({q for q, _ in learning_cells(cells)})
-    lc = learning_curve(data, analysis.spec, orders=lc_orders)
+    lc = learning
+    if lc is None or not set(lc_orders) <= {int(q) for q in lc.table["order"]}:
+        lc = learning_curve(data, analysis.spec, orders=lc_orders)
     # the charts need nothing from the checks: draw them in the background meanwhile
     if progress:
         progress(0.70, "Drawing charts")
     from . import charts as _charts
     chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note)
-    rendering = _charts.render_charts(chart_objs)
+    rendering = _charts.render_charts({stem: _charts.for_print(ch, 150)
+                                       for stem, ch in chart_objs.items()})
     if checks is None:
         if progress:
             progress(0.72, "Checks")
@@ -1137,6 +1277,10 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
     summary["checks"] = plain(_check_facts(checks))
     if targets is not None:
         summary["targets"] = plain(targets.to_dict(orient="records"))
+    nested, stability = (tuple(trust) + (None, None))[:2] if trust else (None, None)
+    summary.update(plain({"nested_cv": _nested_dict(nested),
+                          "selection_stability": _stability_dict(stability, analysis),
+                          "use": usage(model)}))
     record = record_dict(spec, facts, roles, cells, load_options, source_path)
 
     if progress:
@@ -1181,12 +1325,18 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
                           "coefficient": np.asarray(model.coefficients, float)}),
             out / "model_coefficients.csv")
         written["model.skops"] = model_path
+        if nested is not None:
+            written["nested_cv.csv"] = write_csv(nested.per_fold, out / "nested_cv.csv")
+        if stability is not None:
+            written["selection_stability.csv"] = write_csv(stability.chosen,
+                                                           out / "selection_stability.csv")
     except OSError as exc:
         raise InputProblem(f"Could not write the pack to '{out}': {exc.strerror or exc}. "
                            "Choose a folder you can write to.", code="cannot_write") from None
     if progress:
         progress(1.0, "Pack written")
-    return PackResult(out_dir=out, files=[written[n] for n in PACK_FILES if n in written],
+    return PackResult(out_dir=out, files=[written[n] for n in PACK_FILES + OPTIONAL_FILES
+                                          if n in written],
                       summary=summary, record=record, analysis=full, model=model)
 
 
@@ -1199,7 +1349,7 @@ def pack_zip_bytes(out_dir: str | Path) -> bytes:
     buf = io.BytesIO()
     top = out.name or "fitladder_pack"
     with zipfile.ZipFile(buf, "w", compression=zipfile.ZIP_DEFLATED) as zf:
-        for name in PACK_FILES:
+        for name in PACK_FILES + OPTIONAL_FILES:
             p = out / name
             if p.is_file():
                 zf.write(p, arcname=f"{top}/{name}")
