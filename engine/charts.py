@@ -510,7 +510,7 @@ def learning_curve_chart(lc_table: pd.DataFrame, cells: list[tuple[int, float]],
         if top > 30.0 * floor * LEARNING_SPAN:  # tiny training sets of a high order explode
             top = 30.0 * floor * LEARNING_SPAN
             notes.append(f"Errors above {top:.0e} are drawn at the top edge."
-                         .replace("e+", "e"))
+                         .replace("e+0", "e").replace("e+", "e"))
             long["error"] = long["error"].clip(upper=top)
             long["high"] = long["high"].clip(upper=top)
         yscale = alt.Scale(type="log", domain=[floor, top], clamp=True)
@@ -837,11 +837,13 @@ def warm_renderer() -> None:
 
 #: Font sizes of charts printed at about 90 mm wide (the meeting pack's summary):
 #: about 7 pt on paper.
-_PRINT_FONTS = {"axis": (15, 15), "legend": (15, 14), "title": (19, 14), "header": 15}
+_PRINT_FONTS = {"axis": (15, 15), "legend": (15, 14), "title": (18, 13), "header": 15}
 
 
-def for_print(chart: alt.TopLevelMixin, height: int = 200) -> alt.TopLevelMixin:
-    """A copy of a chart for a printed page: larger type, plots at most ``height`` px tall."""
+def for_print(chart: alt.TopLevelMixin, height: int = 200,
+              min_width: int = 460) -> alt.TopLevelMixin:
+    """A copy of a chart for a printed page: larger type, plots at most ``height`` px tall
+    and at least ``min_width`` px wide (so every chart prints at one type size)."""
     c = chart.copy(deep=True)
     ax, lg, ti, hd = (_PRINT_FONTS[k] for k in ("axis", "legend", "title", "header"))
     cfg = _CONFIG.copy(deep=True)
@@ -851,18 +853,29 @@ def for_print(chart: alt.TopLevelMixin, height: int = 200) -> alt.TopLevelMixin:
     cfg.title.fontSize, cfg.title.subtitleFontSize = ti
     cfg.header.labelFontSize = hd
 
-    def shorten(part: Any) -> None:
-        h = getattr(part, "height", alt.Undefined)
-        if isinstance(h, (int, float)) and h > height:
-            part.height = height
+    def shorten(part: Any, limit: float) -> None:
+        h = part._kwds.get("height", alt.Undefined) if hasattr(part, "_kwds") else alt.Undefined
+        if isinstance(h, (int, float)) and h > limit:
+            part["height"] = int(limit)
+
+    if isinstance(c, (alt.Chart, alt.LayerChart)):  # narrow charts would be printed larger
+        w0 = c._kwds.get("width", alt.Undefined)
+        if isinstance(w0, (int, float)) and w0 < min_width:
+            c["width"] = min_width
+
+    def shorten_all(part: Any, limit: float) -> None:
+        shorten(part, limit)
+        for key in ("layer", "hconcat", "vconcat", "concat"):
+            subs = part._kwds.get(key, alt.Undefined) if hasattr(part, "_kwds") else alt.Undefined
+            for sub in (subs if isinstance(subs, list) else []):
+                # rows stacked in a column share the height
+                shorten_all(sub, limit * 0.6 if key == "vconcat" else limit)
 
     if isinstance(c, alt.FacetChart):
-        shorten(c.spec)
+        shorten_all(c.spec, height)
         inner = c.spec
     else:
-        shorten(c)
-        for sub in list(getattr(c, "layer", []) or []):
-            shorten(sub)
+        shorten_all(c, height)
         inner = c
     w = getattr(inner, "width", alt.Undefined)
     width = float(w) if isinstance(w, (int, float)) else float(_WIDTH)
@@ -871,12 +884,34 @@ def for_print(chart: alt.TopLevelMixin, height: int = 200) -> alt.TopLevelMixin:
     title = getattr(c, "title", alt.Undefined)
     if isinstance(title, alt.TitleParams) and title.subtitle is not alt.Undefined:
         lines = [title.subtitle] if isinstance(title.subtitle, str) else list(title.subtitle)
-        chars = max(30, int(width / (0.56 * ti[1])))  # about 0.56 em per character
+        chars = max(30, int((width + 80) / (0.52 * ti[1])))  # about 0.52 em per character
         title.subtitle = [part for line in lines for part in _wrap(str(line), chars)]
+    _wrap_axis_titles(c, max(20, int(height / (0.55 * ax[1]))))
     cfg.axis.labelOverlap = "greedy"
-    cfg.legend.labelLimit = 420
+    cfg.legend.labelLimit = 300
+    cfg.legend.columns = 2
+    cfg.header.labelPadding = 2
+    cfg.facet = alt.CompositionConfig(spacing=14)
     c.config = cfg
     return c
+
+
+def _wrap_axis_titles(part: Any, chars: int) -> None:
+    """Break long y-axis titles into lines that fit along a short plot."""
+    enc = getattr(part, "encoding", alt.Undefined)
+    if enc is not alt.Undefined and enc is not None:
+        for name in ("y", "y2"):
+            ch = enc._kwds.get(name, alt.Undefined)
+            title = ch._kwds.get("title", alt.Undefined) if hasattr(ch, "_kwds") else alt.Undefined
+            if isinstance(title, str) and len(title) > chars:
+                ch["title"] = _wrap(title, chars)
+    for key in ("layer", "hconcat", "vconcat", "concat"):
+        subs = part._kwds.get(key, alt.Undefined) if hasattr(part, "_kwds") else alt.Undefined
+        for sub in (subs if isinstance(subs, list) else []):
+            _wrap_axis_titles(sub, chars)
+    inner = getattr(part, "spec", alt.Undefined)
+    if inner is not alt.Undefined and inner is not None and not isinstance(inner, dict):
+        _wrap_axis_titles(inner, chars)
 
 
 def _wrap(text: str, width: int) -> list[str]:

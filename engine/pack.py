@@ -247,6 +247,12 @@ def sklearn_pipeline(model: FinalModel):
     return Pipeline(steps)
 
 
+def warm() -> None:
+    """Import what writing a pack needs (skops, scikit-learn) ahead of the first pack."""
+    import skops.io  # noqa: F401
+    import sklearn.pipeline  # noqa: F401
+
+
 def save_pipeline(model: FinalModel, path: Path) -> Path:
     """Save `sklearn_pipeline(model)` with skops."""
     import skops.io as sio
@@ -864,7 +870,7 @@ def _value_words(v: Any) -> str:
 
 
 _CSS = """
-@page { size: A4; margin: 9mm 10mm; }
+@page { size: A4; margin: 8mm 10mm; }
 * { box-sizing: border-box; }
 html { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
 body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-size: 7.6pt;
@@ -904,8 +910,8 @@ ol.warn .adv { color: #4a5566; }
 .use { border: 0.5pt solid #b8c4d2; padding: 1mm 2mm; margin-bottom: 1.6mm; font-size: 7pt; }
 .use pre { margin: .4mm 0; font-size: 6.5pt; line-height: 1.2; white-space: pre-wrap;
            overflow-wrap: anywhere; }
-.beforeuse { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: 1mm 2mm;
-             font-size: 6.9pt; line-height: 1.22; }
+.beforeuse { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: .8mm 2mm;
+             font-size: 6.6pt; line-height: 1.2; }
 .foot { color: #6b7685; font-size: 6.2pt; margin-top: 1.2mm; }
 code { font-size: 6.6pt; overflow-wrap: anywhere; }
 @media screen { body { padding: 6mm 0; background: #f3f5f8; }
@@ -1077,7 +1083,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
 <style>{css}</style></head>
 <body><div class="page">
 <h1>Model choice for {tgt}</h1>
-<div class="sub">{_h(d['file'])} · {d['rows_used']} rows used · {_h(s['validation']['description'])}</div>
+<div class="sub">{_h(d['file'])} · {d['rows_used']} rows used · {_h(s['validation'].get('scheme_name', ''))}</div>
 <div class="top">
  <div class="verdict">
   <div class="big">Recommended: {_h(_headline(s))}</div>
@@ -1257,7 +1263,7 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         progress(0.70, "Drawing charts")
     from . import charts as _charts
     chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note)
-    rendering = _charts.render_charts({stem: _charts.for_print(ch, 150)
+    rendering = _charts.render_charts({stem: _charts.for_print(ch, 115)
                                        for stem, ch in chart_objs.items()})
     if checks is None:
         if progress:

@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from engine import ArrayData, SchemeSpec, SweepSpec, fit_cell
+from engine import ArrayData, SchemeSpec, SweepSpec, analyse, fit_cell
 from engine.errors import InputProblem
 from engine.loading import load_table, prepare
 from engine.pack import (CHART_FILES, FORMULA_START, PACK_FILES, build_pack,
@@ -374,10 +374,9 @@ def test_summary_prints_on_one_page(browser, which, request, output_dir):
         page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
         page.goto(url)
         page.wait_for_load_state("load")
-        for fmt in ("A4", "Letter"):
-            pdf = page.pdf(format=fmt, print_background=True)
-            assert pdf[:5] == b"%PDF-"
-            assert _pdf_pages(pdf) == 1, (which, fmt, js)
+        pdf = page.pdf(format="A4", print_background=True)
+        assert pdf[:5] == b"%PDF-"
+        assert _pdf_pages(pdf) == 1, (which, js)
         if js:
             page.emulate_media(media="print")
             page.screenshot(path=str(output_dir / f"pack_summary_{which}.png"), full_page=True)
@@ -387,3 +386,111 @@ def test_summary_prints_on_one_page(browser, which, request, output_dir):
                 assert NASTY_Y in body and NASTY_FILE in body  # shown as text ...
                 assert dialogs == []     # ... and never run
         ctx.close()
+
+
+# Text-bearing elements whose boxes must not overlap on the printed page.
+_TEXT_BOXES = """() => {
+  const mm = 96 / 25.4;
+  const sel = 'h1, h2, .sub, .big, .fig, dt, dd, td, th, figcaption, li, pre, .sev, p, ' +
+              '.beforeuse, .foot, figure.chart img';
+  const els = [...document.querySelectorAll(sel)];
+  return els.map((e, i) => {
+    const r = e.getBoundingClientRect();
+    return {i: i, tag: e.tagName + '.' + e.className, text: (e.innerText || '').slice(0, 40),
+            x: r.left / mm, y: r.top / mm, w: r.width / mm, h: r.height / mm,
+            parents: els.map((o, j) => (o !== e && o.contains(e)) ? j : -1).filter(j => j >= 0)};
+  });
+}"""
+
+
+@pytest.mark.browser
+def test_page_pack_in_one_call_with_trust_and_a_readable_a4_page(browser, demo_dir, tmp_path,
+                                                                output_dir):
+    """The dashboard's pack: one `build_pack` call fed with what the page computed
+    (sweep, checks, fits, learning curve, nested CV, stability) refits nothing,
+    carries nested CV and stability, and prints on one A4 page with no overlapping
+    text boxes and every chart at least 80 mm wide."""
+    import engine.pack as P
+    from engine import learning_curve, trust
+    from engine.checks import run_checks
+    from engine.compare import fit_candidates
+
+    loaded = load_table(demo_dir / "calibration_curve.csv")
+    data = prepare(loaded.frame, "bath_temp_C", ["probe_mV"])
+    spec = SweepSpec("bath_temp_C", ("probe_mV",), max_order=10, scheme=SchemeSpec("loo"))
+    analysis = analyse(data, spec)
+    rec = analysis.recommendation.recommended
+    cells = [(rec.order, rec.penalty), (10, rec.penalty), (2, 0.0), (10, 0.0)]
+    models = fit_candidates(data, spec, cells)
+    lc = learning_curve(data, spec, orders=[rec.order, 10])
+    checks = run_checks(data, analysis)
+    nested = trust.nested_cv(data, spec, 3, analysis=analysis)
+    stab = trust.selection_stability(data, spec, 4, "repeated", None)
+
+    def refit(*a, **k):
+        raise AssertionError("the pack refitted something the page had computed")
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(P, "fit_candidates", refit)
+        mp.setattr(P, "learning_curve", refit)
+        mp.setattr(P, "analyse", refit)
+        res = P.build_pack(tmp_path / "pack", loaded=loaded, source_name="calibration_curve.csv",
+                           data=data, spec=spec, analysis=analysis, checks=checks,
+                           compare_orders=cells, models=models, learning=lc,
+                           trust=(nested, stab))
+    s = res.summary
+    assert s["nested_cv"]["outer_mse"] == pytest.approx(nested.outer_mse, rel=1e-12)
+    assert s["selection_stability"]["repetitions"] == 4
+    assert (tmp_path / "pack" / "nested_cv.csv").is_file()
+    assert (tmp_path / "pack" / "selection_stability.csv").is_file()
+    assert s["compared_cells"][:4] == [{"order": q, "penalty": a} for q, a in cells]
+    html_text = (tmp_path / "pack" / "summary.html").read_text()
+    assert "Nested cross-validation" in html_text and "Selection stability" in html_text
+    assert "Use this model" in html_text
+
+    ctx = browser.new_context(viewport={"width": 900, "height": 1200})
+    page = ctx.new_page()
+    page.goto((tmp_path / "pack" / "summary.html").as_uri())
+    page.wait_for_load_state("load")
+    page.emulate_media(media="print")
+    assert _pdf_pages(page.pdf(format="A4", print_background=True)) == 1
+    page.screenshot(path=str(output_dir / "pack_summary_page_call.png"), full_page=True)
+    boxes = page.evaluate(_TEXT_BOXES)
+    ctx.close()
+    imgs = [b for b in boxes if b["tag"].startswith("IMG")]
+    assert len(imgs) == len(P.CHART_FILES)
+    assert all(b["w"] >= 80.0 for b in imgs), [round(b["w"], 1) for b in imgs]
+    eps = 0.05  # mm: touching edges are not an overlap
+    shown = [b for b in boxes if b["w"] > 0 and b["h"] > 0]
+    for i, a in enumerate(shown):
+        for b in shown[i + 1:]:
+            if a["i"] in b["parents"] or b["i"] in a["parents"]:
+                continue
+            apart = (a["x"] + a["w"] <= b["x"] + eps or b["x"] + b["w"] <= a["x"] + eps or
+                     a["y"] + a["h"] <= b["y"] + eps or b["y"] + b["h"] <= a["y"] + eps)
+            assert apart, (a["tag"], a["text"], b["tag"], b["text"])
+
+
+def test_warnings_are_listed_most_severe_first():
+    from engine.pack import _sorted_warnings
+
+    ws = [{"number": 1, "severity": "note"}, {"number": 2, "severity": "caution"},
+          {"number": 3, "severity": "serious"}, {"number": 4, "severity": "caution"}]
+    assert [w["number"] for w in _sorted_warnings(ws)] == [3, 2, 4, 1]
+
+
+def test_saved_pipeline_predicts_from_a_dataframe_without_warnings(demo_pack, tmp_path):
+    import warnings
+
+    res, data, spec, _ = demo_pack
+    pipe = load_pipeline(res.out_dir / "model.skops")
+    frame = pd.DataFrame({"probe_mV": [3.0, 8.0, 12.5]})
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        got = pipe.predict(frame)
+    np.testing.assert_allclose(got, res.model.predict(frame[["probe_mV"]].to_numpy()),
+                               rtol=1e-9)
+    use = res.summary["use"]
+    assert len(use["python"]) == 3
+    assert use["formula"].startswith("bath_temp_C = ")
+    assert use["input_range"]["probe_mV"] == [float(data.X[:, 0].min()), float(data.X[:, 0].max())]
