@@ -837,7 +837,7 @@ def warm_renderer() -> None:
 
 #: Font sizes of charts printed at about 90 mm wide (the meeting pack's summary):
 #: about 7 pt on paper.
-_PRINT_FONTS = {"axis": (15, 15), "legend": (15, 14), "title": (18, 13), "header": 15}
+_PRINT_FONTS = {"axis": (15, 15), "legend": (15, 14), "title": (18, 12), "header": 15}
 
 
 def for_print(chart: alt.TopLevelMixin, height: int = 200,

@@ -870,11 +870,11 @@ def _value_words(v: Any) -> str:
 
 
 _CSS = """
-@page { size: A4; margin: 8mm 10mm; }
+@page { size: A4; margin: 6mm 10mm; }
 * { box-sizing: border-box; }
 html { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
-body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-size: 7.6pt;
-       line-height: 1.28; color: #1d2330; margin: 0; }
+body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-size: 7.3pt;
+       line-height: 1.25; color: #1d2330; margin: 0; }
 .page { width: 190mm; margin: 0 auto; display: flex; flex-direction: column; }
 .page > * { flex: 0 0 auto; }
 h1 { font-size: 13pt; margin: 0 0 .6mm 0; color: #17324d; }
@@ -884,7 +884,7 @@ h2 { font-size: 8pt; margin: 0 0 1mm 0; color: #17324d; text-transform: uppercas
 .top { display: grid; grid-template-columns: 1.12fr 1fr; gap: 3.5mm; margin-bottom: 2mm; }
 .verdict { background: #eef4fa; border-left: 2.2mm solid #2f6f9f; padding: 1.8mm 3mm; }
 .verdict .big { font-size: 11pt; font-weight: bold; color: #17324d; margin-bottom: .6mm; }
-.verdict .fig { font-size: 8.2pt; margin-bottom: .8mm; }
+.verdict .fig { font-size: 7.8pt; margin-bottom: .6mm; }
 dl { display: grid; grid-template-columns: auto 1fr; gap: .2mm 2.5mm; margin: 0; }
 dt { color: #4a5566; white-space: nowrap; } dd { margin: 0; overflow-wrap: anywhere; }
 .page > .charts { display: grid; grid-template-columns: 1fr 1fr; gap: 1.6mm 3.5mm;
@@ -899,7 +899,7 @@ th { color: #4a5566; font-weight: normal; border-bottom: 0.8pt solid #8a97a8; }
 td.l, th.l { text-align: left; }
 tr.rec td { background: #e1eef8; font-weight: bold; }
 ol.warn { margin: 0 0 1.5mm 0; padding-left: 4.5mm; columns: 2; column-gap: 6mm;
-          font-size: 7.2pt; line-height: 1.24; }
+          font-size: 6.8pt; line-height: 1.22; }
 ol.warn li { margin-bottom: .6mm; break-inside: avoid; }
 ol.warn .adv { color: #4a5566; }
 .sev { display: inline-block; font-weight: bold; text-transform: uppercase; font-size: 6pt;
@@ -907,7 +907,8 @@ ol.warn .adv { color: #4a5566; }
        border: 0.5pt solid #6b7685; color: #4a5566; background: #fff; }
 .sev.sev-serious { background: #a61b1b; border-color: #a61b1b; color: #fff; }
 .sev.sev-caution { border-color: #a86400; color: #8a5200; background: #fff; }
-.use { border: 0.5pt solid #b8c4d2; padding: 1mm 2mm; margin-bottom: 1.6mm; font-size: 7pt; }
+.use { border: 0.5pt solid #b8c4d2; padding: .8mm 2mm; margin-bottom: 1.4mm; font-size: 6.6pt;
+       line-height: 1.2; }
 .use pre { margin: .4mm 0; font-size: 6.5pt; line-height: 1.2; white-space: pre-wrap;
            overflow-wrap: anywhere; }
 .beforeuse { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: .8mm 2mm;
@@ -972,7 +973,7 @@ def _sorted_warnings(warnings: list[dict]) -> list[dict]:
 
 
 #: Printed height (mm) left for the warnings on the one-page summary.
-WARNINGS_ROOM_MM = 34.0
+WARNINGS_ROOM_MM = 36.0
 
 
 def _warnings_html(s: dict, room_mm: float = WARNINGS_ROOM_MM) -> str:
@@ -980,13 +981,16 @@ def _warnings_html(s: dict, room_mm: float = WARNINGS_ROOM_MM) -> str:
     ws = _sorted_warnings(s["warnings"])
     if not ws:
         return "<p style=\"margin:0 0 1.5mm 0\">No warnings.</p>"
-    items, used, rest = [], 5.0, []
+    room_mm -= 6.0 * len(_check_note_lines(s))
+    items, total, tallest, rest = [], 0.0, 0.0, []
     for w in ws:
-        h = _warnings_height_mm([w]) - 5.0
-        if items and used + h / 2.0 > room_mm:
+        chars = len(str(w.get("message") or "")) + len(str(w.get("advice") or "")) + 34
+        h = math.ceil(chars / 60.0) * 2.9 + 0.7  # lines of about 60 characters at 6.8 pt
+        # two balanced columns: about half the total, plus at most half the tallest item
+        if items and (total + h) / 2.0 + max(tallest, h) / 2.0 > room_mm:
             rest.append(w)
             continue
-        used += h / 2.0
+        total, tallest = total + h, max(tallest, h)
         sev = str(w.get("severity") or "note")
         val = "" if w.get("value") is None else f" <i>(value: {_h(_value_words(w['value']))})</i>"
         adv = f" <span class=\"adv\">{_h(w['advice'])}</span>" if w.get("advice") else ""
@@ -1032,7 +1036,7 @@ def _use_html(s: dict) -> str:
         ranges += f"; … {len(u['input_range']) - 6} more in summary.json"
     return (f"<div class=\"use\"><b>Use this model.</b> In Python, with pandas, scikit-learn "
             f"and skops:<pre>{code}</pre><b>Formula</b> (7 significant digits; full precision "
-            f"in model_coefficients.csv): {_h(u['formula'])}<br><b>Valid for</b> inputs inside "
+            f"in model_coefficients.csv): {_h(u['formula'])}. <b>Valid for</b> inputs inside "
             f"the range it was fitted on: {ranges}. Predictions outside it were not checked.</div>")
 
 
@@ -1049,10 +1053,14 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
         for key, label in (("order_column", "Order column"), ("group_column", "Group column"),
                            ("split_column", "Split column")) if roles.get(key))
     warn_html = _warnings_html(s)
-    warn_html += "".join(f"<p class=\"adv\" style=\"margin:0 0 1.5mm 0\">{_h(line)}</p>"
+    warn_html += "".join(f"<p class=\"adv\" style=\"margin:0 0 1.2mm 0;font-size:6.4pt\">"
+                         f"{_h(line)}</p>"
                          for line in _check_note_lines(s))
     rows = []
-    for c in s["candidates"]:
+    shown = [c for c in s["candidates"] if c["role"]]  # recommended and best always
+    shown = [c for c in s["candidates"] if c in shown or
+             len([x for x in s["candidates"][:s["candidates"].index(c)] if not x["role"]]) < 3]
+    for c in shown:
         cls = " class=\"rec\"" if "recommended" in c["role"] else ""
         rows.append(f"<tr{cls}><td>{int(c['order'])}</td><td>{_penalty_short(c['penalty'])}</td>"
                     f"<td>{_num(c['validation_mse'])}</td><td>{_num(c['validation_mse_se'], 2)}</td>"
@@ -1062,8 +1070,11 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
     for stem, title in CHART_FILES.items():
         if stem in pngs:
             b64 = base64.b64encode(pngs[stem]).decode("ascii")
-            figs.append(f"<figure class=\"chart\"><img alt=\"{_h(title)}\" "
-                        f"src=\"data:image/png;base64,{b64}\"></figure>")
+            # the trust results sit under the last chart, beside the candidates table
+            tail = f"</figure><div>{_trust_html(s)}</div>" if stem == "coefficient_magnitudes" \
+                else "</figure>"
+            figs.append(f"<div><figure class=\"chart\"><img alt=\"{_h(title)}\" "
+                        f"src=\"data:image/png;base64,{b64}\">{tail}</div>")
     ff = s["final_fit"]
     figs.append("<figure><figcaption>Leading candidates (by mean validation error)</figcaption>"
                 "<table><tr><th>order</th><th>penalty</th><th>val. MSE</th><th>± SE</th>"
@@ -1071,7 +1082,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
                 + "".join(rows) + "</table>"
                 f"<p style=\"margin:1mm 0 0 0\">Recommended model refitted on all {ff['rows']} "
                 f"rows: R² {_num(ff['r2'])}, residual SD {_num(ff['residual_sd'])}, condition "
-                f"number {_num(ff['condition_number'], 3)}.</p>{_trust_html(s)}</figure>")
+                f"number {_num(ff['condition_number'], 3)}.</p></figure>")
     use_html = _use_html(s)
     css = _CSS.replace("PAGE_H", f"{PAGE_BUDGET_MM:g}")
     sha = d["sha256"] or "not from a file"
@@ -1263,7 +1274,7 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         progress(0.70, "Drawing charts")
     from . import charts as _charts
     chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note)
-    rendering = _charts.render_charts({stem: _charts.for_print(ch, 115)
+    rendering = _charts.render_charts({stem: _charts.for_print(ch, 95)
                                        for stem, ch in chart_objs.items()})
     if checks is None:
         if progress:
