@@ -31,7 +31,7 @@ import streamlit as st
 from engine import (SCHEME_HELP, InputProblem, SchemeSpec, SweepSpec, analyse,
                     default_penalties, learning_curve)
 from engine import charts as C
-from dashboard.grid_axes import axes_controls, grid_heatmap
+from dashboard.grid_axes import axes_controls, grid_heatmap, target_choice, targets_control
 from engine.labels import rung_text
 from engine.compare import fit_candidates
 from engine.labels import (CHARTS, ROW_ORDER_ANSWERS, ROW_ORDER_HELP, SCHEME_NAMES,
@@ -165,9 +165,17 @@ def cached_load(digest: str, name: str, _raw: bytes, decimal: str = "."):
 
 
 @st.cache_data(show_spinner=False, max_entries=16, ttl=3600)
-def cached_prepare(data_key: str, roles: tuple, _frame: pd.DataFrame):
-    """`engine.loading.prepare`; ``data_key`` names the bytes AND how they were read."""
+def cached_prepare(data_key: str, roles: tuple, _frame: pd.DataFrame, more: tuple = ()):
+    """`engine.loading.prepare`; ``data_key`` names the bytes AND how they were read.
+
+    ``more``: further targets (`engine.targets.prepare_targets`).
+    """
     target, inputs, order_col, group_col, split_col = roles
+    if more:
+        from engine.targets import prepare_targets
+        return prepare_targets(_frame, (target,) + tuple(more), list(inputs),
+                               order_column=order_col, group_column=group_col,
+                               split_column=split_col)
     return prepare(_frame, target, list(inputs), order_column=order_col,
                    group_column=group_col, split_column=split_col)
 
@@ -196,7 +204,12 @@ def cached_analysis(data_key: str, roles: tuple, spec_dict: dict, data,
         if key in store:
             store.move_to_end(key)
             return store[key]
-    result = analyse(data, SweepSpec.from_dict(spec_dict), progress=progress)
+    spec = SweepSpec.from_dict(spec_dict)
+    if spec.extra_targets:   # several targets: one analysis each, from one pass
+        from engine.analysis import analyse_targets
+        result = analyse_targets(data, spec, progress=progress)
+    else:
+        result = analyse(data, spec, progress=progress)
     with lock:
         store[key] = result
         while len(store) > SWEEPS_KEPT:
@@ -288,7 +301,7 @@ def apply_preset(p: Preset) -> None:
     ss["pen_zero"] = p.pen_zero
     ss["seed"] = p.seed
     ss["rows_time"] = next(iter(ROW_ORDER_ANSWERS))
-    for k in ("lags_max", "target_lags_max", "nested_inputs"):   # past values, input sets
+    for k in ("lags_max", "target_lags_max", "nested_inputs", "extra_targets", "target_shown"):
         ss.pop(k, None)
     ss["_preset"] = p
 
@@ -317,6 +330,8 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
         ss["target"] = numeric[-1]
     target = st.sidebar.selectbox(option_label("target"), numeric, key="target")
     others = [c for c in numeric if c != target]
+    more = targets_control(others)
+    others = [c for c in others if c not in more]
     keep("all_inputs", False)
     all_inputs = st.sidebar.checkbox(f"Use every other numeric column as an input",
                                      key="all_inputs")
@@ -422,7 +437,7 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
                           gap=int(gap or 0), holdout_fraction=float(frac),
                           order_column=order_c, group_column=group_c, split_column=split_c,
                           rows_in_time_order=rows_time),
-        seed=int(seed), lags=lags, nested_inputs=nested)
+        seed=int(seed), lags=lags, nested_inputs=nested, extra_targets=more)
     return Choices(roles=roles, spec=spec)
 
 
@@ -1029,7 +1044,7 @@ def main() -> None:
         return
     roles, spec = choices.roles, choices.spec
     try:
-        data = cached_prepare(data_key, roles, loaded.frame)
+        data = cached_prepare(data_key, roles, loaded.frame, spec.extra_targets)
         spec_dict = spec.to_dict()
         bar = st.progress(0.0, text="Sweeping orders and penalties…")
         analysis = cached_analysis(
@@ -1048,7 +1063,10 @@ def main() -> None:
         for k in VIEW_KEYS:
             st.session_state.pop(k, None)
         st.session_state["_analysis_key"] = analysis_key
-    target = spec.target
+    analysis = target_choice(analysis if isinstance(analysis, list) else [analysis])
+    target = analysis.target
+    if spec.extra_targets:   # background fits and checks belong to the target shown
+        analysis_key = f"{analysis_key}|target={target}"
     drop = (f" · {data.rows_dropped:,} dropped (see below and Data)" if data.rows_dropped
             else "")
     st.caption(md(f"{loaded.report.source_name} · {data.n_rows:,} of {data.rows_in:,} rows used"

@@ -95,3 +95,31 @@ def grid_heatmap(analysis, target: str):
     held_text = ", ".join(f"{GRID_AXES.get(a, a).split(' (')[0]} {_value_text(a, v)}"
                           for a, v in fixed.items())
     return grid_heatmap_chart(cells, x, y, analysis.recommendation.best, rec, target, held_text)
+
+
+def targets_control(candidates: list[str]) -> tuple[str, ...]:
+    """Sidebar multiselect of further targets (columns predicted from the same inputs)."""
+    ss = st.session_state
+    ss["extra_targets"] = [c for c in ss.get("extra_targets", []) if c in candidates]
+    more = st.sidebar.multiselect(option_label("extra_targets") + " (optional)", candidates,
+                                  key="extra_targets",
+                                  help="Each gets its own grid and recommendation; one pass "
+                                       "over the rows serves them all.")
+    return tuple(more)
+
+
+def target_choice(analyses: list):
+    """Side-by-side table of every target's recommendation; returns the analysis to show."""
+    if len(analyses) == 1:
+        return analyses[0]
+    from engine.labels import human_headers
+    from engine.pack import targets_table
+
+    table = targets_table(analyses).drop(columns=["section"], errors="ignore")
+    st.markdown("##### Targets side by side")
+    st.dataframe(human_headers(table), hide_index=True, width="stretch")
+    names = [a.target for a in analyses]
+    if st.session_state.get("target_shown") not in names:
+        st.session_state["target_shown"] = names[0]
+    shown = st.radio("Target shown below", names, key="target_shown", horizontal=True)
+    return analyses[names.index(shown)]

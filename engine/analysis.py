@@ -245,7 +245,7 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
     except (ValueError, np.linalg.LinAlgError, MemoryError) as exc:  # pragma: no cover
         raise InputProblem(f"The sweep could not be computed: {exc}", code="sweep_failed") from exc
     table = res.validation_table()
-    rec = recommend(table, float(np.mean(res.n_train)))
+    rec = _pick(table, res, spec)
     return Analysis(spec=spec, sweep=res, validation=table, recommendation=rec, basis=basis,
                     plan=plan, n_rows=int(len(data.y)), notes=list(res.notes))
 
@@ -414,6 +414,14 @@ def _learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None,
     return LearningCurve(folds=folds, table=table, note=note)
 
 
+def _pick(table: pd.DataFrame, res: SweepResult, spec: SweepSpec) -> Recommendation:
+    """The recommendation of a sweep (one place for every kind of grid).
+
+    ``table`` rows are aligned with ``res.validation_errors()`` (cells x splits).
+    """
+    return recommend(table, float(np.mean(res.n_train)))
+
+
 def target_matrix(data, spec: SweepSpec) -> np.ndarray:
     """(n, T) values of every target of ``spec`` (``data.Y`` for several targets)."""
     if not spec.extra_targets:
@@ -494,7 +502,7 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
     out = []
     for t, (res, info) in enumerate(ladders):
         table = res.validation_table()
-        rec = recommend(table, float(np.mean(res.n_train)))
+        rec = _pick(table, res, spec)
         cols = _final_columns(design, basis, info, rec.recommended, t, spec)
         names = tuple(design.columns[c] for c in cols)
         mdata = ArrayData(design.X[:, cols], design.Y[:, t], names, spec.targets[t],

