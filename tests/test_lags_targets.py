@@ -256,7 +256,7 @@ def test_view_is_the_plain_analysis_of_the_chosen_columns():
     assert len(v.validation) == 4 and len(a.validation) == 2 * 3 * 4
 
 
-def test_command_line_lags_and_two_targets_pack_and_rerun(tmp_path, capsys):
+def test_command_line_lags_and_two_targets_pack_and_record(tmp_path, capsys):
     # one pack section per target, grid rows with the new keys, the request in the record
     import json
 
