@@ -252,6 +252,19 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--rank-inputs", choices=("lasso", "given"), default=None,
                      help="compare the first 1, 2, ... inputs, ranked inside each split by "
                           "their entry into the lasso path (lasso) or in --inputs order (given)")
+    run.add_argument("--stream", action="store_true",
+                     help="read DATA (CSV, Parquet, or a folder of Parquet files) in record "
+                          "batches instead of whole: for tables larger than memory; shuffled "
+                          "k-fold only, folds from a hash of the seed and the row number; the "
+                          "steps after the sweep use a seeded sample (--sample-rows). Implied "
+                          "when DATA is a folder")
+    run.add_argument("--sample-rows", type=_positive_int, default=100_000, metavar="N",
+                     help="rows in the seeded sample that side-by-side fits, learning curve, "
+                          "checks and charts use with --stream or --cluster")
+    run.add_argument("--cluster", default=None, metavar="ADDRESS|local",
+                     help="summarise DATA on a Dask cluster (scheduler address, or 'local' for "
+                          "a local cluster); DATA may be any path or URL Dask reads (Parquet "
+                          "or CSV); needs the optional 'cluster' extra (dask, distributed)")
     run.add_argument("--out", required=True, metavar="DIR",
                      help="folder to write the pack into (created if missing)")
 
@@ -378,9 +391,71 @@ def _prepare(frame, targets: tuple[str, ...], inputs, **roles):
     return prepare_targets(frame, targets, inputs, **roles)
 
 
+def command_stream(args: argparse.Namespace) -> int:
+    """``fitladder run --stream`` / ``--cluster``: summaries without holding the table."""
+    from .analysis import ArrayData
+    from .pack import build_pack
+    from . import streaming
+
+    if args.scheme != "kfold":
+        raise UsageProblem(f"--stream and --cluster support --scheme kfold only (got "
+                           f"{args.scheme}); load the table whole for other schemes.",
+                           code="bad_scheme")
+    for flag, value in (("--order-column", args.order_column), ("--group-column",
+                        args.group_column), ("--split-column", args.split_column),
+                        ("--more-targets", getattr(args, "more_targets", None)),
+                        ("--lags", getattr(args, "lags", None))):
+        if value:
+            raise UsageProblem(f"{flag} cannot be used with --stream or --cluster.",
+                               code="bad_option")
+    penalties = _penalty_grid(args)
+    progress = _StderrProgress()
+    progress(0.0, f"Reading {args.data} in record batches")
+    if args.cluster:
+        from . import cluster
+
+        inputs = args.inputs or [c for c in cluster.numeric_columns(args.data)
+                                 if c != args.target]
+    else:
+        inputs = args.inputs or [c for c in streaming.numeric_columns(args.data)
+                                 if c != args.target]
+    if not inputs:
+        raise InputProblem(f"No numeric input columns besides the target '{args.target}'. "
+                           "Name them with --inputs.", code="no_inputs")
+    scheme = SchemeSpec(kind="kfold", folds=args.folds)
+    spec = SweepSpec(target=args.target, inputs=tuple(inputs), max_order=args.max_order,
+                     orders=args.orders, interactions=args.interactions, penalties=penalties,
+                     scheme=scheme, seed=args.seed)
+    spec.validate()
+    if args.cluster:
+        stats = cluster.cluster_statistics(args.cluster, args.data, args.target, list(inputs),
+                                           spec, sample_rows=args.sample_rows,
+                                           progress=progress)
+    else:
+        stats = streaming.stream_statistics(args.data, args.target, list(inputs),
+                                            max(spec.order_list()), spec.interactions,
+                                            args.folds, args.seed, sample_rows=args.sample_rows,
+                                            progress=progress)
+    analysis = streaming.analyse_moments(stats.folds, stats.basis, spec, stats.rows_used,
+                                         stats.sample_folds, stats.notes)
+    data = ArrayData(stats.sample_X, stats.sample_y, tuple(inputs), args.target)
+    where = args.data if "://" in str(args.data) else str(Path(args.data).resolve())
+    result = build_pack(args.out, loaded=None, source_name=Path(str(args.data)).name,
+                        data=data, spec=spec, analysis=analysis, compare_orders=args.compare,
+                        progress=progress,
+                        load_options={"stream": True, "cluster": args.cluster,
+                                      "sample_rows": args.sample_rows},
+                        source_path=where, model_file_in_background=not args.cluster)
+    _report(result)
+    return EXIT_OK
+
+
 def command_run(args: argparse.Namespace) -> int:
     from .loading import prepare
     from .pack import build_pack
+
+    if args.stream or args.cluster or (Path(args.data).is_dir() and "://" not in args.data):
+        return command_stream(args)
 
     penalties = _penalty_grid(args)
     decimal = "," if args.decimal_comma else None
