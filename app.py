@@ -677,7 +677,9 @@ def wait_for(job: Future, message: str):
 
 def start_fits(key: str, data, analysis, cells: tuple) -> Future:
     """Fit ``cells`` on all rows in the background (`engine.compare.fit_candidates`)."""
-    return run_once(("fits", key, cells), fit_candidates, data, analysis.spec, list(cells))
+    rec = analysis.recommendation.recommended
+    return run_once(("fits", key, cells), fit_candidates, data, analysis.spec, list(cells),
+                    rec.family, rec.l1_ratio)
 
 
 def warnings_panel(pending: Future) -> None:

@@ -155,12 +155,18 @@ class Analysis:
                     keep &= (col == int(v)).fillna(False).to_numpy()
         return t[keep]
 
-    def cell_row(self, order: int, penalty: float, **rung) -> pd.Series:
+    def cell_row(self, order: int, penalty: float, family: str | None = None,
+                 l1_ratio: float | None = None, **rung) -> pd.Series:
         """The validation-table row of a cell; rung axes default to the recommended cell's."""
         rec = self.recommendation.recommended
         ref = {k: rung.get(k, getattr(rec, k, None)) for k in RUNG_COLUMNS[:3]}
         t = self.at_rung(ref)
-        m = t[(t["order"] == order) & np.isclose(t["penalty"], penalty, rtol=1e-12, atol=0)]
+        sel = (t["order"] == order) & np.isclose(t["penalty"], penalty, rtol=1e-12, atol=0)
+        if family is not None and "family" in t:
+            sel &= t["family"] == family
+        if l1_ratio is not None and "l1_ratio" in t:
+            sel &= np.isclose(t["l1_ratio"], l1_ratio, rtol=0, atol=1e-12)
+        m = t[sel]
         if m.empty:
             raise InputProblem(f"No cell with order {order} and penalty {penalty} in this sweep.",
                                code="unknown_cell")
@@ -239,7 +245,7 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
         plan = plan_for(data, spec.scheme, spec.seed)
         with one_thread():   # many small factorisations; the row pass picks its own
             res = run_sweep(data.X, data.y, basis, plan, spec.order_list(), spec.penalties,
-                            progress)
+                            progress, families=spec.family_pairs())
     except InputProblem:
         raise
     except (ValueError, np.linalg.LinAlgError, MemoryError) as exc:  # pragma: no cover
@@ -251,12 +257,13 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
 
 
 def fit_cell(data: DataLike, spec: SweepSpec, order: int, penalty: float,
-             summary=None) -> FinalModel:
+             summary=None, family: str = "ridge", l1_ratio: float = 0.0) -> FinalModel:
     """Fit one cell on all rows (see `engine.final_fit.fit_final`; ``summary``:
     all-rows summaries to solve from, `engine.summaries.summarise_rows`)."""
     _check_data(data, spec)
     return fit_final(data.X, data.y, spec.inputs, order, penalty, spec.interactions,
-                     target=spec.target, summary=summary)
+                     target=spec.target, summary=summary, family=family,
+                     l1_ratio=l1_ratio)
 
 
 def train_sizes(fractions, n_max: int) -> np.ndarray:

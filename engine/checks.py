@@ -717,7 +717,7 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
     n = y.size
     if final_model is None:
         final_model = fit_final(X, y, spec.inputs, rec.order, rec.penalty, spec.interactions,
-                                target=spec.target)
+                                target=spec.target, family=rec.family, l1_ratio=rec.l1_ratio)
     r_target = lag1_autocorrelation(y)
     rows, oof = out_of_fold_residuals(data, analysis, rec.order, rec.penalty,
                                       fold_stats=fold_stats)
@@ -852,7 +852,7 @@ def _scheme_comparison(data: DataLike, analysis: Analysis, folds: int, gap: int)
         blocked = analyse(data, replace(spec, scheme=scheme))
     except InputProblem:
         return None, "", float("nan"), float("nan")
-    same = blocked.cell_row(rec.order, rec.penalty)
+    same = blocked.cell_row(rec.order, rec.penalty, rec.family, rec.l1_ratio)
     brec = blocked.recommendation.recommended
     rows = [
         {"scheme": spec.scheme.kind, "description": analysis.plan.description,
@@ -1419,10 +1419,11 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
         (int(q), float(a)) for q, a in candidates]
     rec = analysis.recommendation.recommended
     tick(0.0, "Fitting the candidates on all rows")
+    fam = {"family": rec.family, "l1_ratio": rec.l1_ratio}
     fitted = dict(fitted or {})
     missing = [c for c in cells if c not in fitted]
     if missing:
-        fitted.update(fit_candidates(data, spec, missing))
+        fitted.update(fit_candidates(data, spec, missing, **fam))
     models = {c: fitted[c] for c in cells}
     rec_key = (int(rec.order), float(rec.penalty))
     fold_stats = None
@@ -1433,7 +1434,7 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
         design = PolynomialBasis.fit(np.asarray(data.X, float), spec.inputs, top,
                                      spec.interactions)
         fold_stats = fold_summaries(data.X, data.y, design, analysis.plan)
-    rec_model = models.get(rec_key) or fit_candidates(data, spec, [rec_key])[rec_key]
+    rec_model = models.get(rec_key) or fit_candidates(data, spec, [rec_key], **fam)[rec_key]
     report = CheckReport()
     summary = []
     basis = row_order_basis(data, analysis)

@@ -66,6 +66,41 @@ def parse_penalty_range(text: str) -> tuple[float, float, int]:
     return lo, hi, count
 
 
+def parse_families(text: str) -> tuple[str, ...]:
+    """Comma-separated penalty families: ridge, lasso, elasticnet."""
+    from .spec import FAMILIES
+
+    out = []
+    for part in _names(text):
+        word = part.strip().lower().replace("-", "").replace("_", "").replace(" ", "")
+        if word not in FAMILIES:
+            raise argparse.ArgumentTypeError(
+                f"'{part}' is not a penalty family: use {', '.join(FAMILIES)} (comma separated).")
+        if word not in out:
+            out.append(word)
+    if not out:
+        raise argparse.ArgumentTypeError("Name at least one penalty family, e.g. ridge,lasso.")
+    return tuple(out)
+
+
+def parse_l1_ratios(text: str) -> tuple[float, ...]:
+    """Comma-separated elastic-net mixing parameters in [0, 1]."""
+    out = []
+    for part in _names(text):
+        try:
+            v = float(part)
+        except ValueError:
+            raise argparse.ArgumentTypeError(
+                f"'{part}' is not a mixing parameter: use numbers in [0, 1] such as 0.1,0.5,0.9."
+            ) from None
+        if not (math.isfinite(v) and 0.0 <= v <= 1.0):
+            raise argparse.ArgumentTypeError(f"Mixing parameter '{part}' must lie in [0, 1].")
+        out.append(v)
+    if not out:
+        raise argparse.ArgumentTypeError("Give at least one mixing parameter, e.g. 0.5.")
+    return tuple(out)
+
+
 def parse_penalties(text: str) -> str | tuple[float, ...]:
     """``none``, ``ridge`` or a comma-separated list of penalties (0 or more)."""
     word = text.strip().lower()
@@ -228,6 +263,14 @@ def build_parser() -> argparse.ArgumentParser:
                      metavar="LO:HI:COUNT",
                      help="log-spaced ridge grid used with --penalties ridge "
                           f"(default {DEFAULT_PENALTY_LOW:g}:{DEFAULT_PENALTY_HIGH:g}:{DEFAULT_PENALTY_COUNT})")
+    run.add_argument("--families", type=parse_families, default=("ridge",),
+                     metavar="ridge,lasso,elasticnet",
+                     help="penalty families swept side by side on the same penalties "
+                          "(scikit-learn Ridge / Lasso / ElasticNet alpha on standardised terms; "
+                          "default ridge)")
+    run.add_argument("--l1-ratios", type=parse_l1_ratios, default=None, metavar="0.1,0.5,0.9",
+                     help="elastic-net mixing parameters (l1_ratio), used with --families "
+                          "elasticnet (default 0.1,0.5,0.9)")
     run.add_argument("--seed", type=int, default=DEFAULT_SEED, metavar="S",
                      help="seed for every shuffle")
     run.add_argument("--decimal-comma", action="store_true",
@@ -367,7 +410,8 @@ def _report(result, stream=None) -> None:
     stream = stream or sys.stdout
     s = result.summary
     r = s["recommended"]
-    pen = "no penalty" if r["penalty"] == 0 else f"ridge penalty {r['penalty']:.3g}"
+    fam = {"elasticnet": "elastic-net"}.get(r.get("family", "ridge"), r.get("family", "ridge"))
+    pen = "no penalty" if r["penalty"] == 0 else f"{fam} penalty {r['penalty']:.3g}"
     rmse = r.get("validation_rmse")
     from .labels import rung_text
     more = rung_text(r.get("lags"), r.get("target_lags"), r.get("inputs_used"))
@@ -491,7 +535,8 @@ def command_run(args: argparse.Namespace) -> int:
     spec = SweepSpec(target=data.target, inputs=tuple(data.inputs), max_order=args.max_order,
                      orders=args.orders, interactions=args.interactions, penalties=penalties,
                      scheme=scheme, seed=args.seed, lags=lags, nested_inputs=args.rank_inputs,
-                     extra_targets=more)
+                     extra_targets=more, families=args.families,
+                     **({"l1_ratios": args.l1_ratios} if args.l1_ratios else {}))
     result = build_pack(args.out, loaded=loaded, source_name=loaded.report.source_name,
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,
                         load_options={"decimal": decimal, "sheet": args.sheet},

@@ -13,9 +13,10 @@ from .spec import SweepSpec
 from .threads import one_thread
 
 
-def fit_candidates(data: DataLike, spec: SweepSpec,
-                   cells: list[tuple[int, float]]) -> dict[tuple[int, float], FinalModel]:
-    """Fit each (order, penalty) cell on all rows.
+def fit_candidates(data: DataLike, spec: SweepSpec, cells: list[tuple[int, float]],
+                   family: str = "ridge",
+                   l1_ratio: float = 0.0) -> dict[tuple[int, float], FinalModel]:
+    """Fit each (order, penalty) cell on all rows, all in one penalty family.
 
     From `engine.summaries.LARGE_ROWS` rows on, every cell is solved from one
     shared pass of cross-product summaries at the highest order asked for
@@ -35,7 +36,8 @@ def fit_candidates(data: DataLike, spec: SweepSpec,
                                         max(q for q, _ in keys), spec.interactions)
             summary = summarise_rows(data.X, data.y, basis)
         for key in keys:
-            out[key] = fit_cell(data, spec, key[0], key[1], summary=summary)
+            out[key] = fit_cell(data, spec, key[0], key[1], summary=summary, family=family,
+                                    l1_ratio=l1_ratio)
     return out
 
 

@@ -16,6 +16,7 @@ import numpy as np
 
 from .design import PolynomialBasis, chebyshev_columns, chebyshev_table
 from .errors import InputProblem
+from .families import lasso as lasso_family
 
 
 _PREDICT_CHUNK = 65_536
@@ -65,6 +66,8 @@ class FinalModel:
     notes: list[str] = field(default_factory=list)
     #: singular values of the centred, standardised raw-term design (largest first)
     design_singular_values: np.ndarray | None = None
+    family: str = "ridge"
+    l1_ratio: float = 0.0
 
     def predict(self, X) -> np.ndarray:
         """Predictions for raw inputs ``X`` of shape (m, d) (or (m,) with one input)."""
@@ -250,7 +253,8 @@ def _solve_from_summary(summary, X: np.ndarray, y: np.ndarray, order: int, penal
 
 def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: float = 0.0,
               interactions: bool = False, target: str = "y",
-              basis: PolynomialBasis | None = None, summary=None) -> FinalModel:
+              basis: PolynomialBasis | None = None, summary=None, family: str = "ridge",
+              l1_ratio: float = 0.0) -> FinalModel:
     """Fit the model of ``order`` and ``penalty`` on all rows.
 
     Parameters
@@ -265,6 +269,8 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
     summary : all-rows summaries (`engine.summaries.RowSummary`) of ``X`` and
         ``y``; when given, the fit is solved from them (large tables: no
         full design in memory) instead of by QR on the rows.
+    family : ``"ridge"``, ``"lasso"`` or ``"elasticnet"`` (see `engine.families`).
+    l1_ratio : elastic-net mixing parameter (1 for the lasso).
 
     Returns
     -------
@@ -275,7 +281,8 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         X = X[:, None]
     y = np.asarray(y, dtype=float)
     n, d = X.shape
-    if summary is not None and summary.basis.max_order >= order:
+    if summary is not None and summary.basis.max_order >= order and (
+            family == "ridge" or penalty == 0):
         basis = summary.basis
     else:
         summary = None
@@ -332,16 +339,31 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
                                          [Fraction(float(v)) for v in g])
         edf = float(min(rank, n))
     else:
-        Aug = np.vstack([Tstd, np.sqrt(penalty) * np.eye(p)])
-        rhs = np.r_[y - ybar, np.zeros(p)]
-        w, *_ = np.linalg.lstsq(Aug, rhs, rcond=None)
+        if family == "ridge":
+            Aug = np.vstack([Tstd, np.sqrt(penalty) * np.eye(p)])
+            rhs = np.r_[y - ybar, np.zeros(p)]
+            w, *_ = np.linalg.lstsq(Aug, rhs, rcond=None)
+        else:
+            ratio = 1.0 if family == "lasso" else float(l1_ratio)
+            G = (Tstd.T @ Tstd / n)[None]
+            b = (Tstd.T @ (y - ybar) / n)[None]
+            yy = np.array([float(np.mean((y - ybar) ** 2))])
+            pen1 = np.array([float(penalty)])
+            W = lasso_family.solve_path(G, b, yy, pen1, ratio)
+            w = W[0, :, 0]
+            edf_cd = 1.0 + float(lasso_family.effective_df(G, W, ratio, pen1)[0, 0])
         beta_c = As.T @ (w / dsd_s_safe)    # on the Chebyshev working basis
         b0c = ybar - float(Fu.mean(axis=0) @ beta_c)
         poly_u = _chebyshev_to_monomials(np.vstack([np.zeros((1, d), int), E]),
                                          [Fraction(b0c)] + [Fraction(float(b)) for b in beta_c])
-        edf = 1.0 + float(np.sum(sv ** 2 / (sv ** 2 + penalty)))
-    return _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u,
-                   shift_u, dsd, cond, edf, notes, sv if p else None)
+        edf = (1.0 + float(np.sum(sv ** 2 / (sv ** 2 + penalty))) if family == "ridge"
+               else edf_cd)
+    model = _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u,
+                    shift_u, dsd, cond, edf, notes, sv if p else None)
+    if family != "ridge" and penalty > 0:
+        model.family = str(family)
+        model.l1_ratio = 1.0 if family == "lasso" else float(l1_ratio)
+    return model
 
 
 def _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u, shift_u,

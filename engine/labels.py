@@ -49,10 +49,25 @@ def penalty_words(penalty: float) -> str:
     return "no penalty" if float(penalty) == 0 else f"ridge penalty {penalty_text(penalty)}"
 
 
-def cell_text(order: int, penalty: float) -> str:
-    """Label of a cell, e.g. ``'order 2, no penalty'``, ``'order 3, penalty 0.1'``."""
+FAMILY_NAMES = {"ridge": "ridge", "lasso": "lasso", "elasticnet": "elastic net"}
+
+
+def family_text(family: str, l1_ratio: float = 0.0) -> str:
+    """Name of a penalty family, e.g. ``'lasso'``, ``'elastic net (l1_ratio 0.5)'``."""
+    name = FAMILY_NAMES.get(str(family), str(family))
+    if family == "elasticnet":
+        return f"{name} (l1_ratio {float(l1_ratio):.3g})"
+    return name
+
+
+def cell_text(order: int, penalty: float, family: str = "ridge", l1_ratio: float = 0.0) -> str:
+    """Label of a cell, e.g. ``'order 2, no penalty'``, ``'order 3, penalty 0.1'``,
+    ``'order 2, lasso penalty 0.01'`` (ridge cells keep the short form)."""
     p = float(penalty)
-    return f"order {int(order)}, " + ("no penalty" if p == 0 else f"penalty {penalty_text(p)}")
+    if p == 0:
+        return f"order {int(order)}, no penalty"
+    kind = "" if family == "ridge" else family_text(family, l1_ratio) + " "
+    return f"order {int(order)}, {kind}penalty {penalty_text(p)}"
 
 
 def rung_text(lags: int | None = None, target_lags: int | None = None,

@@ -385,7 +385,8 @@ def compare_cells(analysis: Analysis,
             raise InputProblem(f"Order {key[0]} is not in this sweep (orders "
                                f"{', '.join(str(o) for o in orders)}); choose one of those.",
                                code="bad_compare_order")
-        analysis.cell_row(*key)  # raises InputProblem for a penalty outside the grid
+        # raises InputProblem for a penalty outside the grid
+        analysis.cell_row(*key, rec.family, rec.l1_ratio)
         if key not in cells:
             cells.append(key)
     return cells
@@ -412,16 +413,21 @@ def leading_candidates(analysis: Analysis, top: int = 5) -> pd.DataFrame:
         rows.append(r)
         if len(rows) >= top:
             break
-    keys = {_cell_key(r["order"], r["penalty"]) for r in rows}
+    def rkey(r):
+        return _cell_key(r["order"], r["penalty"]) + (r.get("family", "ridge"),
+                                                      round(float(r.get("l1_ratio", 0.0)), 12))
+
+    def ckey(c):
+        return _cell_key(c.order, c.penalty) + (c.family, round(float(c.l1_ratio), 12))
+
+    keys = {rkey(r) for r in rows}
     for c in (best, rec):
-        if _cell_key(c.order, c.penalty) not in keys:
-            rows.append(analysis.cell_row(c.order, c.penalty))
-            keys.add(_cell_key(c.order, c.penalty))
+        if ckey(c) not in keys:
+            rows.append(analysis.cell_row(c.order, c.penalty, c.family, c.l1_ratio))
+            keys.add(ckey(c))
     out = pd.DataFrame(rows).reset_index(drop=True)
-    out["role"] = [("recommended" if _cell_key(r["order"], r["penalty"]) ==
-                    _cell_key(rec.order, rec.penalty) else "") +
-                   (" best" if _cell_key(r["order"], r["penalty"]) ==
-                    _cell_key(best.order, best.penalty) else "")
+    out["role"] = [("recommended" if rkey(r) == ckey(rec) else "") +
+                   (" best" if rkey(r) == ckey(best) else "")
                    for _, r in out.iterrows()]
     out["role"] = out["role"].str.strip().str.replace(" ", ", ")
     return out
@@ -434,7 +440,8 @@ def _cell_dict(cell: Cell, row: pd.Series | None = None) -> dict:
          if math.isfinite(cell.validation_mse) and cell.validation_mse >= 0 else None,
          "validation_r2": cell.validation_r2, "train_mse": cell.train_mse,
          "parameters": int(cell.parameters), "effective_df": cell.effective_df,
-         "samples_per_parameter": cell.samples_per_parameter, "reason": cell.reason}
+         "samples_per_parameter": cell.samples_per_parameter, "reason": cell.reason,
+         "family": cell.family, "l1_ratio": float(cell.l1_ratio)}
     for k in RUNG_KEYS:   # the cell's other axes, when the grid has them
         v = getattr(cell, k, None)
         if v is not None:
@@ -443,7 +450,8 @@ def _cell_dict(cell: Cell, row: pd.Series | None = None) -> dict:
 
 
 _GRID_KEYS = ("order", "penalty", "parameters", "effective_df", "train_mse", "train_mse_se",
-              "validation_mse", "validation_mse_se", "validation_rmse", "validation_r2", "folds")
+              "validation_mse", "validation_mse_se", "validation_rmse", "validation_r2", "folds",
+              "family", "l1_ratio")
 #: keys of grid rows for the other axes (lag depths, inputs used, target), present when swept
 RUNG_KEYS = ("lags", "target_lags", "inputs_used", "target")
 
@@ -564,6 +572,7 @@ def summary_dict(analysis: Analysis, model: FinalModel, data_facts: dict, roles:
         "candidates": cand,
         "grid": grid,
         "coefficients": {"order": int(model.order), "penalty": float(model.penalty),
+                         "family": model.family, "l1_ratio": float(model.l1_ratio),
                          "terms": list(model.terms), "values": list(model.coefficients)},
         "final_fit": {"rows": int(model.n_rows), "r2": model.r2,
                       "residual_sd": model.residual_sd, "train_mse": model.train_mse,

@@ -30,6 +30,8 @@ class Cell:
     target_lags: int | None = None
     inputs_used: int | None = None
     target: str | None = None
+    family: str = "ridge"
+    l1_ratio: float = 0.0
 
     def to_dict(self) -> dict:
         d = asdict(self)
@@ -40,8 +42,8 @@ class Cell:
 
     @property
     def label(self) -> str:
-        return cell_text(self.order, self.penalty) + rung_text(self.lags, self.target_lags,
-                                                               self.inputs_used)
+        return (cell_text(self.order, self.penalty, self.family, self.l1_ratio)
+                + rung_text(self.lags, self.target_lags, self.inputs_used))
 
 
 @dataclass(frozen=True)
@@ -80,6 +82,7 @@ def _cell(row: pd.Series, n_train: float, reason: str) -> Cell:
                 train_mse=float(row["train_mse"]), validation_r2=float(row["validation_r2"]),
                 parameters=params, effective_df=float(row["effective_df"]),
                 samples_per_parameter=float(n_train / params), reason=reason,
+                family=str(row.get("family", "ridge")), l1_ratio=float(row.get("l1_ratio", 0.0)),
                 **_rung_fields(row))
 
 

@@ -10,6 +10,9 @@ from .errors import InputProblem
 from .lagged import LagSpec
 from .labels import scheme_help
 
+FAMILIES = ("ridge", "lasso", "elasticnet")
+DEFAULT_L1_RATIOS = (0.1, 0.5, 0.9)
+
 SCHEMES = ("kfold", "repeated", "loo", "blocked", "grouped", "holdout", "column")
 
 #: Help sentence of each scheme, beginning with its one human name (`engine.labels`).
@@ -122,6 +125,11 @@ class SweepSpec:
         ``None``: every input in every cell.
     extra_targets : more columns to predict from the same inputs, each with
         its own grid and recommendation, from one pass over the rows.
+    families : penalty families swept side by side: ``"ridge"``, ``"lasso"``
+        (scikit-learn ``Lasso`` ``alpha``), ``"elasticnet"`` (``ElasticNet``
+        ``alpha`` with each of ``l1_ratios``); every family uses ``penalties``.
+    l1_ratios : mixing parameters of the elastic net, each in [0, 1]
+        (1 = lasso, 0 = a ridge-type penalty on scikit-learn's ElasticNet scale).
     """
 
     target: str
@@ -136,12 +144,17 @@ class SweepSpec:
     lags: LagSpec | None = None
     nested_inputs: str | None = None
     extra_targets: tuple[str, ...] = ()
+    families: tuple[str, ...] = ("ridge",)
+    l1_ratios: tuple[float, ...] = DEFAULT_L1_RATIOS
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "inputs", tuple(self.inputs))
         object.__setattr__(self, "extra_targets", tuple(str(t) for t in self.extra_targets))
         if isinstance(self.lags, dict):
             object.__setattr__(self, "lags", LagSpec.from_dict(self.lags))
+        fam = (self.families,) if isinstance(self.families, str) else self.families
+        object.__setattr__(self, "families", tuple(str(f) for f in fam))
+        object.__setattr__(self, "l1_ratios", tuple(float(r) for r in self.l1_ratios))
         object.__setattr__(self, "penalties", tuple(float(p) for p in self.penalties))
         if self.orders is not None:
             object.__setattr__(self, "orders", tuple(sorted({int(o) for o in self.orders})))
@@ -163,9 +176,46 @@ class SweepSpec:
             return list(self.orders)
         return list(range(0, int(self.max_order) + 1))
 
+    def family_pairs(self) -> tuple[tuple[str, float], ...]:
+        """The (family, l1_ratio) pairs of the settings axis, in sweep order."""
+        out: list[tuple[str, float]] = []
+        for f in self.families:
+            if f == "ridge":
+                out.append(("ridge", 0.0))
+            elif f == "lasso":
+                out.append(("lasso", 1.0))
+            elif f == "elasticnet":
+                out += [("elasticnet", float(r)) for r in self.l1_ratios]
+        return tuple(out)
+
     def validate(self) -> None:
         """Raise `InputProblem` for a request that cannot be run."""
         self.scheme.validate()
+        if not self.families:
+            raise InputProblem("Choose at least one penalty family (ridge, lasso, elasticnet).",
+                               code="bad_family")
+        for f in self.families:
+            if f not in FAMILIES:
+                raise InputProblem(f"Unknown penalty family '{f}'. Choose from: "
+                                   f"{', '.join(FAMILIES)}.", code="bad_family")
+        if len(set(self.families)) != len(self.families):
+            raise InputProblem("A penalty family is listed twice; list each once.",
+                               code="bad_family")
+        if "elasticnet" in self.families:
+            if not self.l1_ratios:
+                raise InputProblem("The elastic net needs at least one mixing parameter "
+                                   "(l1_ratio), for example 0.5.", code="bad_l1_ratio")
+            for r in self.l1_ratios:
+                if not (np.isfinite(r) and 0.0 <= r <= 1.0):
+                    raise InputProblem(f"Elastic-net mixing parameters (l1_ratio) lie in [0, 1] "
+                                       f"(got {r}).", code="bad_l1_ratio")
+            if len(set(self.l1_ratios)) != len(self.l1_ratios):
+                raise InputProblem("An elastic-net mixing parameter is listed twice.",
+                                   code="bad_l1_ratio")
+        if self.scheme.kind == "loo" and any(f != "ridge" for f in self.families):
+            raise InputProblem("Leave-one-out is computed exactly only for ridge. For lasso or "
+                               "elastic net choose shuffled k-fold (for example 10 folds), or "
+                               "sweep ridge alone.", code="loo_family")
         if not self.inputs:
             raise InputProblem("Choose at least one input column.", code="no_inputs")
         if self.target in self.inputs:
@@ -221,6 +271,11 @@ class SweepSpec:
             d["extra_targets"] = list(self.extra_targets)
         else:
             del d["extra_targets"]
+        if self.families != ("ridge",) or self.l1_ratios != DEFAULT_L1_RATIOS:
+            d["families"] = list(self.families)
+            d["l1_ratios"] = list(self.l1_ratios)
+        else:
+            del d["families"], d["l1_ratios"]
         return d
 
     @classmethod
@@ -235,4 +290,7 @@ class SweepSpec:
         d["learning_sizes"] = tuple(d.get("learning_sizes", (0.1, 0.325, 0.55, 0.775, 1.0)))
         d["lags"] = LagSpec.from_dict(d.get("lags"))
         d["extra_targets"] = tuple(d.get("extra_targets", ()))
+        # records written before penalty families existed: ridge only
+        d["families"] = tuple(d.get("families", ("ridge",)))
+        d["l1_ratios"] = tuple(d.get("l1_ratios", DEFAULT_L1_RATIOS))
         return cls(**d)

@@ -210,7 +210,8 @@ def _nested_cv(data, spec, outer_folds, progress, analysis) -> NestedResult:
                                code=exc.code, column=exc.column) from None
         rec = inner.recommendation.recommended
         model = fit_final(X[tr], y[tr], spec.inputs, rec.order, rec.penalty,
-                          spec.interactions, target=spec.target)
+                          spec.interactions, target=spec.target, family=rec.family,
+                          l1_ratio=rec.l1_ratio)
         resid = y[te] - model.predict(X[te])
         rows.append({"fold": i, "order": rec.order, "penalty": rec.penalty,
                      "model": cell_label(rec.order, rec.penalty), "train_rows": int(tr.size),

@@ -7,10 +7,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import ridge
+from . import lasso, ridge
 from .base import FamilyFit, RawMap, TermSummary, sse
 
-FAMILIES: tuple[str, ...] = ("ridge",)
+FAMILIES: tuple[str, ...] = ("ridge", "lasso", "elasticnet")
+DEFAULT_L1_RATIOS: tuple[float, ...] = (0.1, 0.5, 0.9)
 
 
 def fit_family(family: str, summary: TermSummary, raw: RawMap, penalties: np.ndarray,
@@ -18,6 +19,10 @@ def fit_family(family: str, summary: TermSummary, raw: RawMap, penalties: np.nda
     """Fit one term set for every penalty of one family (and mixing parameter)."""
     if family == "ridge":
         return ridge.fit(summary, raw, penalties, keep_leverage=keep_leverage)
+    if family == "lasso":
+        return lasso.fit(summary, raw, penalties, l1_ratio=1.0)
+    if family == "elasticnet":
+        return lasso.fit(summary, raw, penalties, l1_ratio=l1_ratio)
     raise ValueError(f"unknown penalty family {family!r}")
 
 
