@@ -501,7 +501,8 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
                         None if split is None else np.asarray(split)[kept])
         plan = plan_for(sub, spec.scheme, spec.seed)
         ladders = run_ladder(design, basis, plan, spec.targets, spec.inputs, orders,
-                             spec.penalties, spec.lags, spec.nested_inputs, progress=progress)
+                             spec.penalties, spec.lags, spec.nested_inputs,
+                             families=spec.family_pairs(), progress=progress)
     except InputProblem:
         raise
     except (ValueError, np.linalg.LinAlgError, MemoryError) as exc:  # pragma: no cover
