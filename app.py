@@ -723,7 +723,7 @@ def warnings_panel(pending: Future) -> None:
                     st.dataframe(human_headers(summary), hide_index=True)
                     table_download(summary, "checks")
     row_order = getattr(report, "row_order", {}) or {}
-    if row_order.get("status") in ("assumed", "sorted_by_input", "not_time"):
+    if row_order.get("status") in ("assumed", "sorted_by_input", "sorted_by_target", "not_time"):
         st.caption(md(row_order.get("sentence", "")))   # what the row-order checks assumed
 
 

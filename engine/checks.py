@@ -628,8 +628,9 @@ def row_order_basis(data: DataLike, analysis: Analysis) -> RowOrder:
 
     An order column, or a time scheme (blocked folds, later-period holdout),
     makes the order known. Otherwise the user's answer counts
-    (``SchemeSpec.rows_in_time_order``); without one, rows sorted by an input
-    are not read as time (the row-order checks are skipped), and any other
+    (``SchemeSpec.rows_in_time_order``); without one, rows sorted by the
+    target or by an input are not read as time (the row-order checks are
+    skipped), and any other
     row order is assumed to be time order, stated as such, and its warnings
     go no higher than caution.
     """
@@ -640,9 +641,13 @@ def row_order_basis(data: DataLike, analysis: Analysis) -> RowOrder:
                                          if col else "Rows were sorted by their order values."),
                         True, True)
     if scheme.kind in _TIME_SCHEMES:
+        listed = sorted_by_input(data, analysis) or sorted_by_target(data, analysis)
+        note = (f" The rows are listed by {listed}, so the later rows are those with its "
+                "largest (or smallest) values; make sure that is the period you mean to "
+                "hold out." if listed else "")
         return RowOrder("time_scheme", "No order column was given; the validation scheme "
-                        "takes the file's row order as time order, and so do these checks.",
-                        True, True)
+                        "takes the file's row order as time order, and so do these checks."
+                        + note, True, True)
     stated = getattr(scheme, "rows_in_time_order", None)
     if stated is True:
         return RowOrder("stated", "No order column was given; as stated, the file's row "
@@ -657,6 +662,13 @@ def row_order_basis(data: DataLike, analysis: Analysis) -> RowOrder:
                         "time: the checks that read the row order as time were computed but "
                         "not used as warnings (choose an order column, or say the rows are in "
                         "time order, to use them).", False, False)
+    name = sorted_by_target(data, analysis)
+    if name is not None:
+        return RowOrder("sorted_by_target", f"No order column was given and the rows are "
+                        f"listed by the target {name}, so their order follows the target rather "
+                        "than time: the checks that read the row order as time were computed "
+                        "but not used as warnings (choose an order column, or say the rows are "
+                        "in time order, to use them).", False, False)
     return RowOrder("assumed", "No order column was given and it was not said whether the rows "
                     "are in time order: the checks that read the row order as time assume the "
                     "file's row order is time order, and their warnings go no higher than "
@@ -671,6 +683,17 @@ def _row_order_advice(basis: RowOrder) -> str:
     if basis.status in ("time_scheme", "stated"):
         return " No order column was given, so the row order of the table was taken as the order in time."
     return ""
+
+
+def sorted_by_target(data: DataLike, analysis: Analysis) -> str | None:
+    """The target's name when the rows are listed by it (and no order column was given)."""
+    if _has_order(data, analysis):
+        return None
+    y = np.asarray(data.y, float).ravel()
+    if y.size < 3 or not np.ptp(y) > 0:
+        return None
+    d = np.diff(y)
+    return str(analysis.spec.target) if (np.all(d >= 0) or np.all(d <= 0)) else None
 
 
 def suggested_gap(r: float, n: int, folds: int) -> int:

@@ -148,3 +148,21 @@ def test_pack_states_the_row_order_assumption(tmp_path):
     md = (tmp_path / "summary.md").read_text()
     assert "Row order" in md and "No order column was given" in md
     assert "assume the file's row order is time order" in md
+
+
+def test_prostate_listed_by_its_target_is_not_read_as_time():
+    # ESL's prostate table (tests/reference/prostate, Hastie, Tibshirani, Friedman,
+    # 2nd ed., Section 3.2.1) lists the subjects by increasing lpsa, the target
+    frame = load_table(REF / "prostate" / "prostate.tsv").frame
+    assert np.all(np.diff(frame["lpsa"].to_numpy()) >= 0)
+    inputs = ["lcavol", "lweight", "age", "lbph", "svi", "lcp", "gleason", "pgg45"]
+    data = prepare(frame, "lpsa", inputs)
+    an, rep = _run(data, SchemeSpec("kfold", folds=10), max_order=1)
+    assert rep.row_order["status"] == "sorted_by_target"
+    assert not set(ROW_ORDER_CHECKS) & set(rep.codes())
+    assert "listed by the target lpsa" in rep.skipped[0]["reason"]
+    # a later-period holdout on the same listing says what it holds out
+    an2, rep2 = _run(data, SchemeSpec("holdout", holdout_fraction=0.3), max_order=1)
+    assert rep2.row_order["status"] == "time_scheme"
+    assert "listed by lpsa, so the later rows are those with its largest" in \
+        rep2.row_order["sentence"]
