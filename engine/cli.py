@@ -14,7 +14,9 @@ import argparse
 import json
 import math
 import os
+import signal
 import sys
+import threading
 import traceback
 from pathlib import Path
 from typing import Sequence
@@ -309,20 +311,27 @@ def build_parser() -> argparse.ArgumentParser:
                           "a local cluster); DATA may be any path or URL Dask reads (Parquet "
                           "or CSV); needs the optional 'cluster' extra (dask, distributed)")
     run.add_argument("--out", required=True, metavar="DIR",
-                     help="folder to write the pack into (created if missing)")
+                     help="folder to write the pack into (created if missing; a folder holding "
+                          "other files is refused unless --overwrite)")
+    run.add_argument("--overwrite", action="store_true",
+                     help="write into a --out folder that holds files this program did not "
+                          "write: the pack files are replaced, the other files kept")
 
     rerun = sub.add_parser(
         "rerun", help="run a recorded request again and write a new pack",
-        description="Read DIR/record.json, load the same data file (checked against the "
-                    "recorded SHA-256) and write the pack again into --out; its summary.json "
-                    "is identical to the recorded run's.")
+        description="Read DIR/record.json (checked field by field), load the same data file "
+                    "(checked against the recorded SHA-256 before it is read; a file outside "
+                    "the record's folder only when named with --data) and write the pack "
+                    "again into --out; its summary.json is identical to the recorded run's.")
     rerun.add_argument("record", metavar="RECORD",
                        help="record.json of an earlier pack (or the pack folder)")
     rerun.add_argument("--data", default=None, metavar="DATA",
-                       help="data file to use instead of the recorded path (must have the "
-                            "same SHA-256)")
+                       help="data file to use (must have the recorded SHA-256); needed when "
+                            "the recorded path lies outside the record's folder")
     rerun.add_argument("--out", required=True, metavar="DIR2",
-                       help="folder to write the new pack into")
+                       help="folder to write the new pack into (as for run)")
+    rerun.add_argument("--overwrite", action="store_true",
+                       help="write into a --out folder that holds other files (as for run)")
     return top
 
 
@@ -435,7 +444,7 @@ def _prepare(frame, targets: tuple[str, ...], inputs, **roles):
     return prepare_targets(frame, targets, inputs, **roles)
 
 
-def command_stream(args: argparse.Namespace) -> int:
+def command_stream(args: argparse.Namespace, folder=None) -> int:
     """``fitladder run --stream`` / ``--cluster``: summaries without holding the table."""
     from .analysis import ArrayData
     from .pack import build_pack
@@ -484,7 +493,8 @@ def command_stream(args: argparse.Namespace) -> int:
                                          stats.sample_folds, stats.notes)
     data = ArrayData(stats.sample_X, stats.sample_y, tuple(inputs), args.target)
     where = args.data if "://" in str(args.data) else str(Path(args.data).resolve())
-    result = build_pack(args.out, loaded=None, source_name=Path(str(args.data)).name,
+    result = build_pack(folder if folder is not None else args.out, loaded=None,
+                        source_name=Path(str(args.data)).name,
                         data=data, spec=spec, analysis=analysis, compare_orders=args.compare,
                         progress=progress,
                         load_options={"stream": True, "cluster": args.cluster,
@@ -495,14 +505,26 @@ def command_stream(args: argparse.Namespace) -> int:
 
 
 def command_run(args: argparse.Namespace) -> int:
+    if args.stream or args.cluster or (Path(args.data).is_dir() and "://" not in args.data):
+        with _out_folder(args) as folder:
+            return command_stream(args, folder)
+    penalties = _penalty_grid(args)
+    decimal = "," if args.decimal_comma else None
+    with _out_folder(args) as folder:
+        return _run_into(args, folder, penalties, decimal)
+
+
+def _out_folder(args: argparse.Namespace):
+    """The guarded --out folder: checked, locked and written via a temporary sibling."""
+    from .pack import pack_folder
+
+    return pack_folder(args.out, overwrite=args.overwrite)
+
+
+def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
     from .loading import prepare
     from .pack import build_pack
 
-    if args.stream or args.cluster or (Path(args.data).is_dir() and "://" not in args.data):
-        return command_stream(args)
-
-    penalties = _penalty_grid(args)
-    decimal = "," if args.decimal_comma else None
     progress = _StderrProgress()
     progress(0.0, f"Reading {args.data}")
     loaded = _load(args.data, decimal=decimal, sheet=args.sheet)
@@ -537,7 +559,7 @@ def command_run(args: argparse.Namespace) -> int:
                      scheme=scheme, seed=args.seed, lags=lags, nested_inputs=args.rank_inputs,
                      extra_targets=more, families=args.families,
                      **({"l1_ratios": args.l1_ratios} if args.l1_ratios else {}))
-    result = build_pack(args.out, loaded=loaded, source_name=loaded.report.source_name,
+    result = build_pack(folder, loaded=loaded, source_name=loaded.report.source_name,
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,
                         load_options={"decimal": decimal, "sheet": args.sheet},
                         source_path=str(Path(args.data).resolve()),
@@ -546,68 +568,149 @@ def command_run(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def read_record(path: str | Path) -> dict:
-    """Read and check a ``record.json`` (a pack folder is accepted too)."""
-    from .pack import RECORD_FORMAT
+def read_record(path: str | Path) -> tuple[dict, Path]:
+    """Read a ``record.json`` (a pack folder is accepted too); its dict and its path.
+
+    Only the JSON is checked here (size, encoding, syntax); the fields are
+    checked by `engine.record.check_record`.
+    """
+    from .record import RECORD_MAX_BYTES
 
     p = Path(path)
     if p.is_dir():
         p = p / "record.json"
     if not p.is_file():
-        raise InputProblem(f"There is no record file '{p}'. Give the record.json of a pack.",
+        raise InputProblem(f"There is no record file '{p}'. Give the record.json written "
+                           "inside a pack folder (or the pack folder itself).",
                            code="not_found")
+    size = p.stat().st_size
+    if size > RECORD_MAX_BYTES:
+        raise InputProblem(f"'{p}' is {size:,} bytes, far more than a record holds (at most "
+                           f"{RECORD_MAX_BYTES:,}). Give the record.json written inside a "
+                           "pack folder.", code="bad_record")
     try:
-        rec = json.loads(p.read_text(encoding="utf-8"))
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputProblem(f"'{p}' is not a readable record ({exc}).", code="bad_record") from None
-    if not isinstance(rec, dict) or rec.get("format") != RECORD_FORMAT:
-        raise InputProblem(f"'{p}' is not a Fitladder record (format {RECORD_FORMAT} expected).",
-                           code="bad_record")
-    for key in ("spec", "data", "roles"):
-        if not isinstance(rec.get(key), dict):
-            raise InputProblem(f"'{p}' lacks the '{key}' part of a record.", code="bad_record")
-    return rec
+        with open(p, "rb") as fh:
+            text = fh.read(RECORD_MAX_BYTES + 1).decode("utf-8")
+        rec = json.loads(text)
+    except UnicodeDecodeError:
+        raise InputProblem(f"'{p}' is not UTF-8 text, so it is not a record. Give the "
+                           "record.json written inside a pack folder.",
+                           code="bad_record") from None
+    except json.JSONDecodeError as exc:
+        raise InputProblem(f"'{p}' is not valid JSON ({exc.msg} at line {exc.lineno}, column "
+                           f"{exc.colno}), so it is not a readable record. Fix that spot, or "
+                           "give the record.json written inside a pack folder.",
+                           code="bad_record") from None
+    except RecursionError:
+        raise InputProblem(f"'{p}' nests its JSON too deeply to be a record. Give the "
+                           "record.json written inside a pack folder.",
+                           code="bad_record") from None
+    return rec, p
 
 
-def command_rerun(args: argparse.Namespace) -> int:
-    from .loading import prepare
-    from .pack import build_pack
+def _inside(path: Path, folder: Path) -> bool:
+    try:
+        path.relative_to(folder)
+    except ValueError:
+        return False
+    return True
 
-    rec = read_record(args.record)
-    progress = _StderrProgress()
+
+def locate_recorded_data(rec: dict, record_path: Path, given: str | None) -> Path:
+    """The data file of a re-run, checked against the record before it is parsed.
+
+    With ``given`` (``--data``) that file is used. Otherwise the recorded path
+    is taken relative to the record's folder (a bare file name: the file next
+    to the record) and refused when it lies outside that folder, so a record
+    cannot make the command read files elsewhere. Either way the file must be
+    a regular file of the recorded size whose SHA-256 matches the record; the
+    hash is computed before any parsing.
+    """
+    from .pack import file_sha256
+
     facts = rec["data"]
-    path = args.data or facts.get("path")
-    if not path:
-        raise InputProblem("The record does not say where the data file is; give it with --data.",
+    folder = record_path.parent.resolve()
+    if given:
+        path = Path(given)
+        shown = given
+    else:
+        recorded = facts.get("path") or facts.get("file")
+        if not recorded:
+            raise InputProblem("The record does not say where the data file is. Give it with "
+                               "--data PATH.", code="not_found")
+        candidate = Path(recorded)
+        path = (candidate if candidate.is_absolute() else folder / candidate).resolve()
+        shown = recorded
+        if not _inside(path, folder):
+            beside = folder / Path(str(facts.get("file") or "")).name
+            if facts.get("file") and beside.is_file():
+                print(f"{PROG}: the recorded data path '{recorded}' lies outside the record's "
+                      f"folder; using '{beside.name}' next to the record (checked by SHA-256).",
+                      file=sys.stderr)
+                path, shown = beside, str(beside)
+            else:
+                raise InputProblem(
+                    f"The record points at the data file '{recorded}', which is outside the "
+                    f"record's folder '{folder}'; a re-run reads only files inside it unless "
+                    f"told otherwise. If that is the file you mean, add --data '{recorded}' "
+                    "(its SHA-256 is checked before it is read), or copy the file next to "
+                    "record.json.", code="outside_record")
+    if not path.exists():
+        raise InputProblem(f"There is no data file '{shown}'. Give the file with --data PATH.",
                            code="not_found")
-    opts = rec.get("load_options") or {}
-    progress(0.0, f"Reading {path}")
-    loaded = _load(path, decimal=opts.get("decimal"), sheet=opts.get("sheet"),
-                   name=facts.get("file"))
-    want = facts.get("sha256")
-    got = loaded.report.sha256
-    if not want:
-        raise InputProblem("The record holds no SHA-256 of the data, so the data cannot be "
-                           "checked; run 'fitladder run' instead.", code="bad_record")
+    if not path.is_file():
+        raise InputProblem(f"'{shown}' is not a regular file (a folder, device or pipe). Give "
+                           "the data file with --data PATH.", code="not_found")
+    size = path.stat().st_size
+    want_size = facts.get("size_bytes")
+    want = facts["sha256"]
+    if want_size is not None and size != want_size:
+        raise InputProblem(
+            f"The data file '{shown}' is not the one recorded: it is {size:,} bytes, the record "
+            f"says {want_size:,} (file '{facts.get('file')}'). Give the original file with "
+            "--data, or run 'fitladder run' to make a new pack from the changed data.",
+            code="data_changed")
+    got = file_sha256(path)
     if got != want:
         raise InputProblem(
-            f"The data file '{path}' is not the one recorded: its SHA-256 is {got}, the record "
+            f"The data file '{shown}' is not the one recorded: its SHA-256 is {got}, the record "
             f"says {want} (file '{facts.get('file')}'). Give the original file with --data, or "
             "run 'fitladder run' to make a new pack from the changed data.",
             code="data_changed")
-    try:
-        spec = SweepSpec.from_dict(rec["spec"])
-    except (TypeError, KeyError, ValueError) as exc:
-        raise InputProblem(f"The request in the record cannot be read ({exc}).",
-                           code="bad_record") from None
+    return path
+
+
+def command_rerun(args: argparse.Namespace) -> int:
+    from .record import check_record
+
+    rec, record_path = read_record(args.record)
+    spec = check_record(rec, str(record_path))
+    path = locate_recorded_data(rec, record_path, args.data)
+    with _out_folder(args) as folder:
+        return _rerun_into(args, folder, rec, spec, path)
+
+
+def _rerun_into(args: argparse.Namespace, folder, rec: dict, spec, path: Path) -> int:
+    from .loading import prepare
+    from .pack import build_pack
+
+    progress = _StderrProgress()
+    facts = rec["data"]
+    opts = rec.get("load_options") or {}
+    progress(0.0, f"Reading {path}")
+    loaded = _load(str(path), decimal=opts.get("decimal"), sheet=opts.get("sheet"),
+                   name=facts.get("file"))
+    if loaded.report.sha256 != facts["sha256"]:  # the file changed while it was read
+        raise InputProblem(f"The data file '{path}' changed while it was read. Run again "
+                           "when nothing else writes to it.", code="data_changed")
     roles = rec["roles"]
-    targets = spec.targets if spec.extra_targets else (roles.get("target", spec.target),)
-    data = _prepare(loaded.frame, targets, list(roles.get("inputs", spec.inputs)),
+    targets = spec.targets if spec.extra_targets else (roles["target"],)
+    data = _prepare(loaded.frame, targets, list(roles["inputs"]),
                     order_column=roles.get("order_column"),
                     group_column=roles.get("group_column"), split_column=roles.get("split_column"))
     _say_drops(data)
     cells = [tuple(c) for c in rec.get("compare_cells") or []] or None
-    result = build_pack(args.out, loaded=loaded, source_name=facts.get("file") or
+    result = build_pack(folder, loaded=loaded, source_name=facts.get("file") or
                         loaded.report.source_name, data=data, spec=spec, compare_orders=
                         [(int(q), float(a)) for q, a in cells] if cells else None,
                         progress=progress, load_options=opts,
@@ -633,6 +736,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``fitladder`` command; returns the exit status."""
     parser = build_parser()
     args = parser.parse_args(argv)  # exits 2 on a usage error, 0 on --help
+    previous = _stop_cleanly_on_sigterm()
     try:
         if args.command == "run":
             return command_run(args)
@@ -641,14 +745,38 @@ def main(argv: Sequence[str] | None = None) -> int:
         print(f"{PROG}: {exc.message}{_option_hint(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
-        print(f"{PROG}: interrupted.", file=sys.stderr)
+        print(f"{PROG}: interrupted; nothing was left in --out.", file=sys.stderr)
         return 130
+    except _Terminated:
+        print(f"{PROG}: stopped (SIGTERM); nothing was left in --out.", file=sys.stderr)
+        return 143
     except Exception as exc:  # anything else is a defect of the program, not the input
         if os.environ.get("FITLADDER_DEBUG") == "1":
             traceback.print_exc()
         print(f"{PROG}: internal error ({type(exc).__name__}: {exc}). Set FITLADDER_DEBUG=1 to "
               "see the traceback.", file=sys.stderr)
         return EXIT_INTERNAL
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+class _Terminated(BaseException):
+    """SIGTERM arrived: unwind so the half-written pack is removed."""
+
+
+def _stop_cleanly_on_sigterm():
+    """Turn SIGTERM into an exception (main thread only); return the previous handler."""
+    if threading.current_thread() is not threading.main_thread():
+        return None
+
+    def handler(signum, frame):  # noqa: ARG001
+        raise _Terminated()
+
+    try:
+        return signal.signal(signal.SIGTERM, handler)
+    except (ValueError, OSError):  # pragma: no cover - not allowed here
+        return None
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -1323,7 +1323,8 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
         if count == 0:
             raise InputProblem(
                 f"There is no column named '{col}' (chosen as {role}). Numeric columns in "
-                f"the table: {_quote_list(numeric_available)}.",
+                f"the table: {_quote_list(numeric_available)}. Check the spelling, or choose "
+                "one of these.",
                 code="unknown_column", column=str(col))
         if count > 1:
             raise InputProblem(f"More than one column is named '{col}'; rename them so "

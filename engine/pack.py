@@ -25,7 +25,9 @@ import io
 import json
 import math
 import platform
+import re
 import zipfile
+from contextlib import ExitStack
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
@@ -39,6 +41,8 @@ from .compare import cell_label, fit_candidates
 from .errors import InputProblem
 from .final_fit import FinalModel
 from .markup import escape_name, escape_text
+from .packdir import PackFolder, write_problem
+from .record import RECORD_FORMAT, request_fingerprint
 from .recommend import Cell
 from .labels import (CHARTS, number_text, penalty_text, penalty_words, rung_text, scheme_name,
                      severity_rank)
@@ -48,7 +52,6 @@ Progress = Callable[[float, str], None]
 
 #: Format tag written into ``summary.json`` and ``record.json``.
 SUMMARY_FORMAT = "fitladder-summary/1"
-RECORD_FORMAT = "fitladder-record/1"
 
 #: Chart files (stem -> title), each written as PNG and SVG; the page uses the same.
 CHART_FILES = dict(CHARTS)
@@ -63,6 +66,9 @@ PACK_FILES = (
 
 #: several targets: the side-by-side table at the top of the pack
 TARGETS_FILE = "targets.csv"
+
+#: More names a pack folder may hold: one folder per extra target.
+PACK_NAMES = re.compile(r"target_\d+")
 
 #: Files a pack holds only when their results were computed (on the page, on request).
 OPTIONAL_FILES = ("nested_cv.csv", "selection_stability.csv")
@@ -666,7 +672,7 @@ def _versions() -> dict:
 def record_dict(spec: SweepSpec, data_facts: dict, roles: dict, cells: list[tuple[int, float]],
                 load_options: dict | None, source_path: str | None) -> dict:
     """The content of ``record.json``: what is needed to run the pack again."""
-    return plain({
+    rec = plain({
         "format": RECORD_FORMAT,
         "created_utc": _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat(),
         "spec": spec.to_dict(),
@@ -681,6 +687,8 @@ def record_dict(spec: SweepSpec, data_facts: dict, roles: dict, cells: list[tupl
         "compare_cells": [[q, a] for q, a in cells],
         "versions": _versions(),
     })
+    rec["request_sha256"] = request_fingerprint(rec)  # lets a re-run notice hand edits
+    return rec
 
 
 # ---------------------------------------------------------------------------
@@ -1162,40 +1170,90 @@ def targets_table(analyses: list[Analysis], folders: list[str] | None = None) ->
     return t.dropna(axis=1, how="all")
 
 
-def _build_target_packs(out_dir, *, data, spec, analyses, progress, **kw) -> PackResult:
+def _build_target_packs(out_dir, *, data, spec, analyses, progress, overwrite=False,
+                        **kw) -> PackResult:
     """A pack per target: the first at the top, the others in folders ``target_2``, ...
 
-    Every pack shows the side-by-side table of all targets (``targets.csv``).
+    Every pack shows the side-by-side table of all targets (``targets.csv``). All
+    are made in one hidden sibling folder and moved into place together.
     """
     from .analysis import analyse_targets
-    out = Path(out_dir)
+    opened = out_dir if isinstance(out_dir, PackFolder) else None
+    out = opened.out if opened is not None else Path(out_dir)
     if analyses is None:
         analyses = analyse_targets(data, spec, progress=_stage(progress, 0.0, 0.3))
     folders = ["."] + [f"target_{i}" for i in range(2, len(analyses) + 1)]
     table = targets_table(analyses, folders)
     first = None
-    for i, (a, folder) in enumerate(zip(analyses, folders)):
-        lo = 0.3 + 0.7 * i / len(analyses)
-        res = build_pack(out / folder, data=data, spec=spec, analysis=a, targets=table,
-                         progress=_stage(progress, lo, lo + 0.7 / len(analyses)), **kw)
-        first = first or res
-    try:
-        write_csv(table, out / TARGETS_FILE)
-    except OSError as exc:
-        raise InputProblem(f"Could not write the pack to '{out}': {exc.strerror or exc}. "
-                           "Choose a folder you can write to.", code="cannot_write") from None
-    first.files.append(out / TARGETS_FILE)
+    with ExitStack() as stack:
+        folder = opened if opened is not None else stack.enter_context(
+            pack_folder(out, overwrite))
+        work = folder.work
+        for i, (a, sub) in enumerate(zip(analyses, folders)):
+            lo = 0.3 + 0.7 * i / len(analyses)
+            res = build_pack(_Direct(work / sub), data=data, spec=spec, analysis=a,
+                             targets=table,
+                             progress=_stage(progress, lo, lo + 0.7 / len(analyses)), **kw)
+            first = first or res
+        try:
+            write_csv(table, work / TARGETS_FILE)
+            folder.commit()
+        except OSError as exc:
+            raise write_problem(out, exc) from None
+    first.out_dir = out
+    first.files = [out / Path(p).relative_to(work) for p in first.files] + [out / TARGETS_FILE]
     return first
 
 
-def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, data: DataLike,
+class _Direct:
+    """A folder inside a pack being made: written straight into (sub-packs)."""
+
+    def __init__(self, path: Path) -> None:
+        self.path = Path(path)
+
+
+def pack_folder(out: "str | Path", overwrite: bool = False) -> PackFolder:
+    """The guarded folder for a pack at ``out`` (see `engine.packdir.PackFolder`)."""
+    return PackFolder(out, PACK_FILES + OPTIONAL_FILES + (TARGETS_FILE,), overwrite=overwrite,
+                      also=PACK_NAMES)
+
+
+def _write_files(work: Path, summary: dict, record: dict, pngs: dict[str, bytes],
+                 svgs: dict[str, str], full: Analysis, lc: Any, findings: list[dict],
+                 model: FinalModel) -> None:
+    """Every pack file but ``summary.json`` into ``work`` (the caller writes it last)."""
+    def put_text(name: str, text: str) -> None:
+        (work / name).write_text(text, encoding="utf-8", newline="\n")
+
+    stamp = f"{_versions()['fitladder']} · made {record['created_utc']}"
+    put_text("summary.html", render_html(summary, pngs, stamp))
+    put_text("summary.md", render_markdown(summary))
+    put_text("record.json", dump_json(record))
+    for stem in CHART_FILES:
+        (work / f"{stem}.png").write_bytes(pngs[stem])
+        put_text(f"{stem}.svg", svgs[stem])
+    write_csv(full.validation, work / "validation_grid.csv")
+    write_csv(lc.table, work / "learning_curve.csv")
+    write_csv(full.sweep.coefficient_table(), work / "coefficients.csv")
+    write_csv(pd.DataFrame(findings, columns=["number", "code", "severity", "message", "value",
+                                              "advice"]).astype(object), work / "warnings.csv")
+    write_csv(pd.DataFrame({"term": list(model.terms),
+                            "coefficient": np.asarray(model.coefficients, float)}),
+              work / "model_coefficients.csv")
+    if not (work / "model.skops").is_file():  # written beforehand by `_ModelFileWriter`
+        save_pipeline(model, work / "model.skops")
+
+
+def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source_name: str,
+               data: DataLike,
                spec: SweepSpec, analysis: Analysis | None = None, checks: Any | None = None,
                compare_orders: Sequence[int | tuple[int, float]] | None = None,
                progress: Progress | None = None, load_options: dict | None = None,
                source_path: str | None = None,
                model_file_in_background: bool = False, analyses: list[Analysis] | None = None,
                targets: pd.DataFrame | None = None, models: dict | None = None,
-               learning: Any | None = None, trust: tuple | None = None) -> PackResult:
+               learning: Any | None = None, trust: tuple | None = None,
+               overwrite: bool = False) -> PackResult:
     """Write the meeting pack for one request into ``out_dir``.
 
     Whatever the caller already computed (the dashboard: its sweep, checks,
@@ -1204,8 +1262,11 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
 
     Parameters
     ----------
-    out_dir : folder to write into (created when missing; files of a pack
-        already there are overwritten, other files are left alone).
+    out_dir : folder to write into, or an open `engine.packdir.PackFolder`
+        (the command line opens it before computing). The pack is made in a
+        hidden temporary sibling and moved into place when complete; a
+        folder holding anything but an earlier pack is refused unless
+        ``overwrite``.
     loaded : the `engine.loading.LoadedTable` the data came from (for the
         file's SHA-256 and read notes), or None for data not read from a file.
     source_name : file name to show.
@@ -1227,6 +1288,8 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         drawn, else computed.
     trust : ``(NestedResult or None, StabilityResult or None)`` from
         `engine.trust`, written to the pack when given.
+    overwrite : replace the pack files of a folder that holds other files too
+        (those are kept).
 
     Returns
     -------
@@ -1238,13 +1301,18 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         For a request or data that cannot be analysed, or a compare order
         outside the sweep.
     """
-    out = Path(out_dir)
+    direct = isinstance(out_dir, _Direct)
+    opened = out_dir if isinstance(out_dir, PackFolder) else None
+    out = out_dir.path if direct else opened.out if opened is not None else Path(out_dir)
+    if not direct and opened is None:
+        pack_folder(out, overwrite).check()  # refuse a folder before computing anything
     if spec.extra_targets and targets is None:
-        return _build_target_packs(out, data=data, spec=spec, analyses=analyses,
+        return _build_target_packs(opened or out, data=data, spec=spec, analyses=analyses,
                                    progress=progress, loaded=loaded, source_name=source_name,
                                    checks=checks, compare_orders=compare_orders,
                                    load_options=load_options, source_path=source_path,
-                                   model_file_in_background=model_file_in_background)
+                                   model_file_in_background=model_file_in_background,
+                                   overwrite=overwrite)
     if analysis is None:
         analysis = analyse(data, spec, progress=_stage(progress, 0.0, 0.55))
     elif analysis.spec != spec:
@@ -1266,103 +1334,80 @@ def build_pack(out_dir: str | Path, *, loaded: Any | None, source_name: str, dat
         given.update(fit_candidates(data, analysis.spec, missing))
     models = {c: given[c] for c in cells}
     model = models[_cell_key(rec.order, rec.penalty)]
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise InputProblem(f"Could not write the pack to '{out}': {exc.strerror or exc}. "
-                           "Choose a folder you can write to.", code="cannot_write") from None
-    model_writer = _ModelFileWriter(model, out / "model.skops", model_file_in_background)
-    if progress:
-        progress(0.62, "Learning curve")
-    lc_orders = sorted({q for q, _ in learning_cells(cells)})
-    lc = learning
-    if lc is None or not set(lc_orders) <= {int(q) for q in lc.table["order"]}:
-        lc = learning_curve(data, analysis.spec, orders=lc_orders)
-    # the charts need nothing from the checks: draw them in the background meanwhile
-    if progress:
-        progress(0.70, "Drawing charts")
-    from . import charts as _charts
-    chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note)
-    rendering = _charts.render_charts({stem: _charts.for_print(ch, 95)
-                                       for stem, ch in chart_objs.items()})
-    if checks is None:
+    # the pack is made in a hidden sibling of `out` and moved into place when complete
+    with ExitStack() as stack:
+        if direct:
+            folder = None
+            work = out
+            try:
+                work.mkdir(parents=True, exist_ok=True)
+            except OSError as exc:
+                raise write_problem(out, exc) from None
+        else:
+            folder = opened if opened is not None else stack.enter_context(
+                pack_folder(out, overwrite))
+            work = folder.work
+        model_writer = _ModelFileWriter(model, work / "model.skops", model_file_in_background)
         if progress:
-            progress(0.72, "Checks")
-        from .checks import run_checks
-        checks = run_checks(data, analysis, cells, progress=_stage(progress, 0.72, 0.76),
-                            models=models)
-    findings = _finding_dicts(checks)
-    facts = _data_facts(source_data, loaded, source_name)
-    if full.rows_left_out:
-        facts["rows_used"] = int(full.n_rows)
-        facts["rows_left_out_for_lags"] = int(full.rows_left_out)
-    roles = _roles(source_data, spec)
-    candidates = leading_candidates(analysis)
-    summary = summary_dict(analysis, model, facts, roles, findings, cells, candidates, lc.note,
-                           full=full)
-    summary["checks"] = plain(_check_facts(checks))
-    if targets is not None:
-        summary["targets"] = plain(targets.to_dict(orient="records"))
-    nested, stability = (tuple(trust) + (None, None))[:2] if trust else (None, None)
-    summary.update(plain({"nested_cv": _nested_dict(nested),
-                          "selection_stability": _stability_dict(stability, analysis),
-                          "use": usage(model)}))
-    record = record_dict(spec, facts, roles, cells, load_options, source_path)
-
-    if progress:
-        progress(0.90, "Writing files")
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-        written: dict[str, Path] = {}
-        # the model file first: its imports (scikit-learn, skops) overlap the drawing
-        model_path = model_writer.finish()
-        drawn = rendering.result()
-        pngs = {stem: png for stem, (png, _) in drawn.items()}
-        svgs = {stem: svg for stem, (_, svg) in drawn.items()}
-
-        def put_text(name: str, text: str) -> None:
-            p = out / name
-            p.write_text(text, encoding="utf-8", newline="\n")
-            written[name] = p
-
-        def put_bytes(name: str, blob: bytes) -> None:
-            p = out / name
-            p.write_bytes(blob)
-            written[name] = p
-
-        stamp = f"{_versions()['fitladder']} · made {record['created_utc']}"
-        put_text("summary.html", render_html(summary, pngs, stamp))
-        put_text("summary.md", render_markdown(summary))
-        put_text("summary.json", dump_json(summary))
-        put_text("record.json", dump_json(record))
-        for stem in CHART_FILES:
-            put_bytes(f"{stem}.png", pngs[stem])
-            put_text(f"{stem}.svg", svgs[stem])
-        written["validation_grid.csv"] = write_csv(full.validation,
-                                                   out / "validation_grid.csv")
-        written["learning_curve.csv"] = write_csv(lc.table, out / "learning_curve.csv")
-        written["coefficients.csv"] = write_csv(full.sweep.coefficient_table(),
-                                                out / "coefficients.csv")
-        written["warnings.csv"] = write_csv(
-            pd.DataFrame(findings, columns=["number", "code", "severity", "message", "value",
-                                            "advice"]).astype(object), out / "warnings.csv")
-        written["model_coefficients.csv"] = write_csv(
-            pd.DataFrame({"term": list(model.terms),
-                          "coefficient": np.asarray(model.coefficients, float)}),
-            out / "model_coefficients.csv")
-        written["model.skops"] = model_path
-        if nested is not None:
-            written["nested_cv.csv"] = write_csv(nested.per_fold, out / "nested_cv.csv")
-        if stability is not None:
-            written["selection_stability.csv"] = write_csv(stability.chosen,
-                                                           out / "selection_stability.csv")
-    except OSError as exc:
-        raise InputProblem(f"Could not write the pack to '{out}': {exc.strerror or exc}. "
-                           "Choose a folder you can write to.", code="cannot_write") from None
+            progress(0.62, "Learning curve")
+        lc_orders = sorted({q for q, _ in learning_cells(cells)})
+        lc = learning
+        if lc is None or not set(lc_orders) <= {int(q) for q in lc.table["order"]}:
+            lc = learning_curve(data, analysis.spec, orders=lc_orders)
+        # the charts need nothing from the checks: draw them in the background meanwhile
+        if progress:
+            progress(0.70, "Drawing charts")
+        from . import charts as _charts
+        chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note)
+        rendering = _charts.render_charts({stem: _charts.for_print(ch, 95)
+                                           for stem, ch in chart_objs.items()})
+        if checks is None:
+            if progress:
+                progress(0.72, "Checks")
+            from .checks import run_checks
+            checks = run_checks(data, analysis, cells, progress=_stage(progress, 0.72, 0.76),
+                                models=models)
+        findings = _finding_dicts(checks)
+        facts = _data_facts(source_data, loaded, source_name)
+        if full.rows_left_out:
+            facts["rows_used"] = int(full.n_rows)
+            facts["rows_left_out_for_lags"] = int(full.rows_left_out)
+        roles = _roles(source_data, spec)
+        candidates = leading_candidates(analysis)
+        summary = summary_dict(analysis, model, facts, roles, findings, cells, candidates, lc.note,
+                               full=full)
+        summary["checks"] = plain(_check_facts(checks))
+        if targets is not None:
+            summary["targets"] = plain(targets.to_dict(orient="records"))
+        nested, stability = (tuple(trust) + (None, None))[:2] if trust else (None, None)
+        summary.update(plain({"nested_cv": _nested_dict(nested),
+                              "selection_stability": _stability_dict(stability, analysis),
+                              "use": usage(model)}))
+        record = record_dict(spec, facts, roles, cells, load_options, source_path)
+        if progress:
+            progress(0.90, "Writing files")
+        try:
+            # the model file first: its imports (scikit-learn, skops) overlap the drawing
+            model_writer.finish()
+            drawn = rendering.result()
+            pngs = {stem: png for stem, (png, _) in drawn.items()}
+            svgs = {stem: svg for stem, (_, svg) in drawn.items()}
+            _write_files(work, summary, record, pngs, svgs, full, lc, findings, model)
+            if nested is not None:
+                write_csv(nested.per_fold, work / "nested_cv.csv")
+            if stability is not None:
+                write_csv(stability.chosen, work / "selection_stability.csv")
+            # summary.json last: it marks a finished pack
+            (work / "summary.json").write_text(dump_json(summary), encoding="utf-8",
+                                               newline="\n")
+            if folder is not None:
+                folder.commit()
+        except OSError as exc:
+            raise write_problem(out, exc) from None
     if progress:
         progress(1.0, "Pack written")
-    return PackResult(out_dir=out, files=[written[n] for n in PACK_FILES + OPTIONAL_FILES
-                                          if n in written],
+    return PackResult(out_dir=out, files=[out / n for n in PACK_FILES + OPTIONAL_FILES
+                                          if (out / n).is_file()],
                       summary=summary, record=record, analysis=full, model=model)
 
 

@@ -89,10 +89,12 @@ def test_run_writes_the_whole_pack(cli_pack):
 
 
 def test_rerun_reproduces_summary_json_exactly(cli_pack, tmp_path):
-    proc, out, _ = cli_pack
+    proc, out, data = cli_pack
     assert proc.returncode == 0, proc.stderr
     again = tmp_path / "again"
-    proc2 = _run([PY, "-m", "engine", "rerun", str(out / "record.json"), "--out", str(again)])
+    # the data lies outside the pack folder, so it is named with --data
+    proc2 = _run([PY, "-m", "engine", "rerun", str(out / "record.json"), "--data", str(data),
+                  "--out", str(again)])
     assert proc2.returncode == 0, proc2.stderr
     assert (again / "summary.json").read_bytes() == (out / "summary.json").read_bytes()
     for name in ("validation_grid.csv", "model_coefficients.csv", "learning_curve.csv"):
