@@ -75,6 +75,9 @@ def _spec_schema() -> dict:
         "lags": {"anyOf": [{"type": "null"}, {"type": "object"}]},
         "nested_inputs": {"anyOf": [{"type": "null"}, {"enum": ["lasso", "given"]}]},
         "extra_targets": {"type": "array", "items": _NAME, "maxItems": 1000},
+        "families": {"type": "array", "items": _NAME, "minItems": 1, "maxItems": 10},
+        "l1_ratios": {"type": "array", "maxItems": 100,
+                      "items": {"type": "number", "minimum": 0, "maximum": 1}},
     }
     for f in dataclasses.fields(SweepSpec):  # fields added later are known keys too
         props.setdefault(f.name, {})
