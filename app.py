@@ -34,6 +34,9 @@ from engine import charts as C
 from dashboard.grid_axes import axes_controls, grid_heatmap, target_choice, targets_control
 from engine.labels import rung_text
 from engine.compare import fit_candidates
+from engine.labels import (ERROR_UNITS, number_text, SAMPLES_PER_PARAMETER_HOW, SCHEME_NEEDS, error_in_unit,
+                           error_text, reason_in_unit, samples_per_parameter, se_in_unit,
+                           se_text)
 from engine.labels import (CHARTS, ROW_ORDER_ANSWERS, ROW_ORDER_HELP, SCHEME_NAMES,
                            SCHEMES_WITH_FOLDS, TABLES, column_header, human_headers,
                            option_label, penalty_text)
@@ -77,6 +80,7 @@ class Preset:
     pen_count: int = DEFAULT_PENALTY_COUNT
     pen_zero: bool = True
     seed: int = DEFAULT_SEED
+    compare_unpenalised: bool = False  # side by side: each order also without a penalty
 
 
 @dataclass(frozen=True)
@@ -92,7 +96,8 @@ DEMOS: dict[str, Demo] = {
         "calibration_curve.csv", "Demo: probe calibration (24 rows)",
         "A temperature probe read against a reference thermometer in a bath. Small table of "
         "independent readings, so leave-one-out fits.",
-        Preset(target="bath_temp_C", inputs=("probe_mV",), scheme="loo", max_order=10)),
+        Preset(target="bath_temp_C", inputs=("probe_mV",), scheme="loo", max_order=10,
+               compare_unpenalised=True)),
     "demo:drift": Demo(
         "drifting_line_sensors.csv", "Demo: reactor line log (3,000 rows)",
         "One reading a minute for two days; neighbouring minutes resemble each other and the "
@@ -377,14 +382,39 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
 
     st.sidebar.subheader("3 · Validation")
     keep("scheme", "kfold")
-    scheme = st.sidebar.selectbox(option_label("scheme"), list(SCHEME_NAMES),
+    split_pick = ss.get("split_column", NONE)
+    chosen = {"group_column": group_col, "split_column": split_pick}
+    # a scheme that needs a column is offered once that column is chosen
+    offered = [k for k in SCHEME_NAMES
+               if k not in SCHEME_NEEDS or chosen[SCHEME_NEEDS[k]] not in (NONE, None)]
+    if ss.get("scheme") not in offered:
+        if ss.get("scheme") in SCHEME_NEEDS:
+            ss["_scheme_note"] = (f"{SCHEME_NAMES[ss['scheme']]} needs a "
+                                  f"{SCHEME_NEEDS[ss['scheme']].replace('_', ' ')}; "
+                                  f"{SCHEME_NAMES['kfold']} are used until one is chosen.")
+        ss["scheme"] = "kfold"
+    scheme = st.sidebar.selectbox(option_label("scheme"), offered,
                                   format_func=SCHEME_NAMES.get, key="scheme")
     st.sidebar.caption(SCHEME_HELP[scheme])
+    if ss.get("_scheme_note"):
+        st.sidebar.warning(ss.pop("_scheme_note"), icon=":material/info:")
+    waiting = [SCHEME_NAMES[k] for k in SCHEME_NAMES if k not in offered]
+    if waiting:
+        st.sidebar.caption(" and ".join(waiting) + " appear once their column is chosen "
+                           "(group column above; split column below).")
     folds = repeats = gap = None
     frac = 0.2
-    if scheme in ("kfold", "repeated", "blocked", "grouped"):
+    if scheme in SCHEMES_WITH_FOLDS:
         keep("folds", 5)
-        folds = st.sidebar.number_input(option_label("folds"), min_value=2, max_value=100, step=1, key="folds")
+        top = max(2, min(100, len(frame)))
+        if scheme == "grouped":  # never more folds than groups
+            top = max(2, int(frame[group_col].dropna().nunique()))
+        if int(ss.get("folds", 5)) > top:
+            ss["folds"] = top
+            st.sidebar.caption(f"Folds set to {top}: there are only {top} "
+                               + ("groups." if scheme == "grouped" else "rows."))
+        folds = st.sidebar.number_input(option_label("folds"), min_value=2, max_value=top,
+                                        step=1, key="folds")
     if scheme == "repeated":
         keep("repeats", 3)
         repeats = st.sidebar.number_input(option_label("repeats"), min_value=1, max_value=50, step=1,
@@ -399,10 +429,10 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
                                  key="holdout_fraction")
     if scheme in ("blocked", "holdout") and order_col == NONE:
         st.sidebar.caption("No order column chosen: the row order of the file is used.")
-    if scheme == "column":
-        split_col = st.sidebar.selectbox("Split column", [NONE] + columns, key="split_column")
-    if scheme == "grouped" and group_col == NONE:
-        st.sidebar.caption("Choose a group column above.")
+    split_col = st.sidebar.selectbox(option_label("split_column") + " (optional)",
+                                     [NONE] + columns, key="split_column",
+                                     help="Your own fold labels (or train/test), for "
+                                          f"{SCHEME_NAMES['column']}.")
 
     st.sidebar.subheader("4 · Models")
     keep("max_order", 4)
@@ -422,6 +452,10 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
     keep("seed", 0)
     seed = st.sidebar.number_input(option_label("seed"), min_value=0, max_value=2**31 - 1,
                                    step=1, key="seed")
+    keep("metric", "mse")
+    st.sidebar.radio("Errors shown as", list(ERROR_UNITS), format_func=ERROR_UNITS.get,
+                     key="metric", horizontal=True,
+                     help="One unit for the tiles, the sentences and the charts.")
 
     lags, nested = axes_controls(scheme, int(gap or 0), len(inputs))
     order_c = None if order_col == NONE else order_col
@@ -517,36 +551,65 @@ def choose(label: str, options: list, default: Any, key: str, *, slider: bool = 
 # ---------------------------------------------------------------------------
 
 
-def recommendation_panel(analysis, target: str) -> None:
+def card_figures(analysis, n_rows: int, unit: str) -> dict:
+    """Every number the recommendation card shows, computed once in the chosen error unit.
+
+    The tiles, the sentence below them and the charts read from here, so a
+    figure shown twice is the same figure (checked in the page tests).
+    """
     rec = analysis.recommendation
     r, b = rec.recommended, rec.best
-    unit = C.column_units(target)
+    u = ERROR_UNITS[unit]
+    val = error_in_unit(r.validation_mse, unit)
+    train = error_in_unit(r.train_mse, unit)
+    return {
+        "unit": u,
+        "validation": error_text(val),
+        "validation_se": se_text(se_in_unit(r.validation_mse, r.validation_mse_se, unit)),
+        "r2": f"{r.validation_r2:.4f}",
+        "samples_per_parameter": f"{samples_per_parameter(n_rows, r.effective_df):.1f}",
+        "parameters": int(r.parameters),
+        "effective": f"{r.effective_df:.1f}",
+        "gap": number_text(val - train, 3),
+        "ratio": (f"{val / train:.2f}" if train > 0 else "inf"),
+        "best": error_text(error_in_unit(b.validation_mse, unit)),
+        "best_se": se_text(se_in_unit(b.validation_mse, b.validation_mse_se, unit)),
+        "reason": reason_in_unit(r.reason, r.validation_mse, b.validation_mse,
+                                 b.validation_mse_se, unit),
+    }
+
+
+def recommendation_panel(analysis, target: str, n_rows: int | None = None) -> None:
+    rec = analysis.recommendation
+    r, b = rec.recommended, rec.best
+    units = C.column_units(target)
+    unit = st.session_state.get("metric", "mse")
+    n = int(n_rows if n_rows is not None else round(r.samples_per_parameter * r.parameters))
+    f = card_figures(analysis, n, unit)
+    st.session_state["_card"] = f  # read by the page tests
+    u = f["unit"]
     with st.container(border=True):
         st.markdown(f"#### Recommended: {C.cell_text(r.order, r.penalty)}"
                     + rung_text(r.lags, r.target_lags, r.inputs_used))
-        rmse = float(np.sqrt(r.validation_mse))
-        se_rmse = float(r.validation_mse_se / (2 * rmse)) if rmse > 0 else float("nan")
         m1, m2, m3, m4 = st.columns(4)
-        m1.metric("Validation error (RMSE)", f"{rmse:.4g}" + (f" {unit}" if unit else ""),
-                  help=f"Root of the mean validation MSE {r.validation_mse:.4g} ± "
-                       f"{r.validation_mse_se:.2g} (one standard error across splits). "
-                       f"The ± on the RMSE is that SE carried through the square root.")
-        m1.caption(f"± {se_rmse:.2g} (one SE) · R² {r.validation_r2:.4f}")
-        m2.metric("Samples per parameter", f"{r.samples_per_parameter:.1f}",
-                  help="Average training rows per split divided by the number of parameters "
-                       f"({r.parameters}).")
-        m2.caption(f"{r.parameters} parameters · {r.effective_df:.1f} effective")
-        gap = r.validation_mse - r.train_mse
-        ratio = r.validation_mse / r.train_mse if r.train_mse > 0 else float("inf")
-        m3.metric("Train–validation gap (MSE)", f"{gap:.3g}",
-                  help="Mean validation MSE minus mean training MSE: how much worse the "
+        shown_units = "" if not units else (f" {units}" if unit == "rmse" else "")
+        m1.metric(f"Validation error ({u})", f["validation"] + shown_units,
+                  help=f"Mean validation {u} across the splits, ± one standard error"
+                       + (" (the MSE's SE carried through the square root)."
+                          if unit == "rmse" else "."))
+        m1.caption(f"± {f['validation_se']} (one SE) · R² {f['r2']}")
+        m2.metric("Samples per parameter", f["samples_per_parameter"],
+                  help=f"Samples per parameter: {SAMPLES_PER_PARAMETER_HOW}; the same count "
+                       "as in the warnings.")
+        m2.caption(f"{f['parameters']} coefficients · {f['effective']} effective")
+        m3.metric(f"Train–validation gap ({u})", f["gap"],
+                  help=f"Mean validation {u} minus mean training {u}: how much worse the "
                        "model does on rows it did not see.")
-        m3.caption(f"validation error is {ratio:.2f}× training error" if np.isfinite(ratio)
-                   else "training error is zero")
-        m4.metric("Lowest validation error (MSE)", f"{b.validation_mse:.4g}", help=b.reason)
-        m4.caption(f"± {b.validation_mse_se:.2g} · {C.cell_text(b.order, b.penalty)}"
+        m3.caption(f"validation error is {f['ratio']}× training error")
+        m4.metric(f"Lowest validation error ({u})", f["best"])
+        m4.caption(f"± {f['best_se']} · {C.cell_text(b.order, b.penalty)}"
                    + rung_text(b.lags, b.target_lags, b.inputs_used))
-        st.markdown(md(r.reason))
+        st.markdown(md(f["reason"]))
         st.caption(md(f"{analysis.plan.description} Rule: {rec.rule}."))
         st.caption("Where this model feeds a safety or compliance decision (a calibration "
                    "used on a plant, say), check it against your own acceptance standards "
@@ -629,7 +692,7 @@ def compare_cells(analysis) -> tuple[tuple[int, float], ...]:
     if a not in pens:
         a = analysis.recommendation.recommended.penalty
     zero = bool(ss.get("cmp_zero", default_compare_zero(analysis))) and 0.0 in pens and a != 0.0
-    keep_orders = sorted(picked)[:2 if zero else 4]  # at most four models side by side
+    keep_orders = sorted(picked)[:4]  # at most four orders, each also unpenalised if asked
     cells = [(int(q), float(a)) for q in keep_orders]
     if zero:
         cells += [(int(q), 0.0) for q in keep_orders]
@@ -643,6 +706,8 @@ def default_compare_zero(analysis) -> bool:
     where the penalty is what keeps the fit honest.
     """
     rec = analysis.recommendation.recommended
+    if st.session_state.get("_preset", Preset()).compare_unpenalised:
+        return True  # a demo whose story is the unpenalised high orders
     return max(analysis.spec.order_list()) <= 1 and rec.samples_per_parameter < 3.0
 
 
@@ -744,7 +809,7 @@ def trust_panel(data, analysis, run_key: str = "") -> None:
                    "scores it on rows the choice never saw. Selection stability repeats the "
                    "choice on resampled rows and counts how often each cell wins.")
         if st.button("Run both checks", key="run_trust", icon=":material/replay:"):
-            bar = st.progress(0.0, text="Nested cross-validation…")
+            bar = st.empty()
             nested = guarded("running nested cross-validation", trust.nested_cv, data,
                              analysis.spec, 5,
                              lambda f, m: bar.progress(min(1.0, 0.5 * float(f)), text=str(m)),
@@ -778,42 +843,91 @@ def trust_panel(data, analysis, run_key: str = "") -> None:
             table_download(stab.chosen, "selection_stability")
 
 
-def pack_panel(loaded, source_name: str, data, analysis, spec: SweepSpec,
-               compare_orders: list[int], pending: Future | None = None) -> None:
-    """The meeting-pack button (from `engine.pack`, when present).
+def use_model_panel(analysis_key: str, data, analysis) -> None:
+    """'Use this model' for the recommended cell (its fit on all rows, from the page's fits)."""
+    from dashboard.use_model import use_model_section
 
-    The pack reuses the page's sweep and, when finished, its checks; it is
-    written to a temporary folder and offered as one ZIP file.
-    """
-    try:
-        from engine import pack
-    except ImportError:
-        return
-    key = ("pack", analysis.spec.to_dict().__repr__(), source_name, tuple(compare_orders),
-           loaded.report.sha256, loaded.report.decimal)
-    if st.button("Prepare meeting pack", key="make_pack", icon=":material/folder_zip:",
-                 help="Writes a one-page summary, every chart and table, and the model."):
-        bar = st.progress(0.0, text="Preparing the pack…")
+    rec = analysis.recommendation.recommended
+    key = (int(rec.order), float(rec.penalty))
+    cells = compare_cells(analysis)
+    job = (run_once(("fits", analysis_key, cells), fit_candidates, data, analysis.spec,
+                    list(cells)) if key in cells else
+           run_once(("fits", analysis_key, (key,)), fit_candidates, data, analysis.spec, [key]))
+    models = wait_for(job, "Fitting the recommended model on all rows…")
+    use_model_section(models[key])
+
+
+def pack_request(loaded, source_name: str, data, analysis, spec: SweepSpec,
+                 cells: tuple, pending: Future | None, analysis_key: str,
+                 work_data=None, view=None) -> dict:
+    """Keyword arguments of `engine.pack.build_pack` from what the page computed:
+    its sweep, checks, side-by-side fits, learning curve, nested CV and stability."""
+    ss = st.session_state
+    view = view if view is not None else analysis
+    work_data = work_data if work_data is not None else data
+    fits = run_once(("fits", analysis_key, cells), fit_candidates, work_data, view.spec,
+                    list(cells))
+    lc = learning_job(analysis_key, work_data, view, learning_cells(view))
+    nested, stab = ss.get("_trust", {}).get(analysis_key, (None, None))
+    return dict(loaded=loaded, source_name=source_name, data=data, spec=spec,
+                analysis=analysis, checks=pending, compare_orders=list(cells),
+                models=fits, learning=lc, trust=(nested, stab),
+                load_options={"decimal": "," if getattr(loaded.report, "decimal", ".") == ","
+                              else None, "sheet": None})
+
+
+def pack_zip(request: dict) -> bytes:
+    """The meeting pack as ZIP bytes (built once per request, then kept)."""
+    from engine import pack
+
+    def build() -> bytes:
+        kw = dict(request)
+        for k in ("checks", "models", "learning"):  # futures of the page's background work
+            if isinstance(kw.get(k), Future):
+                try:
+                    kw[k] = kw[k].result()
+                except Exception:  # noqa: BLE001 - the pack computes it itself then
+                    kw[k] = None
         with tempfile.TemporaryDirectory() as tmp:
             out = Path(tmp) / "fitladder_pack"
-            report = None
-            if pending is not None and pending.done() and pending.exception() is None:
-                report = pending.result()
-            res = guarded("writing the pack", pack.build_pack, out, loaded=loaded,
-                          source_name=source_name, data=data, spec=spec, analysis=analysis,
-                          checks=report, compare_orders=compare_orders,
-                          load_options={"decimal": "," if getattr(loaded.report, "decimal", ".")
-                                        == "," else None, "sheet": None},
-                          progress=lambda f, m: bar.progress(min(1.0, float(f)), text=m))
-            blob = guarded("zipping the pack", pack.pack_zip_bytes, out) if res else None
-        bar.empty()
-        if blob:
-            st.session_state["pack_zip"] = (key, blob)
-    stored = st.session_state.get("pack_zip")
-    if stored and stored[0] == key:
-        st.download_button("Download meeting pack (ZIP)", data=stored[1],
-                           file_name="fitladder_pack.zip", mime="application/zip",
-                           key="pack_download", icon=":material/download:", on_click="ignore")
+            pack.build_pack(out, **kw)
+            return pack.pack_zip_bytes(out)
+
+    key = ("pack", repr(request["spec"].to_dict()), request["source_name"],
+           tuple(request["compare_orders"]), getattr(request["loaded"].report, "sha256", ""),
+           tuple(id(t) for t in request["trust"]))
+    try:
+        return run_here(key, build).result()
+    except InputProblem as exc:
+        return _problem_zip(exc.message)
+    except Exception as exc:  # noqa: BLE001 - a download must never show a traceback
+        print(traceback.format_exc())
+        return _problem_zip(f"The pack could not be written ({type(exc).__name__}). "
+                            "The page still works; try again or another setting.")
+
+
+def _problem_zip(message: str) -> bytes:
+    import io
+    import zipfile
+
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w") as zf:
+        zf.writestr("fitladder_pack/PROBLEM.txt", message + "\n")
+    return buf.getvalue()
+
+
+def pack_panel(request: dict) -> None:
+    """The meeting pack in one click: a download built, when clicked, from what the
+    page already computed (nothing is refitted; nested CV and stability when run)."""
+    st.session_state["_pack_request"] = request  # read by the tests and the benchmark
+    trust_ran = [t for t in request["trust"] if t is not None]
+    st.download_button("Meeting pack (ZIP)", data=lambda: pack_zip(request),
+                       file_name="fitladder_pack.zip", mime="application/zip",
+                       key="pack_download", icon=":material/folder_zip:", on_click="ignore",
+                       help="One-page summary, every chart and table, the model and how to "
+                            "use it, from what this page computed"
+                            + (", with nested cross-validation and selection stability."
+                               if trust_ran else "."))
 
 
 # ---------------------------------------------------------------------------
@@ -824,13 +938,9 @@ def pack_panel(loaded, source_name: str, data, analysis, spec: SweepSpec,
 def tab_validation(analysis, target: str) -> None:
     rec = analysis.recommendation
     pens = list(analysis.spec.penalties)
-    c1, c2 = st.columns([3, 1])
-    with c1:
-        pen = choose("Penalty shown", pens, rec.recommended.penalty, "view_penalty",
-                     slider=len(pens) > 1, fmt=C.penalty_text)
-    with c2:
-        metric = st.radio("Error as", ["mse", "rmse"], key="metric", horizontal=True,
-                          format_func={"mse": "MSE", "rmse": "RMSE"}.get)
+    pen = choose("Penalty shown", pens, rec.recommended.penalty, "view_penalty",
+                 slider=len(pens) > 1, fmt=C.penalty_text)
+    metric = st.session_state.get("metric", "mse")
     chart = roomy(C.validation_curve_chart(analysis.validation, pen, rec.best, rec.recommended,
                                            target, metric))
     chart_block(chart, "validation_curve", [(analysis.validation, "validation_grid")])
@@ -889,7 +999,7 @@ def tab_compare(analysis_key: str, data, analysis, target: str) -> list[int]:
     if a != 0.0 and 0.0 in pens:
         if "cmp_zero" not in st.session_state:
             st.session_state["cmp_zero"] = default_compare_zero(analysis)
-        st.checkbox("Also show each order without a penalty (first two orders)", key="cmp_zero")
+        st.checkbox("Also show each order without a penalty", key="cmp_zero")
     if not picked:
         st.info("Pick at least one order.")
         return []
@@ -1048,11 +1158,13 @@ def main() -> None:
     try:
         data = cached_prepare(data_key, roles, loaded.frame, spec.extra_targets)
         spec_dict = spec.to_dict()
-        bar = st.progress(0.0, text="Sweeping orders and penalties…")
-        analysis = cached_analysis(
-            data_key, roles, spec_dict, data,
-            lambda f, msg: bar.progress(min(1.0, max(0.0, float(f))), text=str(msg)))
-        bar.empty()
+        bar = st.empty()
+        try:
+            analysis = cached_analysis(
+                data_key, roles, spec_dict, data,
+                lambda f, msg: bar.progress(min(1.0, max(0.0, float(f))), text=str(msg)))
+        finally:  # no progress bar outlives its run, also when the sweep fails
+            bar.empty()
     except Exception as exc:  # noqa: BLE001
         show_problem(exc, "running the sweep")
         with st.expander("Data", expanded=True):
@@ -1085,14 +1197,17 @@ def main() -> None:
                       + (f" · {full.rows_left_out:,} rows at the start left out for lags"
                          if full.rows_left_out else "")))
     mark("sweep")
-    guarded("showing the recommendation", recommendation_panel, analysis, target)
+    guarded("showing the recommendation", recommendation_panel, analysis, target, data.n_rows)
     # slow engine calls run in the background, in this order, while the quick
     # charts are drawn: side-by-side fits, then checks. The warnings panel sits
     # here and is filled at the end.
     guarded("starting the fits", start_fits, analysis_key, data, analysis,
             compare_cells(analysis))
     pending = guarded("starting the checks", start_checks, analysis_key, data, analysis)
-    warn_slot = st.container()
+    warn_slot = st.empty()
+    # replaces the previous data set's warnings at once (they would stay, greyed, until
+    # the new checks finish)
+    warn_slot.caption("Checking data and fit for warning signs…")
     guarded("checking the choice", trust_panel, data, analysis, analysis_key)
     tabs = st.tabs([CHARTS["validation_curve"], CHARTS["order_penalty_heatmap"],
                     CHARTS["learning_curve"], CHARTS["order_comparison"],
@@ -1113,14 +1228,20 @@ def main() -> None:
         compare_orders = guarded("comparing orders", tab_compare, analysis_key, data,
                                  analysis, target) or default_compare_orders(analysis)
     mark("charts")
+    with st.container(border=True):
+        guarded("showing how to use the model", use_model_panel, analysis_key, data, analysis)
     if pending is not None:
-        with warn_slot:
+        with warn_slot.container():
             guarded("running the checks", warnings_panel, pending)
+    else:
+        warn_slot.empty()
     mark("checks")
     with st.sidebar:
         st.subheader("5 · Meeting pack")
-        guarded("preparing the pack", pack_panel, loaded, name, data_all, full, spec,
-                compare_orders, pending)
+        request = guarded("preparing the pack", pack_request, loaded, name, data_all, full,
+                          spec, compare_cells(analysis), pending, analysis_key, data, analysis)
+        if request:
+            guarded("preparing the pack", pack_panel, request)
 
 
 main()

@@ -1195,17 +1195,34 @@ def check_leverage(data: DataLike, analysis: Analysis,
                     severity, details), table)
 
 
-def check_samples_per_parameter(n_rows: int, models: dict[tuple[int, float], FinalModel]
+def _sweep_effective_df(analysis: Analysis) -> dict[tuple[int, float], float]:
+    """Effective degrees of freedom of each (order, penalty) cell as the sweep measured
+    them (cells with several rows on other grid axes are left out)."""
+    t = analysis.validation
+    if "effective_df" not in t:
+        return {}
+    keys = list(zip(t["order"].astype(int), t["penalty"].astype(float)))
+    seen: dict = {}
+    for k, v in zip(keys, t["effective_df"].astype(float)):
+        seen[k] = None if k in seen else float(v)
+    return {k: v for k, v in seen.items() if v is not None}
+
+
+def check_samples_per_parameter(n_rows: int, models: dict[tuple[int, float], FinalModel],
+                                effective: dict[tuple[int, float], float] | None = None
                                 ) -> tuple[Finding | None, pd.DataFrame]:
     """Fewer than 10 rows per fitted parameter (rule of thumb, common practice).
 
     Parameters are the effective degrees of freedom of each candidate's final
     fit (the number of coefficients, intercept included, without a penalty;
-    fewer with one). Serious below 5 rows per parameter.
+    fewer with one). Serious below 5 rows per parameter. ``effective`` gives the
+    effective degrees of freedom the sweep measured for a cell; when given, it is
+    used, so the page's samples-per-parameter tile and this warning count alike
+    (`engine.labels.samples_per_parameter`).
     """
     rows = []
     for (q, a), m in models.items():
-        p = max(float(m.effective_df), 1.0)
+        p = max(float((effective or {}).get((int(q), float(a)), m.effective_df)), 1.0)
         rows.append({"model": _model_name(q, a), "order": q, "penalty": a,
                      "coefficients": len(m.terms), "effective_parameters": p,
                      "rows": n_rows, "rows_per_parameter": n_rows / p})
@@ -1517,7 +1534,7 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
 
     tick(0.85, "Counting rows per parameter and conditioning")
     n = int(np.asarray(data.y).size)
-    f5, t_spp = check_samples_per_parameter(n, models)
+    f5, t_spp = check_samples_per_parameter(n, models, _sweep_effective_df(analysis))
     report.tables["samples_per_parameter"] = t_spp
     summary.append(("few_samples_per_parameter", f5, float(t_spp["rows_per_parameter"].min()),
                     f"fewer than {ROWS_PER_PARAMETER:g} rows per parameter"))

@@ -352,3 +352,36 @@ def severity_rank(severity: Any) -> int:
     """0 for the most severe; unknown severities last."""
     s = str(severity or "").lower()
     return SEVERITY_ORDER.index(s) if s in SEVERITY_ORDER else len(SEVERITY_ORDER)
+
+
+def reason_in_unit(reason: str, cell_mse: float, best_mse: float, best_se: float,
+                   unit: str) -> str:
+    """A recommendation's reason with its errors written in ``unit``.
+
+    The rule works on mean squared errors; for ``'rmse'`` the cell's and the
+    best cell's errors are written as their roots, and the best cell's
+    one-standard-error bound as the root of (best + SE). Sentences whose
+    numbers cannot be found are returned with "(MSE)" marked, never mixed
+    silently.
+    """
+    if unit != "rmse":
+        return reason
+    out = reason
+    bound = f"{float(best_mse):.4g} + {float(best_se):.2g}"
+    hit = False
+    if bound in out:
+        out = out.replace(bound, f"{error_text(error_in_unit(best_mse, 'rmse'))}; bound "
+                                 f"{error_text(error_in_unit(best_mse + best_se, 'rmse'))}")
+        hit = True
+    for v in (cell_mse, best_mse):
+        old = f"({float(v):.4g})"
+        if old in out:
+            out = out.replace(old, f"({error_text(error_in_unit(v, 'rmse'))})")
+            hit = True
+        old = f"MSE {float(v):.4g}"
+        if old in out:
+            out = out.replace(old, f"RMSE {error_text(error_in_unit(v, 'rmse'))}")
+            hit = True
+    if not hit:
+        return reason + " (errors in MSE)"
+    return out.replace("validation error (", "validation RMSE (")

@@ -12,7 +12,8 @@ from streamlit.testing.v1 import AppTest
 
 from engine import SchemeSpec, SweepSpec, analyse, default_penalties
 from engine import charts as C
-from engine.labels import CHARTS, TABLES
+from engine.labels import CHARTS, TABLES, samples_per_parameter
+from engine.pack import build_pack, pack_zip_bytes
 from engine.loading import load_table, prepare
 from engine.pack import CHART_FILES
 
@@ -57,9 +58,9 @@ def test_opens_on_a_demo_with_a_recommendation(repo_root, demo_dir):
     labels = [m.label for m in at.metric]
     assert "Samples per parameter" in labels and "Train–validation gap (MSE)" in labels
     spp = [m.value for m in at.metric if m.label == "Samples per parameter"][0]
-    assert spp == f"{rec.samples_per_parameter:.1f}"
-    rmse = [m.value for m in at.metric if m.label.startswith("Validation error")][0]
-    assert rmse.startswith(f"{np.sqrt(rec.validation_mse):.4g}")
+    assert spp == f"{samples_per_parameter(24, rec.effective_df):.1f}"
+    mse = [m.value for m in at.metric if m.label.startswith("Validation error")][0]
+    assert mse.startswith(f"{rec.validation_mse:.4g}")
     assert "Leave-one-out" in _texts(at)
     # the data preview and load report are on the page
     assert any("24 rows × 2 columns" in m.value for m in at.markdown)
@@ -88,7 +89,7 @@ def test_changing_the_scheme_updates_the_recommendation(repo_root, demo_dir):
     # shuffled folds flatter this serially dependent log (demo_data/README.md)
     assert shuffled.validation_mse < blocked.validation_mse
     rmse = [m.value for m in at.metric if m.label.startswith("Validation error")][0]
-    assert rmse.startswith(f"{np.sqrt(shuffled.validation_mse):.4g}")
+    assert rmse.startswith(f"{shuffled.validation_mse:.4g}")  # the default unit is MSE
 
     at.number_input(key="folds").set_value(3).run()
     _no_failures(at)
@@ -189,7 +190,7 @@ def test_view_changes_do_not_rerun_the_sweep(repo_root, monkeypatch):
     assert calls == []
 
 
-def test_trust_checks_and_meeting_pack(repo_root):
+def test_trust_checks_and_meeting_pack(repo_root, tmp_path):
     at = _app(repo_root).run()
     heading = _recommended_heading(at)
     at.button(key="run_trust").click().run()
@@ -198,18 +199,27 @@ def test_trust_checks_and_meeting_pack(repo_root):
     assert "Nested cross-validation." in texts and "ratio" in texts
     assert "Selection stability" in texts
 
-    at.button(key="make_pack").click().run()
-    _no_failures(at)
+    # the pack is one download button, built from what the page computed
     labels = [b.proto.label for b in at.get("download_button")]
-    assert "Download meeting pack (ZIP)" in labels
-    blob = at.session_state["pack_zip"][1]
+    assert "Meeting pack (ZIP)" in labels
+    request = dict(at.session_state["_pack_request"])
+    for k in ("checks", "models", "learning"):
+        if hasattr(request[k], "result"):
+            request[k] = request[k].result()
+    assert all(t is not None for t in request["trust"])  # nested CV and stability ran
+    res = build_pack(tmp_path / "fitladder_pack", **request)
+    blob = pack_zip_bytes(res.out_dir)
     with zipfile.ZipFile(io.BytesIO(blob)) as z:
         names = z.namelist()
         assert "fitladder_pack/summary.html" in names
         assert "fitladder_pack/validation_curve.png" in names
+        assert "fitladder_pack/nested_cv.csv" in names
+        assert "fitladder_pack/selection_stability.csv" in names
         summary = json.loads(z.read("fitladder_pack/summary.json"))
     rec = summary["recommended"]
     assert C.cell_text(rec["order"], rec["penalty"]) == heading
+    assert summary["nested_cv"]["outer_mse"] > 0
+    assert summary["selection_stability"]["repetitions"] > 0
 
 
 def test_server_settings_keep_the_dashboard_local(repo_root):
@@ -298,3 +308,69 @@ def test_decimal_mark_rereads_rows_across_sessions(repo_root):
     # and the first session still sees its own choice
     first.run()
     assert _rows_used(first) == str(n_comma)
+
+
+def _metric(at, prefix: str):
+    return next(m for m in at.metric if m.label.startswith(prefix))
+
+
+@pytest.mark.parametrize("unit", ["mse", "rmse"])
+def test_every_number_shown_twice_agrees(repo_root, unit):
+    """Tiles, the sentence below them and the warnings give one figure one value."""
+    at = _app(repo_root).run()
+    if unit == "rmse":
+        at.radio(key="metric").set_value("rmse").run()
+    _no_failures(at)
+    card = at.session_state["_card"]
+    u = card["unit"]
+    assert u == {"mse": "MSE", "rmse": "RMSE"}[unit]
+    # one unit on the card: every error tile says it
+    for prefix in ("Validation error", "Train–validation gap", "Lowest validation error"):
+        assert _metric(at, prefix).label.endswith(f"({u})")
+    val = _metric(at, "Validation error").value.split()[0]
+    best = _metric(at, "Lowest validation error").value.split()[0]
+    assert val == card["validation"] and best == card["best"]
+    reason = next(m.value for m in at.markdown if "within one standard" in m.value
+                  or "lowest validation error" in m.value)
+    assert f"({val})" in reason.replace("\u2060", "")     # the recommended cell's error
+    assert best in reason.replace("\u2060", "")           # the best cell's error
+    assert "(errors in MSE)" not in reason
+    # samples per parameter: the tile and the check count alike
+    spp = _metric(at, "Samples per parameter").value
+    pending = next(v for k, v in _jobs() if k[0] == "checks")
+    table = pending.result().tables["samples_per_parameter"]
+    heading = _recommended_heading(at)
+    row = table[[C.cell_text(int(q), float(a)) == heading
+                 for q, a in zip(table["order"], table["penalty"])]]
+    assert f"{float(row['rows_per_parameter'].iloc[0]):.1f}" == spp
+
+
+def _jobs():
+    """The page's background jobs (key, future), most recent last."""
+    import sys
+    app = sys.modules.get("__main__")
+    for mod in list(sys.modules.values()):
+        store = getattr(mod, "_background", None)
+        if callable(store) and hasattr(store, "clear"):
+            _, jobs, _ = store()
+            return list(jobs.items())[::-1]
+    return []
+
+
+def test_wide_demo_tile_and_warning_count_samples_per_parameter_alike(repo_root):
+    """The wide demo once showed 0.3 on the tile and 7.1 in the warning."""
+    at = _app(repo_root)
+    at.run()
+    at.selectbox(key="source_choice").set_value("demo:wide").run()
+    _no_failures(at)
+    spp = _metric(at, "Samples per parameter").value
+    heading = _recommended_heading(at)
+    pending = next(v for k, v in _jobs() if k[0] == "checks")
+    report = pending.result()
+    table = report.tables["samples_per_parameter"]
+    row = table[[C.cell_text(int(q), float(a)) == heading
+                 for q, a in zip(table["order"], table["penalty"])]]
+    assert f"{float(row['rows_per_parameter'].iloc[0]):.1f}" == spp
+    finding = next(f for f in report.findings if f.code == "few_samples_per_parameter")
+    worst = table.loc[table["rows_per_parameter"].idxmin()]
+    assert f"{float(worst['rows_per_parameter']):.1f} rows per parameter" in finding.message
