@@ -262,6 +262,8 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     shift_f = sample.mean(axis=0)
     shift_y = np.array([v[::step].mean() for v in ys])
     shift = np.r_[shift_f, shift_y]
+    # wide designs: fewer rows per chunk, so one chunk's terms stay near 64 MB
+    chunk_rows = int(max(256, min(chunk_rows, (8 << 20) // (P + 1))))
     buf = np.empty((min(chunk_rows, sl.size), P + 1), order="F")
     buf[:, P] = 1.0
     G_full = np.empty((q, q))

@@ -155,7 +155,7 @@ def iter_batches(path: str | Path, columns: list[str],
 
         for f in files:
             try:
-                pf = pq.ParquetFile(f)
+                pf = pq.ParquetFile(f, pre_buffer=False)   # pre-buffering keeps what it read
             except Exception as exc:
                 raise InputProblem(f"'{f.name}' could not be read as Parquet ({exc}).",
                                    code="unreadable") from None

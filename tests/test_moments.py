@@ -72,3 +72,28 @@ def test_many_folds_stay_exact():
         assert n[s] == n_d
         np.testing.assert_allclose(M[s], M_d, rtol=1e-10)
         np.testing.assert_allclose(mean[s], m_d, rtol=1e-12)
+
+
+def test_wide_designs_are_summarised_in_small_chunks_exactly():
+    """Thousands of terms: chunks shrink so one chunk's terms stay small; numbers unchanged."""
+    from engine.moments import design_moments
+
+    rng = np.random.default_rng(4)
+    n, P = 700, 2100
+    U = rng.uniform(-1, 1, size=(n, 3))
+    W = rng.normal(size=(3, P))
+    y = rng.normal(size=n)
+    labels = rng.integers(0, 3, n)
+    calls = []
+
+    def expand(Uc, out):
+        calls.append(Uc.shape[0])
+        out[:] = np.tanh(Uc @ W)
+
+    st = design_moments(U, y, labels, 3, expand, P)
+    assert max(calls) <= (8 << 20) // (P + 1) + 1      # about 64 MB of terms per chunk
+    R = np.column_stack([np.tanh(U @ W), y])
+    for s in range(3):
+        n_d, m_d, M_d = _direct(R[labels == s])
+        assert st.n[s] == n_d
+        np.testing.assert_allclose(st.comoment[s], M_d, rtol=1e-9, atol=1e-9 * np.abs(M_d).max())
