@@ -398,11 +398,33 @@ def compare_cells(analysis: Analysis,
     return cells
 
 
+def _role_words(c: dict) -> str:
+    """A candidate's role, with its lag depths / inputs used when the grid has them."""
+    more = rung_text(c.get("lags"), c.get("target_lags"), c.get("inputs_used")).lstrip(", ")
+    return "; ".join(v for v in (more, c["role"]) if v)
+
+
+def _rung_of(x) -> tuple:
+    """(lags, target_lags, inputs_used) of a table row or a `Cell` (None where absent)."""
+    out = []
+    for k in ("lags", "target_lags", "inputs_used"):
+        v = x.get(k) if isinstance(x, pd.Series) else getattr(x, k, None)
+        out.append(None if v is None or pd.isna(v) else int(v))
+    return tuple(out)
+
+
+def _full_key(x) -> tuple:
+    if isinstance(x, pd.Series):
+        return _cell_key(x["order"], x["penalty"]) + _rung_of(x)
+    return _cell_key(x.order, x.penalty) + _rung_of(x)
+
+
 def leading_candidates(analysis: Analysis, top: int = 5) -> pd.DataFrame:
     """The ``top`` cells by mean validation error, plus the recommended cell.
 
     Cells whose validation numbers are identical to a listed cell of the same
-    order (a penalty too small to change anything) are listed once.
+    order and rung (a penalty too small to change anything) are listed once.
+    In a grid over lag depths or input counts a cell is also told apart by them.
     """
     t = analysis.validation.copy()
     t = t[np.isfinite(t["validation_mse"])]
@@ -412,7 +434,8 @@ def leading_candidates(analysis: Analysis, top: int = 5) -> pd.DataFrame:
     rows = []
     seen: set[tuple] = set()
     for _, r in t.iterrows():
-        sig = (int(r["order"]), float(r["validation_mse"]), round(float(r["effective_df"]), 9))
+        sig = (int(r["order"]), float(r["validation_mse"]), round(float(r["effective_df"]), 9),
+               _rung_of(r))
         if sig in seen:
             continue
         seen.add(sig)
@@ -420,16 +443,16 @@ def leading_candidates(analysis: Analysis, top: int = 5) -> pd.DataFrame:
         if len(rows) >= top:
             break
     def rkey(r):
-        return _cell_key(r["order"], r["penalty"]) + (r.get("family", "ridge"),
-                                                      round(float(r.get("l1_ratio", 0.0)), 12))
+        return _full_key(r) + (r.get("family", "ridge"), round(float(r.get("l1_ratio", 0.0)), 12))
 
     def ckey(c):
-        return _cell_key(c.order, c.penalty) + (c.family, round(float(c.l1_ratio), 12))
+        return _full_key(c) + (c.family, round(float(c.l1_ratio), 12))
 
     keys = {rkey(r) for r in rows}
     for c in (best, rec):
         if ckey(c) not in keys:
-            rows.append(analysis.cell_row(c.order, c.penalty, c.family, c.l1_ratio))
+            rows.append(analysis.cell_row(c.order, c.penalty, c.family, c.l1_ratio, **dict(zip(
+                ("lags", "target_lags", "inputs_used"), _rung_of(c)))))
             keys.add(ckey(c))
     out = pd.DataFrame(rows).reset_index(drop=True)
     out["role"] = [("recommended" if rkey(r) == ckey(rec) else "") +
@@ -557,7 +580,8 @@ def summary_dict(analysis: Analysis, model: FinalModel, data_facts: dict, roles:
     keys = _grid_keys(full.validation)
     grid = [{k: (None if pd.isna(r[k]) else r[k]) if k in RUNG_KEYS else r[k] for k in keys}
             for _, r in full.validation.iterrows()]
-    cand = [{**{k: r[k] for k in _GRID_KEYS}, "role": r["role"]}
+    cand = [{**{k: (None if k in RUNG_KEYS and pd.isna(r[k]) else r[k])
+                for k in _grid_keys(candidates)}, "role": r["role"]}
             for _, r in candidates.iterrows()]
     out = {
         "format": SUMMARY_FORMAT,
@@ -849,6 +873,7 @@ def render_markdown(s: dict) -> str:
               "| order | penalty | validation MSE | ± SE | validation R² | eff. parameters | role |",
               "|---:|---:|---:|---:|---:|---:|---|"]
     for c in s["candidates"]:
+        c = {**c, "role": _role_words(c)}
         lines.append(f"| {int(c['order'])} | {_penalty_short(c['penalty'])} | "
                      f"{_num(c['validation_mse'])} | {_num(c['validation_mse_se'], 2)} | "
                      f"{_num(c['validation_r2'])} | {_num(c['effective_df'], 3)} | {c['role']} |")
@@ -1082,7 +1107,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
         rows.append(f"<tr{cls}><td>{int(c['order'])}</td><td>{_penalty_short(c['penalty'])}</td>"
                     f"<td>{_num(c['validation_mse'])}</td><td>{_num(c['validation_mse_se'], 2)}</td>"
                     f"<td>{_num(c['validation_r2'])}</td><td>{_num(c['effective_df'], 3)}</td>"
-                    f"<td class=\"l\">{_h(c['role'])}</td></tr>")
+                    f"<td class=\"l\">{_h(_role_words(c))}</td></tr>")
     figs = []
     for stem, title in CHART_FILES.items():
         if stem in pngs:
@@ -1373,7 +1398,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             facts["rows_used"] = int(full.n_rows)
             facts["rows_left_out_for_lags"] = int(full.rows_left_out)
         roles = _roles(source_data, spec)
-        candidates = leading_candidates(analysis)
+        candidates = leading_candidates(full)
         summary = summary_dict(analysis, model, facts, roles, findings, cells, candidates, lc.note,
                                full=full)
         summary["checks"] = plain(_check_facts(checks))
