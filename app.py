@@ -1157,6 +1157,8 @@ def main() -> None:
     roles, spec = choices.roles, choices.spec
     try:
         data = cached_prepare(data_key, roles, loaded.frame, spec.extra_targets)
+        if tuple(data.inputs) != tuple(spec.inputs):  # text inputs became indicator terms
+            spec = dataclasses.replace(spec, inputs=tuple(data.inputs))
         spec_dict = spec.to_dict()
         bar = st.empty()
         try:

@@ -20,7 +20,9 @@ from math import comb
 import numpy as np
 
 
-def polynomial_terms(n_inputs: int, max_order: int, interactions: bool = False) -> np.ndarray:
+def polynomial_terms(n_inputs: int, max_order: int, interactions: bool = False,
+                     linear_only: tuple[int, ...] = (),
+                     exclusive: tuple[tuple[int, int], ...] = ()) -> np.ndarray:
     """Exponent rows of every term up to ``max_order``, ordered by degree.
 
     Parameters
@@ -29,12 +31,24 @@ def polynomial_terms(n_inputs: int, max_order: int, interactions: bool = False) 
     max_order : highest total degree.
     interactions : if False only per-input powers ``x_j^k``; if True every
         monomial of total degree up to ``max_order``.
+    linear_only : inputs that take exponent at most 1 (0/1 indicator columns,
+        for which ``x^k = x``).
+    exclusive : pairs of inputs never multiplied (indicators of two levels of
+        one text column: their product is always 0).
 
     Returns
     -------
     (P, n_inputs) int array; row t holds the exponent of each input in term t.
     """
     rows: list[tuple[int, ...]] = []
+    cap, apart = set(linear_only), {tuple(sorted(p)) for p in exclusive}
+
+    def allowed(e: list[int]) -> bool:
+        if any(e[j] > 1 for j in cap):
+            return False
+        used = [j for j in range(n_inputs) if e[j]]
+        return not any((a, b) in apart for i, a in enumerate(used) for b in used[i + 1:])
+
     for degree in range(1, max_order + 1):
         if interactions:
             # same order as scikit-learn's PolynomialFeatures within a degree
@@ -42,13 +56,32 @@ def polynomial_terms(n_inputs: int, max_order: int, interactions: bool = False) 
                 e = [0] * n_inputs
                 for j in combo:
                     e[j] += 1
-                rows.append(tuple(e))
+                if allowed(e):
+                    rows.append(tuple(e))
         else:
             for j in range(n_inputs):
                 e = [0] * n_inputs
                 e[j] = degree
-                rows.append(tuple(e))
+                if allowed(e):
+                    rows.append(tuple(e))
     return np.array(rows, dtype=np.int64).reshape(len(rows), n_inputs)
+
+
+def indicator_structure(X: np.ndarray) -> tuple[tuple[int, ...], tuple[tuple[int, int], ...]]:
+    """0/1 columns of ``X`` (linear terms only) and pairs of them that are never 1 together.
+
+    A column holding only the values 0 and 1 gains nothing from powers
+    (``x^k = x``); two such columns that are never 1 on the same row (levels
+    of one text input) have a product that is always 0.
+    """
+    X = np.asarray(X, dtype=float)
+    if X.ndim != 2 or not len(X):
+        return (), ()
+    binary = [j for j in range(X.shape[1])
+              if np.all((X[:, j] == 0) | (X[:, j] == 1)) and X[:, j].any() and not X[:, j].all()]
+    pairs = [(a, b) for i, a in enumerate(binary) for b in binary[i + 1:]
+             if not np.any((X[:, a] == 1) & (X[:, b] == 1))]
+    return tuple(binary), tuple(pairs)
 
 
 def term_name(exponents: np.ndarray, names: tuple[str, ...] | list[str]) -> str:
@@ -88,8 +121,10 @@ class PolynomialBasis:
         centre = (lo + hi) / 2.0
         half = (hi - lo) / 2.0
         half = np.where(half > 0, half, np.where(np.abs(centre) > 0, np.abs(centre), 1.0))
+        linear_only, exclusive = indicator_structure(X)
         return cls(tuple(input_names), int(max_order), bool(interactions), centre, half,
-                   polynomial_terms(X.shape[1], int(max_order), interactions))
+                   polynomial_terms(X.shape[1], int(max_order), interactions, linear_only,
+                                    exclusive))
 
     @property
     def n_terms(self) -> int:
@@ -119,7 +154,7 @@ class PolynomialBasis:
             out = np.empty((n, p), order="F")
         if p == 0:
             return out
-        if not self.interactions:
+        if not self.interactions and self.terms.shape[0] == d * self.max_order:
             # per-input terms: column (k-1)*d + j is T_k(u_j)
             out[:, :d] = U
             kmax = p // d

@@ -175,6 +175,7 @@ class PreparedData:
     notes: list[str] = field(default_factory=list)
     drop_reasons: dict[str, dict[str, int]] = field(default_factory=dict)
     drop_examples: dict[str, str] = field(default_factory=dict)
+    factors: dict = field(default_factory=dict)  # text input -> engine.categorical.Factor
 
     @property
     def n_rows(self) -> int:
@@ -1262,6 +1263,49 @@ def describe_drops(data: PreparedData) -> str:
             f"{'; '.join(parts)}.")
 
 
+def _expand_text_inputs(frame: pd.DataFrame, input_names: tuple, target: Any
+                        ) -> tuple[pd.DataFrame, tuple, dict]:
+    """Text inputs with few levels become indicator columns (`engine.categorical`).
+
+    Indicator names (``column[level]``, as a record lists them) are read back
+    as their text column. Other inputs are left for the numeric checks.
+    """
+    from .categorical import base_column, indicator_columns, make_factor, usable_factor
+
+    try:
+        cols = list(frame.columns)
+    except Exception:  # pragma: no cover
+        return frame, input_names, {}
+    wanted: list = []
+    for name in input_names:
+        base = base_column(name, cols) if name not in cols else None
+        if base is None:
+            wanted.append(name)  # repeated names stay, for the duplicate check
+        elif base not in wanted:
+            wanted.append(base)
+    factors: dict = {}
+    out_names: list = []
+    extra: dict = {}
+    for name in wanted:
+        if (name in cols and cols.count(name) == 1 and name != target
+                and wanted.count(name) == 1 and usable_factor(frame[name])):
+            f = make_factor(str(name), frame[name])
+            factors[str(name)] = f
+            extra.update(indicator_columns(f, frame[name]))
+            out_names.extend(f.names)
+        else:
+            out_names.append(name)
+    if not factors:
+        return frame, tuple(wanted) if len(wanted) != len(input_names) else input_names, {}
+    clash = [n for n in extra if n in cols]
+    if clash:
+        from .errors import InputProblem
+        raise InputProblem(f"Column '{clash[0]}' has the name an indicator term of a text "
+                           "input would get; rename it.", code="duplicate_columns",
+                           column=str(clash[0]))
+    return frame.assign(**extra), tuple(out_names), factors
+
+
 def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
             order_column: str | None = None, group_column: str | None = None,
             split_column: str | None = None) -> PreparedData:
@@ -1271,7 +1315,10 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
     ----------
     frame : the table, usually ``load_table(...).frame``.
     target : name of the numeric column to predict.
-    inputs : names of the numeric input columns (a single name is accepted).
+    inputs : names of the input columns (a single name is accepted): numeric
+        columns, or text columns with few levels, which become indicator terms
+        ``column[level]`` (`engine.categorical`; the reference level is named
+        in ``notes`` and ``factors``).
     order_column : optional column giving the order of rows in time: numbers,
         or dates/times (used as seconds). Rows are sorted by it, stably.
     group_column : optional column of group labels (any type).
@@ -1302,6 +1349,7 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
                            "names.", code="no_inputs") from None
     rows_in = int(len(frame))
     numeric_available = [str(c) for c in frame.columns if _usable_numeric(frame[c])]
+    frame, input_names, factors = _expand_text_inputs(frame, input_names, target)
 
     if not input_names:
         raise InputProblem("Choose at least one input column.", code="no_inputs")
@@ -1446,5 +1494,6 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
     return PreparedData(
         X=X, y=y, inputs=tuple(str(c) for c in input_names), target=str(target), order=order,
         groups=groups, split=split, row_index=row_index, rows_in=rows_in,
-        rows_dropped=rows_dropped, drop_counts=drop_counts, notes=notes,
-        drop_reasons=drop_reasons, drop_examples=drop_examples)
+        rows_dropped=rows_dropped, drop_counts=drop_counts,
+        notes=[f.describe() for f in factors.values()] + notes,
+        drop_reasons=drop_reasons, drop_examples=drop_examples, factors=factors)

@@ -563,6 +563,8 @@ def _data_facts(data: DataLike, loaded: Any, source_name: str) -> dict:
         "drop_reasons": dict(getattr(data, "drop_reasons", {}) or {}),
         "ignored_columns": list(getattr(rep, "ignored_columns", []) or []),
         "notes": list(getattr(rep, "notes", []) or []) + list(getattr(data, "notes", []) or []),
+        "text_inputs": {c: {"reference": f.reference, "levels": list(f.levels)}
+                        for c, f in (getattr(data, "factors", {}) or {}).items()},
     }
 
 
@@ -1046,6 +1048,13 @@ def _warnings_html(s: dict, room_mm: float = WARNINGS_ROOM_MM) -> str:
     return f"<ol class=\"warn\">{''.join(items)}</ol>{more}"
 
 
+def _text_inputs_html(d: dict) -> str:
+    """Text inputs and their reference levels (absorbed in the intercept)."""
+    return "".join(f"<dt>Text input</dt><dd>{_h(c)}: reference level {_h(f['reference'])}; "
+                   f"terms for {_h(', '.join(f['levels']))}</dd>"
+                   for c, f in (d.get("text_inputs") or {}).items())
+
+
 def _trust_html(s: dict) -> str:
     """Nested cross-validation and selection stability, when they ran."""
     out = []
@@ -1155,7 +1164,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
    <dt>SHA-256</dt><dd><code>{_h(sha)}</code></dd>
    <dt>Rows</dt><dd>{d['rows_used']} used of {d['rows_in']}; dropped: {_h(_drop_words(d))}{f"; {d['rows_left_out_for_lags']} more left out at the start for lags" if d.get("rows_left_out_for_lags") else ""}</dd>
    <dt>Target</dt><dd>{tgt}</dd>
-   <dt>Inputs</dt><dd>{inputs}</dd>{extra_roles}
+   <dt>Inputs</dt><dd>{inputs}</dd>{extra_roles}{_text_inputs_html(d)}
    <dt>Validation</dt><dd>{_h(s['validation']['description'])}</dd>
    <dt>Grid</dt><dd>{_h(_grid_words(s))}</dd>{"".join(f"<dt>Target</dt><dd>{_h(t['target'])}: {_h(t['recommended'])}, validation MSE {_h(_num(t['validation_mse']))} (folder {_h(t.get('section', ''))})</dd>" for t in s.get("targets") or [])}{"".join(f"<dt>Axes</dt><dd>{_h(w)}</dd>" for w in _axes_words(s))}
   </dl>
