@@ -50,6 +50,7 @@ def _scheme_schema() -> dict:
         "gap": {"type": "integer", "minimum": 0, "maximum": 10**9},
         "holdout_fraction": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
         "order_column": _OPT_NAME, "group_column": _OPT_NAME, "split_column": _OPT_NAME,
+        "rows_in_time_order": {"type": ["boolean", "null"]},
     }
     for f in dataclasses.fields(SchemeSpec):  # fields added later are known keys too
         props.setdefault(f.name, {})

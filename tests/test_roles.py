@@ -122,3 +122,16 @@ def test_command_line_leaves_a_log_copy_out_and_records_the_stated_row_order(tmp
     assert "target_leakage" not in [w["code"] for w in s["warnings"]]
     rec = json.loads((tmp_path / "pack" / "record.json").read_text())
     assert rec["spec"]["scheme"]["rows_in_time_order"] is False
+    # a re-run from the record keeps the answer and the inputs
+    assert main(["rerun", str(tmp_path / "pack" / "record.json"), "--data", str(src),
+                 "--out", str(tmp_path / "again")]) == 0
+    s2 = json.loads((tmp_path / "again" / "summary.json").read_text())
+    assert s2["checks"]["row_order"]["status"] == "not_time"
+    assert s2["roles"]["inputs"] == s["roles"]["inputs"]
+    # the record's answer is typed: a string is refused with a message
+    from engine.errors import InputProblem
+    from engine.record import check_record
+    bad = json.loads(json.dumps(rec))
+    bad["spec"]["scheme"]["rows_in_time_order"] = "no"
+    with pytest.raises(InputProblem):
+        check_record(bad)
