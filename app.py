@@ -42,6 +42,7 @@ from engine.labels import (CHARTS, ROW_ORDER_ANSWERS, ROW_ORDER_HELP, SCHEME_NAM
                            option_label, penalty_text)
 from engine.roles import default_roles
 from engine.loading import DEFAULT_MAX_BYTES, describe_drops, load_table, prepare
+from engine.budget import check_request
 from engine.markup import escape_text
 from engine.spec import (DEFAULT_FOLDS, DEFAULT_GAP, DEFAULT_HOLDOUT_FRACTION, DEFAULT_MAX_ORDER,
                          DEFAULT_PENALTY_COUNT, DEFAULT_PENALTY_HIGH, DEFAULT_PENALTY_LOW,
@@ -1160,6 +1161,10 @@ def main() -> None:
         if tuple(data.inputs) != tuple(spec.inputs):  # text inputs became indicator terms
             spec = dataclasses.replace(spec, inputs=tuple(data.inputs))
         spec_dict = spec.to_dict()
+        # the size of the request, refused over the limits before anything is allocated
+        budget = check_request(spec, data.n_rows, np.shape(data.X)[1])
+        if budget.seconds > 2:
+            st.caption(md(f"Request: {budget.text()}."))
         bar = st.empty()
         try:
             analysis = cached_analysis(

@@ -198,6 +198,8 @@ def _check_data(data: DataLike, spec: SweepSpec) -> None:
 
 def make_basis(data: DataLike, spec: SweepSpec) -> PolynomialBasis:
     """The design at the highest order of ``spec``."""
+    from .budget import check_request
+    check_request(spec, len(data.y), np.shape(data.X)[1])  # before anything is allocated
     basis = PolynomialBasis.fit(data.X, spec.inputs, max(spec.order_list()), spec.interactions)
     check_design_size(basis)
     return basis

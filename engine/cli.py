@@ -313,6 +313,12 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--out", required=True, metavar="DIR",
                      help="folder to write the pack into (created if missing; a folder holding "
                           "other files is refused unless --overwrite)")
+    run.add_argument("--time-limit", type=float, default=None, metavar="SECONDS",
+                     help="refuse requests estimated to take longer (default 600, or "
+                          "FITLADDER_MAX_SECONDS); the estimate is printed before the sweep")
+    run.add_argument("--memory-limit", type=float, default=None, metavar="MB",
+                     help="refuse requests estimated to need more memory (default 4096, or "
+                          "FITLADDER_MAX_MEMORY_MB)")
     run.add_argument("--overwrite", action="store_true",
                      help="write into a --out folder that holds files this program did not "
                           "write: the pack files are replaced, the other files kept")
@@ -521,6 +527,30 @@ def _out_folder(args: argparse.Namespace):
     return pack_folder(args.out, overwrite=args.overwrite)
 
 
+def _check_budget(args: argparse.Namespace, inputs: tuple, penalties, more: tuple,
+                  rows: int) -> None:
+    """Refuse a request over the limits before any column is prepared; say its size."""
+    from .budget import Limits, check_request
+
+    lags = None
+    if args.lags is not None or args.target_lags is not None:
+        lags = LagSpec(inputs=tuple(args.lag_inputs or ()), depths=args.lags or (0,),
+                       target_depths=args.target_lags or (0,))
+    try:
+        spec = SweepSpec(target=args.target, inputs=tuple(str(c) for c in inputs),
+                         max_order=args.max_order, orders=args.orders,
+                         interactions=args.interactions, penalties=penalties,
+                         scheme=SchemeSpec(kind=args.scheme, folds=args.folds,
+                                           repeats=args.repeats),
+                         lags=lags, extra_targets=more, families=args.families,
+                         **({"l1_ratios": args.l1_ratios} if args.l1_ratios else {}))
+    except (TypeError, ValueError):  # the full request is checked again later
+        return
+    limits = Limits.from_environment(args.time_limit, args.memory_limit)
+    budget = check_request(spec, rows, limits=limits)
+    print(f"{PROG}: request: {budget.text()}.", file=sys.stderr, flush=True)
+
+
 def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
     from .loading import prepare
     from .pack import build_pack
@@ -540,6 +570,7 @@ def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
     if not inputs:
         raise InputProblem(f"No input columns are left besides the target '{args.target}'. "
                            "Name them with --inputs.", code="no_inputs")
+    _check_budget(args, tuple(inputs), penalties, more, loaded.report.rows_read)
     data = _prepare(loaded.frame, (args.target,) + more, inputs,
                     order_column=args.order_column, group_column=args.group_column,
                     split_column=args.split_column)

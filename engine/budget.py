@@ -1,0 +1,208 @@
+"""The size of a request, known before anything is allocated.
+
+`estimate` counts, from the request and the number of rows alone, the terms
+of the highest-order design, the size of the design chunk and of the per-piece
+statistics, the number of fits (orders x settings x splits) and a rough time
+and peak memory on this machine. `check_request` refuses a request whose
+figures pass the stated limits, with the figures and what to do; the limits are
+`Limits` (defaults below; ``FITLADDER_MAX_SECONDS`` and
+``FITLADDER_MAX_MEMORY_MB`` in the environment change them, as do the
+command line's ``--time-limit`` and ``--memory-limit``).
+
+The time model is deliberately simple (common practice for a guard, not a
+prediction): one pass over the rows costs about ``n P^2`` multiply-adds, one
+eigen-decomposition per (order, split) about ``10 p^3``, one solve per fit
+about ``p^2``, at an assumed 2e9 multiply-adds per second, plus fixed costs
+per (order, split) and per fit.
+"""
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass
+
+from .errors import InputProblem
+from .spec import SweepSpec
+
+__all__ = ["Budget", "Limits", "check_request", "estimate", "n_terms"]
+
+#: Largest design swept (terms of the highest order, intercept excluded).
+MAX_TERMS = 1500
+FLOPS_PER_SECOND = 2e9
+#: Fixed costs that do not shrink with the design: combining and decomposing per
+#: (order, split), and scoring per fit (measured roughly on a 2-core machine).
+SECONDS_PER_ORDER_SPLIT = 2e-4
+SECONDS_PER_FIT = 2e-6
+CHUNK_ROWS = 32768
+
+
+def _env_number(name: str, default: float) -> float:
+    try:
+        value = float(os.environ.get(name, ""))
+    except ValueError:
+        return default
+    return value if math.isfinite(value) and value > 0 else default
+
+
+@dataclass(frozen=True)
+class Limits:
+    """Limits a request must stay within.
+
+    Attributes
+    ----------
+    max_terms : terms of the highest-order design.
+    max_seconds : estimated computing time.
+    max_memory_mb : estimated peak memory of the sweep.
+    """
+
+    max_terms: int = MAX_TERMS
+    max_seconds: float = 600.0
+    max_memory_mb: float = 4096.0
+
+    @classmethod
+    def from_environment(cls, max_seconds: float | None = None,
+                         max_memory_mb: float | None = None) -> "Limits":
+        """Defaults, changed by the environment, then by explicit values."""
+        return cls(max_seconds=max_seconds or _env_number("FITLADDER_MAX_SECONDS", 600.0),
+                   max_memory_mb=max_memory_mb or _env_number("FITLADDER_MAX_MEMORY_MB", 4096.0))
+
+
+@dataclass(frozen=True)
+class Budget:
+    """The figures of one request (see module notes for the time model)."""
+
+    rows: int
+    inputs: int
+    max_order: int
+    interactions: bool
+    terms: int
+    orders: int
+    settings: int
+    splits: int
+    fits: int
+    design_mb: float
+    statistics_mb: float
+    memory_mb: float
+    seconds: float
+
+    def text(self) -> str:
+        """One plain sentence with the figures."""
+        return (f"{self.terms:,} terms at order {self.max_order} from {self.inputs:,} input"
+                f"{'s' if self.inputs != 1 else ''}"
+                f"{' with interactions' if self.interactions else ''}; {self.rows:,} rows; "
+                f"{self.fits:,} fits ({self.orders} orders x {self.settings} penalty settings x "
+                f"{self.splits:,} splits); about {_mb(self.memory_mb)} of memory and "
+                f"{_seconds(self.seconds)} on this machine (rough estimate)")
+
+
+def _mb(mb: float) -> str:
+    return f"{mb / 1024:,.1f} GB" if mb >= 1024 else f"{mb:.0f} MB"
+
+
+def _seconds(s: float) -> str:
+    if s < 1:
+        return "under a second"
+    if s < 120:
+        return f"{s:.0f} s"
+    if s < 7200:
+        return f"{s / 60:.0f} min"
+    return f"{s / 3600:,.1f} h"
+
+
+def n_terms(n_inputs: int, order: int, interactions: bool) -> int:
+    """Terms of a polynomial design (intercept excluded), counted without building it."""
+    d, q = int(n_inputs), int(order)
+    if q <= 0 or d <= 0:
+        return 0
+    return math.comb(d + q, q) - 1 if interactions else d * q
+
+
+def _splits(spec: SweepSpec, rows: int) -> tuple[int, int]:
+    """(splits, pieces) of the scheme; the pieces hold the per-piece statistics."""
+    sc = spec.scheme
+    kind = sc.kind
+    k = max(int(sc.folds), 1)
+    if kind == "repeated":
+        return k * int(sc.repeats), k * int(sc.repeats)
+    if kind == "loo":
+        return rows, 1  # one fit per model through the hat matrix
+    if kind == "holdout":
+        return 1, 2
+    if kind == "column":
+        return k, k  # not known before the labels are read; folds as a stand-in
+    return k, k
+
+
+def estimate(spec: SweepSpec, rows: int, n_inputs: int | None = None) -> Budget:
+    """The figures of ``spec`` on ``rows`` rows, from counts alone (nothing allocated).
+
+    Parameters
+    ----------
+    spec : the request.
+    rows : rows that will be swept.
+    n_inputs : columns of the design (default ``len(spec.inputs)``; lags add more).
+
+    Returns
+    -------
+    Budget
+    """
+    d = int(n_inputs if n_inputs is not None else len(spec.inputs))
+    lags = getattr(spec, "lags", None)
+    if lags is not None:
+        lagged = len(lags.inputs) or d
+        d += lagged * max(lags.depths or (0,)) + len(spec.targets) * max(lags.target_depths or (0,))
+    q = max(spec.order_list())
+    P = n_terms(d, q, spec.interactions)
+    orders = len(spec.order_list())
+    pairs = spec.family_pairs() if hasattr(spec, "family_pairs") else [("ridge", 0.0)]
+    settings = max(1, len(pairs)) * len(spec.penalties)
+    splits, pieces = _splits(spec, rows)
+    targets = len(spec.targets)
+    fits = orders * settings * splits * targets
+    width = P + 1 + targets
+    design_mb = min(rows, CHUNK_ROWS) * width * 8 / 2**20
+    statistics_mb = (pieces + 2) * width * width * 8 / 2**20
+    # per (order, split): a copy of the leading block and its eigenvectors
+    solve_mb = 3 * width * width * 8 / 2**20
+    memory_mb = 150.0 + 2 * design_mb + statistics_mb + solve_mb + rows * (d + 2) * 8 / 2**20
+    flops = (rows * width * width
+             + sum(10.0 * n_terms(d, o, spec.interactions) ** 3 for o in spec.order_list())
+             * splits * targets
+             + fits * float(P) ** 2)
+    return Budget(rows=int(rows), inputs=d, max_order=q, interactions=bool(spec.interactions),
+                  terms=P, orders=orders, settings=settings, splits=splits, fits=fits,
+                  design_mb=design_mb, statistics_mb=statistics_mb, memory_mb=memory_mb,
+                  seconds=flops / FLOPS_PER_SECOND
+                  + SECONDS_PER_ORDER_SPLIT * orders * splits * targets + SECONDS_PER_FIT * fits)
+
+
+def check_request(spec: SweepSpec, rows: int, n_inputs: int | None = None,
+                  limits: Limits | None = None) -> Budget:
+    """`estimate`, refused with the figures and what to do when over ``limits``.
+
+    Raises
+    ------
+    InputProblem
+        ``code='too_many_terms'``, ``'too_slow'`` or ``'too_much_memory'``.
+    """
+    limits = limits or Limits.from_environment()
+    b = estimate(spec, rows, n_inputs)
+    fewer = ("Lower the highest order, choose fewer inputs"
+             + (", switch off interaction terms" if b.interactions else ""))
+    if b.terms > limits.max_terms:
+        raise InputProblem(
+            f"The request is too large to sweep: {b.text()}. The design may hold at most "
+            f"{limits.max_terms:,} terms. {fewer}.", code="too_many_terms")
+    if b.memory_mb > limits.max_memory_mb:
+        raise InputProblem(
+            f"The request would need more memory than allowed: {b.text()}; the limit is "
+            f"{_mb(limits.max_memory_mb)}. {fewer}, or use fewer rows; or raise the limit "
+            "(--memory-limit MB on the command line, FITLADDER_MAX_MEMORY_MB).",
+            code="too_much_memory")
+    if b.seconds > limits.max_seconds:
+        raise InputProblem(
+            f"The request would take longer than allowed: {b.text()}; the limit is "
+            f"{_seconds(limits.max_seconds)}. Use fewer splits (folds or repeats), fewer "
+            f"penalties or orders; or raise the limit (--time-limit SECONDS on the command "
+            "line, FITLADDER_MAX_SECONDS).", code="too_slow")
+    return b
