@@ -12,6 +12,7 @@ This is the only module of the engine that reads files.
 from __future__ import annotations
 
 import csv
+import decimal
 import hashlib
 import io
 import os
@@ -51,7 +52,7 @@ ERROR_CODES = (
     "duplicate_columns", "no_rows", "no_numeric", "infinite", "bad_decimal",
     "no_inputs", "duplicate_input", "target_is_input", "unknown_column",
     "non_numeric_target", "non_numeric_input", "bad_order_column",
-    "constant_target", "too_few_rows",
+    "constant_target", "too_few_rows", "formulas_without_values", "precision_lost",
 )
 
 Source = Union[str, os.PathLike, bytes, bytearray, memoryview, BinaryIO]
@@ -75,6 +76,8 @@ NUMERIC_SHARE = 0.9
 
 #: Key of ``DataFrame.attrs`` under which loading lists cells that were not numbers.
 UNPARSABLE_ATTR = "fitladder_unparsable"
+#: Key of ``DataFrame.attrs`` listing workbook columns of formulas without saved results.
+FORMULA_ATTR = "fitladder_formulas"
 
 _COMMA_NUMBER = re.compile(r"^[+-]?\d+,\d+(?:[eE][+-]?\d+)?$")
 _DOT_NUMBER = re.compile(r"^[+-]?\d*\.\d+(?:[eE][+-]?\d+)?$")
@@ -302,6 +305,63 @@ def _read_source(source: Source, name: str | None, max_bytes: int) -> tuple[byte
     return raw, display
 
 
+_OTHER_KINDS = (
+    (b"%PDF-", "a PDF document",
+     "Export the table from the program that made the PDF as CSV or .xlsx, and load that."),
+    (b"\x89PNG\r\n\x1a\n", "a PNG image", "Load the data file the picture was made from."),
+    (b"\xff\xd8\xff", "a JPEG image", "Load the data file the picture was made from."),
+    (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1", "an old-style Office file (.xls or .doc)",
+     "Open it in your spreadsheet program and save it as .xlsx or CSV."),
+    (b"SQLite format 3\x00", "an SQLite database",
+     "Export the table you need as CSV (for example with the sqlite3 tool) and load that."),
+)
+
+_HTML_START = (b"<!doctype html", b"<html", b"<table", b"<head", b"<body", b"<?xml")
+
+
+def _refuse_other_kinds(raw: bytes, display: str) -> None:
+    """Recognise compressed files, archives, web pages and JSON by their bytes."""
+    if raw.startswith(b"\x1f\x8b"):
+        raise InputProblem(
+            f"'{display}' is gzip-compressed data, not plain text. Decompress it first (for "
+            "example 'gunzip' or your archive tool) and load the file inside.",
+            code="unsupported_format")
+    if raw.startswith((b"BZh", b"\xfd7zXZ\x00", b"\x28\xb5\x2f\xfd", b"7z\xbc\xaf")):
+        raise InputProblem(
+            f"'{display}' is compressed data (bzip2, xz, zstd or 7-Zip), not plain text. "
+            "Decompress it first and load the file inside.", code="unsupported_format")
+    for magic, what, fix in _OTHER_KINDS:
+        if raw.startswith(magic):
+            raise InputProblem(f"'{display}' is {what}, not a text table. {fix}",
+                               code="unsupported_format")
+    if raw.startswith(_ZIP_MAGIC):
+        try:
+            names = zipfile.ZipFile(io.BytesIO(raw)).namelist()
+        except (zipfile.BadZipFile, OSError, ValueError):
+            names = None
+        if names is not None and "xl/workbook.xml" not in names:
+            shown = ", ".join(repr(n) for n in names[:3]) + (" ..." if len(names) > 3 else "")
+            raise InputProblem(
+                f"'{display}' is a zip archive ({_plural(len(names), 'file')}: {shown}), not "
+                "a table. Unzip it and load the table inside.", code="unsupported_format")
+    head = raw[:4096].lstrip(b"\xef\xbb\xbf \t\r\n").lower()
+    if head.startswith(_HTML_START) and (b"<html" in head or b"<table" in head
+                                         or b"<body" in head or b"<head" in head):
+        raise InputProblem(
+            f"'{display}' is a web page (HTML), not a table file. Save or export the table as "
+            "CSV (or .xlsx) from where it came, and load that.", code="unsupported_format")
+    if head[:1] in (b"{", b"[") and len(raw) <= 50 * 1024 * 1024:
+        try:
+            import json
+            json.loads(raw.decode("utf-8-sig"))
+        except (ValueError, UnicodeDecodeError, RecursionError):
+            return
+        raise InputProblem(
+            f"'{display}' holds JSON, not a table of rows and columns. Convert it to CSV "
+            "(for example pandas.read_json(...).to_csv(...)) and load that.",
+            code="unsupported_format")
+
+
 def _choose_format(raw: bytes, display: str) -> tuple[str, list[str]]:
     """Pick 'csv', 'xlsx' or 'parquet' from the name, or the content when no extension."""
     notes: list[str] = []
@@ -313,6 +373,7 @@ def _choose_format(raw: bytes, display: str) -> tuple[str, list[str]]:
     if ext in _PARQUET_EXTENSIONS:
         return "parquet", notes
     if ext in _TEXT_EXTENSIONS or ext == "" or ext[1:].isdigit():
+        _refuse_other_kinds(raw, display)
         if magic_format is not None:
             if ext:
                 label = "an Excel workbook" if magic_format == "xlsx" else "Parquet data"
@@ -355,6 +416,38 @@ def _not_text(display: str, detail: str) -> InputProblem:
         code="undecodable")
 
 
+def _detect_encoding(raw: bytes) -> tuple[str, str] | None:
+    """(text, encoding name) for text in a non-Western encoding (charset-normalizer).
+
+    Western text is left to the Windows-1252 reading: it is tried first and kept
+    unless most of its non-ASCII characters come from bytes 0x80-0x9F, the lead
+    bytes of Shift-JIS, GBK and similar double-byte encodings (rare in Western text).
+    """
+    try:
+        western = raw.decode("cp1252")
+    except UnicodeDecodeError:
+        western = None
+    if western is not None:
+        high = [b for b in raw[:200_000] if b >= 0x80]
+        if not high or sum(1 for b in high if b < 0xA0) < 0.3 * len(high):
+            return None
+    try:
+        from charset_normalizer import from_bytes
+    except ImportError:  # pragma: no cover - listed in requirements.txt
+        return None
+    best = from_bytes(raw[:1_000_000]).best()
+    if best is None or best.encoding in ("ascii", "utf_8", "cp1252", "latin_1"):
+        return None
+    try:
+        text = raw.decode(best.encoding)
+    except (UnicodeDecodeError, LookupError):
+        return None
+    names = {"cp932": "Shift-JIS (cp932)", "shift_jis": "Shift-JIS", "euc_jp": "EUC-JP",
+             "gb18030": "GB18030", "gbk": "GBK", "big5": "Big5", "euc_kr": "EUC-KR",
+             "cp949": "EUC-KR (cp949)", "cp1251": "Windows-1251", "koi8_r": "KOI8-R"}
+    return text, names.get(best.encoding, best.encoding)
+
+
 def _decode(raw: bytes, display: str) -> tuple[str, list[str]]:
     """Decode text bytes; raise InputProblem('undecodable') for binary content."""
     notes: list[str] = []
@@ -372,7 +465,14 @@ def _decode(raw: bytes, display: str) -> tuple[str, list[str]]:
             text = raw.decode("utf-8-sig")
         except UnicodeDecodeError:
             text = ""
-            for encoding, label in (("cp1252", "Windows-1252"), ("latin-1", "Latin-1")):
+            detected = _detect_encoding(raw)
+            if detected is not None:
+                text, label = detected
+                notes.append(f"'{display}' is not UTF-8; it was read as {label} text (the "
+                             "encoding was detected; if names look wrong, save the file as "
+                             "UTF-8).")
+            for encoding, label in (() if text else (("cp1252", "Windows-1252"),
+                                                     ("latin-1", "Latin-1"))):
                 try:
                     candidate = raw.decode(encoding)
                 except UnicodeDecodeError:
@@ -495,7 +595,8 @@ def _clean_names(raw_names: list[Any], display: str) -> tuple[list[str], list[st
 # ---------------------------------------------------------------------------
 
 def _is_real_number(v: Any) -> bool:
-    return isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, (bool, np.bool_))
+    return (isinstance(v, (int, float, np.integer, np.floating, decimal.Decimal))
+            and not isinstance(v, (bool, np.bool_)))
 
 
 def _parse_text_numbers(texts: pd.Series, decimal: str) -> tuple[np.ndarray, np.ndarray]:
@@ -514,6 +615,20 @@ def _parse_text_numbers(texts: pd.Series, decimal: str) -> tuple[np.ndarray, np.
     return values_np, present_np
 
 
+class _PrecisionLost(ValueError):
+    pass
+
+
+def _check_integer_precision(series: pd.Series, values: np.ndarray) -> None:
+    """Refuse whole numbers that differ but become equal as 64-bit floats (beyond 2^53)."""
+    finite = values[np.isfinite(values)]
+    if not finite.size or np.max(np.abs(finite)) < 2.0 ** 53:
+        return
+    ints = series.dropna().to_numpy()
+    if len(np.unique(ints)) != len(np.unique(values[~np.isnan(values)])):
+        raise _PrecisionLost(str(series.name))
+
+
 def _classify_values(series: pd.Series, decimal: str
                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]:
     """Return (values, present, parsed, kind); kind is 'number', 'text', 'datetime' or 'bool'."""
@@ -524,6 +639,8 @@ def _classify_values(series: pd.Series, decimal: str
         return np.full(n, np.nan), present, np.zeros(n, dtype=bool), "bool"
     if (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_complex_dtype(dtype)):
         values = np.array(series.to_numpy(dtype="float64", na_value=np.nan), copy=True)
+        if pd.api.types.is_integer_dtype(dtype):
+            _check_integer_precision(series, values)
         present = ~np.isnan(values)
         return values, present, present.copy(), "number"
     if pd.api.types.is_datetime64_any_dtype(dtype) or pd.api.types.is_timedelta64_dtype(dtype):
@@ -584,10 +701,26 @@ def _mostly_numbers(n_parsed: int, n_present: int) -> bool:
     return n_parsed * 10 >= n_present * round(NUMERIC_SHARE * 10)
 
 
+_BOOL_WORDS = frozenset({"true", "false", "yes", "no", "y", "n", "t", "f"})
+
+
+def _looks_boolean(series: pd.Series, present: np.ndarray, sample: int = 200) -> bool:
+    """Whether the first filled cells are all true/false words (or Python booleans)."""
+    values = series.to_numpy(dtype=object)[present][:sample]
+    if not len(values):
+        return False
+    return all(isinstance(v, (bool, np.bool_))
+               or (isinstance(v, str) and v.strip().lower() in _BOOL_WORDS) for v in values)
+
+
 def _looks_like_dates(series: pd.Series, present: np.ndarray, sample: int = 50) -> bool:
-    """Whether the first filled cells of a text column all read as dates or times."""
+    """Whether the first filled cells of a text column all read as dates or times.
+
+    Cells longer than 64 characters are never dates: they are not parsed at all
+    (date parsing of a long text cell costs seconds).
+    """
     values = pd.Series(series.to_numpy(dtype=object)[present][:sample])
-    if values.empty or not all(isinstance(v, str) for v in values):
+    if values.empty or not all(isinstance(v, str) and len(v) <= 64 for v in values):
         return False
     try:
         with warnings.catch_warnings():
@@ -610,7 +743,15 @@ def _build_columns(raw: pd.DataFrame, decimal: str, display: str
     unparsable_first: dict[str, str] = {}
     for col in raw.columns:
         series = raw[col]
-        values, present, parsed, kind = _classify_values(series, decimal)
+        try:
+            values, present, parsed, kind = _classify_values(series, decimal)
+        except _PrecisionLost:
+            raise InputProblem(
+                f"Column '{col}' in '{display}' holds whole numbers beyond 2^53 "
+                "(9,007,199,254,740,992) that differ from each other but become equal as "
+                "floating-point numbers, so their differences would be lost. Subtract a "
+                "common offset (or divide by a unit) in the file, or leave the column out, "
+                "and load it again.", code="precision_lost", column=str(col)) from None
         n_present = int(present.sum())
         n_parsed = int(parsed.sum())
         if n_present == 0:
@@ -710,7 +851,8 @@ def _read_text(raw: bytes, display: str, decimal: str
                ) -> tuple[pd.DataFrame, str | None, list[str]]:
     text, notes = _decode(raw, display)
     if not text.strip():
-        raise InputProblem(f"'{display}' holds only blank space; there is no table in it.",
+        raise InputProblem(f"'{display}' holds only blank space; there is no table in it. Choose the "
+                           "file that holds the data.",
                            code="empty")
     text = text.replace("\r\n", "\n").replace("\r", "\n")
     delimiter = _detect_delimiter(text, decimal)
@@ -723,7 +865,8 @@ def _read_text(raw: bytes, display: str, decimal: str
 
     header, header_lines = _split_header(text, sep, display)
     if not header:
-        raise InputProblem(f"'{display}' holds no values, only delimiters and blank space.",
+        raise InputProblem(f"'{display}' holds no values, only delimiters and blank space. Choose the "
+                           "file that holds the data.",
                            code="empty")
     names, name_notes = _clean_names(header, display)
     notes.extend(name_notes)
@@ -882,6 +1025,43 @@ def _read_text_columnar(raw: bytes, display: str, decimal: str
     return frame, delimiter, notes
 
 
+#: Largest number of cells read from one worksheet.
+XLSX_MAX_CELLS = 20_000_000
+
+
+def _too_many_cells(display: str, sheet: str, cells: int) -> InputProblem:
+    return InputProblem(
+        f"Sheet '{sheet}' of '{display}' spans more than {XLSX_MAX_CELLS:,} cells (at least "
+        f"{cells:,} with its empty ones); reading it would exhaust memory. Save only the rows "
+        "and columns you need, as CSV or a smaller sheet, and load that.", code="too_large")
+
+
+def _formula_columns(raw: bytes, sheet_name: str, names: list[str], empty: list[str]
+                     ) -> list[str]:
+    """Of the ``empty`` columns, those whose cells are formulas with no saved result."""
+    import openpyxl
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            book = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=False)
+        try:
+            ws = book[sheet_name]
+            ws.reset_dimensions()
+            where = {names.index(c): c for c in empty}
+            found: set[str] = set()
+            for i, r in enumerate(ws.iter_rows(values_only=True)):
+                if i > 10_000:
+                    break
+                for j, c in where.items():
+                    if j < len(r) and isinstance(r[j], str) and r[j].startswith("="):
+                        found.add(c)
+        finally:
+            book.close()
+    except Exception:  # noqa: BLE001 - only a better message is at stake
+        return []
+    return [c for c in empty if c in found]
+
+
 def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.DataFrame, list[str]]:
     try:
         import openpyxl
@@ -906,7 +1086,8 @@ def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.Da
     try:
         sheets = book.sheetnames
         if not sheets:
-            raise InputProblem(f"'{display}' has no worksheets.", code="empty")
+            raise InputProblem(f"'{display}' has no worksheets. Save a workbook with the table "
+                               "in a sheet, or export it as CSV.", code="empty")
         if sheet is None:
             sheet_name = sheets[0]
         elif isinstance(sheet, int) and not isinstance(sheet, bool):
@@ -926,10 +1107,22 @@ def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.Da
         if not hasattr(ws, "iter_rows"):
             raise InputProblem(f"Sheet '{sheet_name}' of '{display}' is a chart, not a table; "
                                "choose a sheet with data.", code="unknown_sheet")
+        declared_rows, declared_cols = ws.max_row or 0, ws.max_column or 0
+        if declared_rows * declared_cols > XLSX_MAX_CELLS and hasattr(ws, "reset_dimensions"):
+            # the sheet's own size claim is not trusted: read only the cells it holds
+            ws.reset_dimensions()
+            notes.append(f"Sheet '{sheet_name}' declares {declared_rows:,} rows x "
+                         f"{declared_cols:,} columns; only the cells it holds were read.")
         try:
+            rows = []
+            cells = 0
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                rows = [list(r) for r in ws.iter_rows(values_only=True)]
+                for r in ws.iter_rows(values_only=True):
+                    cells += len(r)
+                    if cells > XLSX_MAX_CELLS:
+                        raise _too_many_cells(display, sheet_name, cells)
+                    rows.append(list(r))
         except InputProblem:
             raise
         except Exception as exc:
@@ -964,6 +1157,8 @@ def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.Da
                      f"'{sheet_name}'.")
     rows = rows[:last]
     width = max(len(r) for r in rows)
+    if width * len(rows) > XLSX_MAX_CELLS:
+        raise _too_many_cells(display, sheet_name, width * len(rows))
     rows = [r + [None] * (width - len(r)) for r in rows]
     # drop columns at the right that have neither a name nor any value
     while width > 1 and all(blank(r[width - 1]) for r in rows):
@@ -972,6 +1167,9 @@ def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.Da
     names, name_notes = _clean_names(rows[0], display)
     notes.extend(name_notes)
     body = pd.DataFrame(rows[1:], columns=names, dtype=object)
+    empty = [c for c in names if body[c].isna().all()] if len(body) else []
+    if empty:
+        body.attrs[FORMULA_ATTR] = _formula_columns(raw, sheet_name, names, empty)
     if sheet is not None or len(sheets) > 1:
         notes.append(f"Read sheet '{sheet_name}' ({len(sheets)} in the workbook).")
     return body, notes
@@ -998,7 +1196,8 @@ def _read_parquet(raw: bytes, display: str) -> tuple[pd.DataFrame, list[str]]:
             code="unreadable") from None
     names, notes = _clean_names(list(table.column_names), display)
     if not names:
-        raise InputProblem(f"'{display}' holds no columns.", code="empty")
+        raise InputProblem(f"'{display}' holds no columns. Write the table again with its "
+                           "columns, or export it as CSV.", code="empty")
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -1075,6 +1274,10 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
             cells, more = _read_parquet(raw, display)
         notes.extend(more)
         frame, numeric, ignored, reasons, col_notes = _build_columns(cells, dec, display)
+        if cells.attrs.get(FORMULA_ATTR):
+            frame.attrs[FORMULA_ATTR] = list(cells.attrs[FORMULA_ATTR])
+            for c in cells.attrs[FORMULA_ATTR]:
+                reasons[c] = "formulas without saved results"
     except InputProblem:
         raise
     except Exception as exc:  # a reader failed in a way not foreseen above
@@ -1089,7 +1292,8 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
             "another file.", code="no_rows")
     if frame.shape[1] and all(reasons.get(c) == "no values" for c in frame.columns):
         raise InputProblem(
-            f"'{display}' has a header row but every data cell is empty.", code="no_rows")
+            f"'{display}' has a header row but every data cell is empty. Add the data, or "
+            "choose another file.", code="no_rows")
     if not numeric:
         why = "; ".join(f"'{c}': {reasons[c]}" for c in ignored[:8])
         if file_format != "csv":
@@ -1381,22 +1585,42 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
 
     def check_numeric(col: str, role: str, code: str) -> None:
         series = frame[col]
+        if col in (frame.attrs.get(FORMULA_ATTR) or ()) and bool(series.isna().all()):
+            raise InputProblem(
+                f"Column '{col}' holds formulas whose results were not saved in the workbook "
+                f"(a program wrote the formulas without calculating them), so it cannot be "
+                f"{role}. Open the workbook in a spreadsheet program, let it calculate and "
+                "save it again (or export the sheet as CSV), then load it again.",
+                code="formulas_without_values", column=str(col))
         if _usable_numeric(series):
             return
         others = [c for c in numeric_available if c != col]
         found = _first_non_number(series)
-        if pd.api.types.is_bool_dtype(series.dtype):
+        present = ~_missing_mask(series)
+        formulas = (frame.attrs.get(FORMULA_ATTR) or ())
+        fix = f"Choose a numeric column: {_quote_list(others)}."
+        row = None
+        if col in formulas:
+            what = "formulas whose results were not saved in the workbook"
+            fix = ("Open the workbook in a spreadsheet program, let it calculate and save it "
+                   "again (or export the sheet as CSV), then load it again. " + fix)
+        elif pd.api.types.is_bool_dtype(series.dtype) or _looks_boolean(series, present):
             what = "true/false values"
-            row = None
+            fix = "Write them as 1 and 0 in the file to use them as numbers, or " + fix[0].lower() + fix[1:]
+        elif (pd.api.types.is_datetime64_any_dtype(series.dtype)
+              or _looks_like_dates(series, present)):
+            what = "dates or times"
+            fix = ("Give it as the order/time column to put the rows in time "
+                   "order, or turn it into numbers in the file (for example days since the "
+                   "first row). " + fix)
         elif found is not None:
             what = f"text (data row {found[0] + 1}: '{_short(found[1])}')"
             row = found[0] + 1
         else:
             what = "values that are not stored as numbers"
-            row = None
         raise InputProblem(
-            f"Column '{col}' holds {what}, so it cannot be {role}. Choose a numeric "
-            f"column: {_quote_list(others)}.", code=code, column=str(col), row=row)
+            f"Column '{col}' holds {what}, so it cannot be {role}. {fix}", code=code,
+            column=str(col), row=row)
 
     check_exists(target, "the target")
     check_numeric(target, "the target", "non_numeric_target")

@@ -81,6 +81,7 @@ def test_run_writes_the_whole_pack(cli_pack):
     assert proc.returncode == 0, proc.stderr
     assert "Recommended: order" in proc.stdout and str(out) in proc.stdout
     assert "[100%] Pack written" in proc.stderr  # progress goes to stderr
+    assert "Warning" not in proc.stderr  # no numpy RuntimeWarning (or other) on a clean run
     assert sorted(p.name for p in out.iterdir()) == sorted(PACK_FILES)
     s = json.loads((out / "summary.json").read_text(encoding="utf-8"))
     assert s["sweep"]["penalties"] == [0.0, 0.001, 0.1]

@@ -405,3 +405,37 @@ def test_run_killed_mid_write_leaves_no_complete_looking_folder(old_pack, demo_d
         assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]  # cleaned up
     assert _snapshot(out) == before  # the earlier pack, unmixed
     assert _complete_looking(tmp_path) == [out]  # the half-written one has no summary.json
+
+
+# ---------------------------------------------------------------------------
+# the malformed corpus through the whole command line
+# ---------------------------------------------------------------------------
+MALFORMED = HERE / "malformed"
+
+
+def _corpus_argv(name: str, entry: dict, out: Path) -> list[str]:
+    argv = ["run", str(MALFORMED / name)]
+    if "args" in entry:
+        argv += list(entry["args"])
+    else:
+        roles = entry.get("prepare") or {"target": "y"}
+        argv += ["--target", roles["target"]]
+        if roles.get("inputs"):
+            argv += ["--inputs", ",".join(roles["inputs"])]
+        if roles.get("order_column"):
+            argv += ["--order-column", roles["order_column"], "--scheme", "blocked"]
+    if (entry.get("load") or {}).get("decimal") == ",":
+        argv.append("--decimal-comma")
+    return argv + ["--out", str(out / name)]
+
+
+def test_every_malformed_file_is_refused_by_a_run_within_1_gb(tmp_path):
+    expected = json.loads((MALFORMED / "expected.json").read_text(encoding="utf-8"))
+    names = sorted(expected)
+    results = run_cases([_corpus_argv(n, expected[n], tmp_path / "out") for n in names],
+                        tmp_path)
+    for name, result in zip(names, results):
+        want = expected[name]["message"]
+        check_refusal(result, want, name)
+    outs = tmp_path / "out"
+    assert not outs.exists() or not list(outs.iterdir())

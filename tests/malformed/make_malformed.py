@@ -15,10 +15,20 @@ files; ``tests/test_loading.py`` checks that. Run from anywhere:
 * ``load`` (optional): keyword arguments for ``load_table``;
 * ``prepare`` (optional): arguments for ``prepare`` for files that load
   cleanly but cannot be used as asked.
+* ``args`` (optional): command-line options for ``fitladder run FILE`` (the
+  whole-run test in tests/test_hostile_input.py);
+* ``stage`` (optional): ``"run"`` for requests refused only by a run (the
+  request budget), which ``load_table``/``prepare`` alone accept.
+
+Every message must name the cause (``message``) and say what to do (checked in
+the tests by an instruction verb opening a clause).
 """
 from __future__ import annotations
 
+import bz2
+import gzip
 import json
+import lzma
 import random
 import sys
 import zipfile
@@ -209,7 +219,169 @@ def corpus() -> dict[str, tuple[bytes, dict[str, Any]]]:
                            {"code": "too_few_rows", "message": "at least 2",
                             "prepare": {"target": "y", "inputs": ["x"]}}),
     }
+    files.update(hostile_files(rng))
     return files
+
+
+def _formula_xlsx(n: int = 50) -> bytes:
+    """A workbook whose column y holds formulas without saved results (as libraries write)."""
+    rows = ['<row r="1"><c r="A1" t="inlineStr"><is><t>x</t></is></c>'
+            '<c r="B1" t="inlineStr"><is><t>y</t></is></c></row>']
+    for i in range(2, n + 2):
+        rows.append(f'<row r="{i}"><c r="A{i}"><v>{i - 1}</v></c><c r="B{i}"><f>A{i}*2+1</f>'
+                    '</c></row>')
+    return _sheet_xlsx("".join(rows))
+
+
+def _sheet_xlsx(sheet_data: str, dimension: str | None = None) -> bytes:
+    book = minimal_xlsx([["x"]])
+    import io
+    src = zipfile.ZipFile(io.BytesIO(book))
+    entries = []
+    for name in src.namelist():
+        data = src.read(name)
+        if name == "xl/worksheets/sheet1.xml":
+            dim = f'<dimension ref="{dimension}"/>' if dimension else ""
+            data = (f'<?xml version="1.0" encoding="UTF-8" standalone="yes"?>\n'
+                    f'<worksheet xmlns="{_MAIN_NS}">{dim}<sheetData>{sheet_data}</sheetData>'
+                    '</worksheet>').encode("utf-8")
+        entries.append((name, data))
+    return _zip(entries)
+
+
+def _parquet(columns: dict[str, Any]) -> bytes:
+    import io
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+    buf = io.BytesIO()
+    pq.write_table(pa.table(columns), buf, compression="none")
+    return buf.getvalue()
+
+
+def hostile_files(rng: random.Random) -> dict[str, tuple[bytes, dict[str, Any]]]:
+    """Files that are other kinds of data, or that trap memory, time or precision."""
+    import decimal
+    small = _lines("x,y", "1,2.1", "2,3.9", "3,6.2")
+    html = (b"<!DOCTYPE html>\n<html><head><title>Export</title></head><body><table>"
+            b"<tr><th>x</th><th>y</th></tr><tr><td>1</td><td>2</td></tr></table></body></html>\n")
+    jp_rows = ["\u6e29\u5ea6,\u5de5\u7a0b"] + [f"{i},\u30e9\u30a4\u30f3{i % 3}" for i in range(40)]
+    wide = ["c" + str(j) for j in range(2000)]
+    wide_rows = [",".join(wide + ["y"])] + [",".join(str((i * 7 + j) % 13) for j in range(2001))
+                                            for i in range(5)]
+    inter = ["c" + str(j) for j in range(150)]
+    inter_rows = [",".join(inter + ["y"])] + [",".join(f"{rng.random():.2f}" for _ in range(151))
+                                              for _ in range(30)]
+    big = 2 ** 62
+    return {
+        # --- other kinds of file named like a table, recognised by their bytes ----------
+        "gzip_named.csv": (gzip.compress(small, mtime=0),
+                           {"code": "unsupported_format", "message": "gzip-compressed"}),
+        "bzip2_named.csv": (bz2.compress(small),
+                            {"code": "unsupported_format", "message": "compressed data"}),
+        "xz_named.csv": (lzma.compress(small), {"code": "unsupported_format",
+                                                 "message": "compressed data"}),
+        "zip_named.csv": (_zip([("data.csv", small), ("readme.txt", "two tables\n")]),
+                          {"code": "unsupported_format", "message": ["zip archive", "'data.csv'"]}),
+        "zip_named.txt": (_zip([("inner/results.csv", small)]),
+                          {"code": "unsupported_format", "message": "zip archive"}),
+        "web_page.csv": (html, {"code": "unsupported_format", "message": "web page (HTML)"}),
+        "web_page.tsv": (b"  \n<html><body><p>Not found</p></body></html>",
+                         {"code": "unsupported_format", "message": "web page (HTML)"}),
+        "records.csv": (b'[{"x": 1, "y": 2}, {"x": 2, "y": 4}]\n',
+                        {"code": "unsupported_format", "message": "holds JSON"}),
+        "object.txt": (b'{"x": [1, 2, 3], "y": [2, 4, 6]}',
+                       {"code": "unsupported_format", "message": "holds JSON"}),
+        "report_named.csv": (b"%PDF-1.7\n%\xe2\xe3\xcf\xd3\n1 0 obj\n<<>>\nendobj\n",
+                             {"code": "unsupported_format", "message": "a PDF document"}),
+        "picture_named.csv": (b"\x89PNG\r\n\x1a\n" + bytes(40),
+                              {"code": "unsupported_format", "message": "a PNG image"}),
+        "photo_named.csv": (b"\xff\xd8\xff\xe0" + bytes(40),
+                            {"code": "unsupported_format", "message": "a JPEG image"}),
+        "old_excel_named.csv": (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + bytes(120),
+                                {"code": "unsupported_format", "message": "old-style Office"}),
+        "database_named.csv": (b"SQLite format 3\x00" + bytes(100),
+                               {"code": "unsupported_format", "message": "an SQLite database"}),
+        "zstd_named.csv": (b"\x28\xb5\x2f\xfd" + bytes(30),
+                           {"code": "unsupported_format", "message": "compressed data"}),
+        "sevenzip_named.csv": (b"7z\xbc\xaf\x27\x1c" + bytes(30),
+                               {"code": "unsupported_format", "message": "compressed data"}),
+        "gzip_no_extension": (gzip.compress(small, mtime=0),
+                              {"code": "unsupported_format", "message": "gzip-compressed"}),
+        "web_page_no_extension": (html, {"code": "unsupported_format",
+                                         "message": "web page (HTML)"}),
+        "bzip2_no_extension": (bz2.compress(small),
+                               {"code": "unsupported_format", "message": "compressed data"}),
+        # --- encodings: names read right, so the message quotes them right ---------------
+        "shift_jis_text_target.csv": (
+            ("\n".join(jp_rows) + "\n").encode("shift_jis"),
+            {"code": "non_numeric_target", "message": "'\u5de5\u7a0b'", "column": "\u5de5\u7a0b",
+             "prepare": {"target": "\u5de5\u7a0b", "inputs": ["\u6e29\u5ea6"]}}),
+        # --- kinds of values that are not numbers ------------------------------------------
+        "dates_as_input.csv": (_lines("when,y", "2024-01-01,1.5", "2024-01-02,2.5",
+                                      "2024-01-03,3.1", "2024-01-04,4.4"),
+                               {"code": "non_numeric_input", "message": "dates or times",
+                                "column": "when",
+                                "prepare": {"target": "y", "inputs": ["when"]}}),
+        "booleans_as_input.csv": (_lines("valve_open,y", "true,1.5", "false,2.5", "TRUE,3.1",
+                                         "false,4.4"),
+                                  {"code": "non_numeric_input", "message": "true/false values",
+                                   "column": "valve_open",
+                                   "prepare": {"target": "y", "inputs": ["valve_open"]}}),
+        "table_fragment.txt": (b"<table><tr><th>x</th><th>y</th></tr><tr><td>1</td><td>2</td>"
+                               b"</tr></table>\n",
+                               {"code": "unsupported_format", "message": "web page (HTML)"}),
+        "dates_as_target.csv": (_lines("x,when", "1,2024-03-01 10:00", "2,2024-03-01 11:00",
+                                       "3,2024-03-01 12:30"),
+                                {"code": "non_numeric_target", "message": "dates or times",
+                                 "column": "when",
+                                 "prepare": {"target": "when", "inputs": ["x"]}}),
+        "formula_without_values.xlsx": (_formula_xlsx(),
+                                        {"code": "formulas_without_values",
+                                         "message": "formulas whose results were not saved",
+                                         "column": "y",
+                                         "prepare": {"target": "y", "inputs": ["x"]}}),
+        "whole_numbers_near_2_63.parquet": (
+            _parquet({"x": [1, 2, 3, 4], "y": [big, big + 1, big + 2, big + 3]}),
+            {"code": "precision_lost", "message": "beyond 2^53", "column": "y"}),
+        "decimal_target_constant.parquet": (
+            _parquet({"x": [1.0, 2.0, 3.0],
+                      "y": [decimal.Decimal("2.50"), decimal.Decimal("2.50"),
+                            decimal.Decimal("2.50")]}),
+            {"code": "constant_target", "message": "same value (2.5)",
+             "prepare": {"target": "y", "inputs": ["x"]}}),
+        "long_text_cell.csv": (
+            ("note,y\n" + "x" * 1_000_000 + ",1\nshort,2\nshort,3\n").encode("ascii"),
+            {"code": "non_numeric_target", "message": "'note'",
+             "prepare": {"target": "note", "inputs": ["y"]}}),
+        # --- sizes: refused before anything large is allocated -----------------------------
+        "huge_declared_sheet.xlsx": (
+            _sheet_xlsx('<row r="1"><c r="A1" t="inlineStr"><is><t>x</t></is></c>'
+                        '<c r="B1" t="inlineStr"><is><t>y</t></is></c></row>',
+                        dimension="A1:XFD1048576"),
+            {"code": "no_rows", "message": "no data rows"}),
+        "sparse_far_cell.xlsx": (
+            _sheet_xlsx('<row r="1"><c r="A1" t="inlineStr"><is><t>x</t></is></c></row>'
+                        + "".join(f'<row r="{r}"><c r="XFD{r}"><v>1</v></c></row>'
+                                  for r in range(2, 1400))),
+            {"code": "too_large", "message": "more than 20,000,000 cells"}),
+        "two_thousand_columns.csv": (("\n".join(wide_rows) + "\n").encode("ascii"),
+                                     {"code": "too_many_terms", "message": "terms at order",
+                                      "stage": "run", "args": ["--target", "y"]}),
+        "interactions_blow_up.csv": (("\n".join(inter_rows) + "\n").encode("ascii"),
+                                     {"code": "too_many_terms", "message": "with interactions",
+                                      "stage": "run", "args": ["--target", "y", "--max-order",
+                                                               "4", "--interactions"]}),
+        "many_repeats.csv": (small + _lines(*[f"{i},{i * 1.9:.1f}" for i in range(4, 40)])[4:],
+                             {"code": "too_slow", "message": "longer than allowed",
+                              "stage": "run",
+                              "args": ["--target", "y", "--scheme", "repeated", "--repeats",
+                                       "200000", "--time-limit", "30"]}),
+        "many_penalties_memory.csv": (
+            ("\n".join(inter_rows[:12]) + "\n").encode("ascii"),
+            {"code": "too_much_memory", "message": "more memory than allowed", "stage": "run",
+             "args": ["--target", "y", "--max-order", "1", "--memory-limit", "100"]}),
+    }
 
 
 def write(dest: Path) -> list[Path]:
