@@ -12,6 +12,7 @@ directly. Uploaded bytes are only ever parsed as data (`engine.loading`).
 """
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
 import tempfile
@@ -326,6 +327,13 @@ class Choices:
     spec: SweepSpec | None
 
 
+def text_input_columns(frame: pd.DataFrame) -> list[str]:
+    """Text columns with few levels, usable as inputs (as indicator terms)."""
+    from engine.categorical import usable_factor
+
+    return [str(c) for c in frame.columns if usable_factor(frame[c])]
+
+
 def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
     """Sidebar widgets for roles and setup; returns the request."""
     ss = st.session_state
@@ -336,6 +344,8 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
         ss["target"] = numeric[-1]
     target = st.sidebar.selectbox(option_label("target"), numeric, key="target")
     others = [c for c in numeric if c != target]
+    # text columns with few levels enter as indicator terms (engine.categorical)
+    others += [c for c in text_input_columns(frame) if c != target and c not in others]
     more = targets_control(others)
     others = [c for c in others if c not in more]
     keep("all_inputs", False)

@@ -187,3 +187,157 @@ def test_drifting_line_demo_offers_lag_depth(server, output_dir):
             assert not page.locator("[data-testid=stException]").count()
         finally:
             browser.close()
+
+
+def _idle(page, timeout: float = 90_000) -> None:
+    """Wait until the page has finished its run (no running indicator, no progress bar)."""
+    page.wait_for_timeout(400)
+    page.wait_for_function(
+        "() => { const app = document.querySelector('[data-testid=stApp]');"
+        " return app && app.getAttribute('data-test-script-state') !== 'running' && "
+        "!document.querySelector('[data-testid=stProgress]'); }", timeout=timeout)
+    page.get_by_text("Recommended:").first.wait_for(timeout=timeout)
+
+
+def _pick(page, label: str, option: str) -> None:
+    box = page.locator("[data-testid=stSidebar] [data-testid=stSelectbox]").filter(
+        has=page.get_by_text(label, exact=True)).first
+    for attempt in range(3):  # a rerun that redraws the box closes its list
+        box.click()
+        opt = page.get_by_role("option", name=option, exact=True).first
+        try:
+            opt.wait_for(timeout=8_000)
+            opt.click()
+            return
+        except Exception:  # noqa: BLE001
+            if attempt == 2:
+                raise
+            page.keyboard.press("Escape")
+            page.wait_for_timeout(500)
+
+
+def _no_frozen_bar_or_error(page) -> None:
+    page.wait_for_timeout(600)
+    assert page.locator("[data-testid=stProgress]").count() == 0, "a progress bar outlived its run"
+    assert not page.locator("[data-testid=stException]").count()
+    errors = page.locator("[data-testid=stAlertContentError]")
+    assert errors.count() == 0, errors.first.inner_text()
+
+
+@pytest.mark.timeout(400)
+def test_sidebar_walk_on_every_demo_and_an_upload_with_text(server, output_dir, tmp_path):
+    """Every sidebar control on each demo and on an uploaded table with a text column: no
+    frozen progress bar, no warning left from another data set, and the scheme's name
+    the same in the menu, its help, the page, the pack and summary.json."""
+    import io
+    import json
+    import zipfile
+
+    from engine.labels import SCHEME_NAMES
+
+    rng = np.random.default_rng(5)
+    n = 90
+    site = np.array(["north", "south", "east"])[rng.integers(0, 3, n)]
+    temp = rng.uniform(10, 30, n)
+    y = 3 + 0.5 * temp + np.select([site == "north", site == "south"], [1.0, -2.0], 0.0) \
+        + rng.normal(0, 0.3, n)
+    upload = tmp_path / "kiln_sites.csv"
+    pd.DataFrame({"site": site, "temp_C": temp, "yield_pct": y}).to_csv(upload, index=False)
+
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=CHROMIUM, args=LAUNCH_ARGS)
+        try:
+            page = browser.new_page(viewport={"width": 1400, "height": 1000},
+                                    accept_downloads=True)
+            page.goto(server)
+            _idle(page)
+            side = page.locator("[data-testid=stSidebar]")
+            # --- calibration demo: numbers, switches and every scheme that needs no column
+            _set_number(page, "Highest polynomial order", 6)
+            _idle(page)
+            _no_frozen_bar_or_error(page)
+            side.get_by_text("Products of inputs (interactions)").click()
+            _idle(page)
+            _set_number(page, "Penalties in the range (log-spaced)", 8)
+            _idle(page)
+            side.get_by_text("Also fit without a penalty").click()
+            _idle(page)
+            _set_number(page, "Seed for the shuffles", 3)
+            _idle(page)
+            side.get_by_text("RMSE", exact=True).click()
+            _idle(page)
+            page.get_by_text("Validation error (RMSE)").first.wait_for(timeout=60_000)
+            for kind in ("kfold", "repeated", "blocked", "holdout", "loo"):
+                _pick(page, "How to hold data out", SCHEME_NAMES[kind])
+                # help sentence and the plan's description start with the menu's name
+                side.get_by_text(SCHEME_NAMES[kind] + ":").first.wait_for(timeout=60_000)
+                page.locator("[data-testid=stMain]").get_by_text(
+                    SCHEME_NAMES[kind] + ":").first.wait_for(timeout=60_000)
+                _idle(page)
+                _no_frozen_bar_or_error(page)
+                if kind in ("kfold", "repeated", "blocked"):
+                    _set_number(page, "Folds", 4)
+                    _idle(page)
+                if kind == "repeated":
+                    _set_number(page, "Repeats", 2)
+                    _idle(page)
+                if kind == "blocked":
+                    _set_number(page, "Gap (rows left out on each side of a block)", 1)
+                    _idle(page)
+                _no_frozen_bar_or_error(page)
+            # schemes that need a column are not offered until one is chosen
+            side.get_by_text(f"{SCHEME_NAMES['grouped']} and {SCHEME_NAMES['column']} appear "
+                             "once their column is chosen").first.wait_for(timeout=10_000)
+            calibration_warning = page.get_by_text("probe_mV").count()
+            assert calibration_warning >= 1
+
+            # --- the other demos: nothing from the calibration set stays on the page
+            for title, file in (("Demo: reactor line log (3,000 rows)", "drifting_line_sensors"),
+                                ("Demo: dye-bath spectra (60 rows, 150 channels)",
+                                 "wide_spectra")):
+                _pick(page, "Data set", title)
+                page.get_by_text(f"{file}.csv ·").first.wait_for(timeout=120_000)
+                _idle(page, 180_000)
+                _no_frozen_bar_or_error(page)
+                main = page.locator("[data-testid=stMain]")
+                assert main.get_by_text("probe_mV").count() == 0, "stale text from another set"
+
+            # --- an upload with a text column: the text column as an input and as groups
+            page.locator("input[type=file]").set_input_files(str(upload))
+            page.get_by_text("kiln_sites.csv ·").first.wait_for(timeout=90_000)
+            _idle(page)
+            ms = side.locator("[data-testid=stMultiSelect]").filter(
+                has=page.get_by_text("Inputs", exact=True)).first
+            ms.click()
+            opt = page.get_by_role("option", name="site", exact=True).first
+            opt.wait_for(timeout=20_000)
+            opt.click()
+            page.keyboard.press("Escape")
+            _idle(page)
+            _no_frozen_bar_or_error(page)
+            assert page.get_by_text("reference level 'east'").count() >= 1
+            _pick(page, "Group column (optional)", "site")
+            _idle(page)
+            _pick(page, "How to hold data out", SCHEME_NAMES["grouped"])
+            _idle(page)
+            _no_frozen_bar_or_error(page)
+            folds = page.get_by_role("spinbutton", name="Folds")
+            assert int(folds.input_value()) <= 3  # capped to the three sites
+            name = SCHEME_NAMES["grouped"]
+            assert side.get_by_text(name + ":").count() >= 1
+            _full_screenshot(page, output_dir / "dashboard_walk_upload.png")
+
+            with page.expect_download(timeout=120_000) as info:
+                page.get_by_role("button", name="Meeting pack (ZIP)").click()
+            blob = (tmp_path / "pack.zip")
+            info.value.save_as(str(blob))
+            with zipfile.ZipFile(io.BytesIO(blob.read_bytes())) as z:
+                summary = json.loads(z.read("fitladder_pack/summary.json"))
+                html = z.read("fitladder_pack/summary.html").decode()
+            assert summary["validation"]["scheme"] == "grouped"
+            assert summary["validation"]["scheme_name"] == name
+            assert summary["validation"]["when_to_use"].startswith(name + ":")
+            assert name in html
+            assert summary["data"]["text_inputs"]["site"]["reference"] == "east"
+        finally:
+            browser.close()
