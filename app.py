@@ -112,6 +112,7 @@ DEMOS: dict[str, Demo] = {
 
 PENALTY_STEPS = [10.0 ** k for k in range(-8, 7)]
 NONE = "(none)"
+RULE_CHOICES = {"paired": "paired (default)", "unpaired": "unpaired"}
 VIEW_KEYS = ("heat_x", "heat_y", "view_penalty", "lc_order", "lc_penalty", "cmp_orders", "cmp_penalty",
              "cmp_zero", "coef_order", "coef_penalty")
 SETUP_KEYS = ("target", "inputs", "all_inputs", "order_column", "group_column", "split_column",
@@ -449,6 +450,13 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
                                         max_value=60, step=1, key="pen_count")
     keep("pen_zero", True)
     pen_zero = st.sidebar.checkbox("Also fit without a penalty", key="pen_zero")
+    keep("rule", "paired")
+    rule = st.sidebar.radio("How to pick the recommended cell", list(RULE_CHOICES),
+                            format_func=RULE_CHOICES.get, key="rule", horizontal=True,
+                            help="Paired: each cell's error is compared with the best cell's on "
+                                 "the same validation rows; the simplest cell within one standard "
+                                 "error of those differences is recommended. Unpaired: the "
+                                 "classic one-standard-error rule on each cell's own spread.")
     keep("seed", 0)
     seed = st.sidebar.number_input(option_label("seed"), min_value=0, max_value=2**31 - 1,
                                    step=1, key="seed")
@@ -471,7 +479,7 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
                           gap=int(gap or 0), holdout_fraction=float(frac),
                           order_column=order_c, group_column=group_c, split_column=split_c,
                           rows_in_time_order=rows_time),
-        seed=int(seed), lags=lags, nested_inputs=nested, extra_targets=more)
+        seed=int(seed), lags=lags, nested_inputs=nested, extra_targets=more, rule=str(rule))
     return Choices(roles=roles, spec=spec)
 
 
@@ -610,7 +618,9 @@ def recommendation_panel(analysis, target: str, n_rows: int | None = None) -> No
         m4.caption(f"± {f['best_se']} · {C.cell_text(b.order, b.penalty)}"
                    + rung_text(b.lags, b.target_lags, b.inputs_used))
         st.markdown(md(f["reason"]))
-        st.caption(md(f"{analysis.plan.description} Rule: {rec.rule}."))
+        how = (f" Standard errors {rec.se_method}." if rec.rule_name == "paired"
+               and rec.se_method else "")
+        st.caption(md(f"{analysis.plan.description} Rule: {rec.rule}.{how}"))
         st.caption("Where this model feeds a safety or compliance decision (a calibration "
                    "used on a plant, say), check it against your own acceptance standards "
                    "and uncertainty budget; this dashboard does not replace them.")

@@ -252,8 +252,25 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
         raise InputProblem(f"The sweep could not be computed: {exc}", code="sweep_failed") from exc
     table = res.validation_table()
     rec = _pick(table, res, spec)
+    table = with_paired_columns(table, rec)
     return Analysis(spec=spec, sweep=res, validation=table, recommendation=rec, basis=basis,
                     plan=plan, n_rows=int(len(data.y)), notes=list(res.notes))
+
+
+def with_paired_columns(table: pd.DataFrame, rec: Recommendation) -> pd.DataFrame:
+    """Add the comparison with the best cell to a validation table.
+
+    Columns: ``paired_difference`` (mean validation error minus the best
+    cell's, on the same rows), ``paired_difference_se`` (its standard error)
+    and ``near_best`` (within one standard error of the best under the rule
+    used: the data cannot tell the cell from the best).
+    """
+    t = table.copy()
+    if rec.difference.size == len(t):
+        t["paired_difference"] = rec.difference
+        t["paired_difference_se"] = rec.difference_se
+        t["near_best"] = rec.near_best.astype(bool)
+    return t
 
 
 def fit_cell(data: DataLike, spec: SweepSpec, order: int, penalty: float,
@@ -426,7 +443,7 @@ def _pick(table: pd.DataFrame, res: SweepResult, spec: SweepSpec) -> Recommendat
 
     ``table`` rows are aligned with ``res.validation_errors()`` (cells x splits).
     """
-    return recommend(table, float(np.mean(res.n_train)))
+    return recommend(table, res.split_errors(), float(np.mean(res.n_train)), spec.rule)
 
 
 def target_matrix(data, spec: SweepSpec) -> np.ndarray:
@@ -510,7 +527,9 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
     out = []
     for t, (res, info) in enumerate(ladders):
         table = res.validation_table()
+        res.repeats = len(plan.rounds) if plan.kind == "repeated" else 1
         rec = _pick(table, res, spec)
+        table = with_paired_columns(table, rec)
         cols = _final_columns(design, basis, info, rec.recommended, t, spec)
         names = tuple(design.columns[c] for c in cols)
         mdata = ArrayData(design.X[:, cols], design.Y[:, t], names, spec.targets[t],

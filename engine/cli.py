@@ -25,7 +25,7 @@ from .errors import InputProblem
 from .lagged import LagSpec
 from .spec import (DEFAULT_FOLDS, DEFAULT_GAP, DEFAULT_HOLDOUT_FRACTION, DEFAULT_MAX_ORDER,
                    DEFAULT_PENALTY_COUNT, DEFAULT_PENALTY_HIGH, DEFAULT_PENALTY_LOW,
-                   DEFAULT_REPEATS, DEFAULT_SEED, SCHEME_HELP, SCHEMES, SchemeSpec, SweepSpec,
+                   DEFAULT_REPEATS, DEFAULT_SEED, SCHEME_HELP, SCHEMES, SELECTION_RULES, SchemeSpec, SweepSpec,
                    default_penalties)
 
 PROG = "fitladder"
@@ -273,6 +273,11 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--l1-ratios", type=parse_l1_ratios, default=None, metavar="0.1,0.5,0.9",
                      help="elastic-net mixing parameters (l1_ratio), used with --families "
                           "elasticnet (default 0.1,0.5,0.9)")
+    run.add_argument("--rule", choices=SELECTION_RULES, default=SELECTION_RULES[0],
+                     help="how the recommended cell is chosen: paired (default; differences "
+                          "from the best cell on the same validation rows, within one standard "
+                          "error of those differences) or unpaired (the classic "
+                          "one-standard-error rule on each cell's own spread)")
     run.add_argument("--seed", type=int, default=DEFAULT_SEED, metavar="S",
                      help="seed for every shuffle")
     run.add_argument("--decimal-comma", action="store_true",
@@ -557,7 +562,7 @@ def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
     spec = SweepSpec(target=data.target, inputs=tuple(data.inputs), max_order=args.max_order,
                      orders=args.orders, interactions=args.interactions, penalties=penalties,
                      scheme=scheme, seed=args.seed, lags=lags, nested_inputs=args.rank_inputs,
-                     extra_targets=more, families=args.families,
+                     extra_targets=more, families=args.families, rule=args.rule,
                      **({"l1_ratios": args.l1_ratios} if args.l1_ratios else {}))
     result = build_pack(folder, loaded=loaded, source_name=loaded.report.source_name,
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,

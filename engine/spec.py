@@ -29,6 +29,9 @@ DEFAULT_PENALTY_HIGH = 1e3
 DEFAULT_PENALTY_COUNT = 15
 DEFAULT_SEED = 0
 
+#: Selection rules (see `engine.recommend`); the first is the default.
+SELECTION_RULES = ("paired", "unpaired")
+
 
 @dataclass(frozen=True)
 class SchemeSpec:
@@ -130,6 +133,10 @@ class SweepSpec:
         ``alpha`` with each of ``l1_ratios``); every family uses ``penalties``.
     l1_ratios : mixing parameters of the elastic net, each in [0, 1]
         (1 = lasso, 0 = a ridge-type penalty on scikit-learn's ElasticNet scale).
+    rule : how the recommended cell is chosen, one of `engine.recommend.RULES`:
+        ``"paired"`` (differences from the best cell on the same validation
+        rows) or ``"unpaired"`` (the classic one-standard-error rule). Records
+        written before the rule was recorded used the unpaired rule.
     """
 
     target: str
@@ -146,6 +153,7 @@ class SweepSpec:
     extra_targets: tuple[str, ...] = ()
     families: tuple[str, ...] = ("ridge",)
     l1_ratios: tuple[float, ...] = DEFAULT_L1_RATIOS
+    rule: str = "paired"
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "inputs", tuple(self.inputs))
@@ -249,6 +257,9 @@ class SweepSpec:
                                code="bad_nested_inputs")
         if self.lags is not None:
             self.lags.validate(self.inputs, self.scheme)
+        if self.rule not in SELECTION_RULES:
+            raise InputProblem(f"Unknown selection rule '{self.rule}'. Choose one of: "
+                               f"{', '.join(SELECTION_RULES)}.", code="bad_rule")
         for f in self.learning_sizes:
             if not (0.0 < f <= 1.0):
                 raise InputProblem(f"Learning-curve sizes are fractions in (0, 1] (got {f}).",
@@ -293,4 +304,6 @@ class SweepSpec:
         # records written before penalty families existed: ridge only
         d["families"] = tuple(d.get("families", ("ridge",)))
         d["l1_ratios"] = tuple(d.get("l1_ratios", DEFAULT_L1_RATIOS))
+        # records written before the rule was recorded were chosen by the unpaired rule
+        d.setdefault("rule", "unpaired")
         return cls(**d)
