@@ -37,7 +37,7 @@ from engine.compare import fit_candidates
 from engine.labels import (ERROR_UNITS, number_text, SAMPLES_PER_PARAMETER_HOW, SCHEME_NEEDS, error_in_unit,
                            error_text, reason_in_unit, samples_per_parameter, se_in_unit,
                            se_text)
-from engine.labels import (CHARTS, ROW_ORDER_ANSWERS, ROW_ORDER_HELP, SCHEME_NAMES,
+from engine.labels import (CHARTS, ROW_ORDER_ANSWERS, RULE_NAMES, ROW_ORDER_HELP, SCHEME_NAMES,
                            SCHEMES_WITH_FOLDS, TABLES, column_header, human_headers,
                            option_label, penalty_text)
 from engine.roles import default_roles
@@ -112,12 +112,12 @@ DEMOS: dict[str, Demo] = {
 
 PENALTY_STEPS = [10.0 ** k for k in range(-8, 7)]
 NONE = "(none)"
-RULE_CHOICES = {"paired": "paired (default)", "unpaired": "unpaired"}
 VIEW_KEYS = ("heat_x", "heat_y", "view_penalty", "lc_order", "lc_penalty", "cmp_orders", "cmp_penalty",
              "cmp_zero", "coef_order", "coef_penalty")
 SETUP_KEYS = ("target", "inputs", "all_inputs", "order_column", "group_column", "split_column",
               "scheme", "folds", "repeats", "gap", "holdout_fraction", "max_order",
-              "interactions", "pen_range", "pen_count", "pen_zero", "seed", "rows_time")
+              "interactions", "pen_fit", "pen_range", "pen_count", "pen_zero", "rule", "seed",
+              "rows_time")
 
 # ---------------------------------------------------------------------------
 # errors: readable messages, never a traceback
@@ -442,17 +442,24 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
     keep("interactions", False)
     interactions = st.sidebar.checkbox(option_label("interactions"), key="interactions")
     preset = ss.get("_preset", Preset())
-    pen_range = st.sidebar.select_slider(option_label("penalties"), PENALTY_STEPS,
-                                         value=(preset.pen_low, preset.pen_high),
-                                         format_func=penalty_text, key="pen_range")
-    keep("pen_count", 15)
-    pen_count = st.sidebar.number_input("Penalties in the range (log-spaced)", min_value=1,
-                                        max_value=60, step=1, key="pen_count")
-    keep("pen_zero", True)
-    pen_zero = st.sidebar.checkbox("Also fit without a penalty", key="pen_zero")
+    keep("pen_fit", True)
+    pen_fit = st.sidebar.checkbox(
+        option_label("penalty_range"), key="pen_fit",
+        help="From no penalty to one that leaves about one effective degree of freedom, "
+             "widened by itself when the pick lies on its edge. Untick to set the range.")
+    pen_range, pen_count, pen_zero = (preset.pen_low, preset.pen_high), 15, True
+    if not pen_fit:
+        pen_range = st.sidebar.select_slider(option_label("penalties"), PENALTY_STEPS,
+                                             value=(preset.pen_low, preset.pen_high),
+                                             format_func=penalty_text, key="pen_range")
+        keep("pen_count", 15)
+        pen_count = st.sidebar.number_input("Penalties in the range (log-spaced)", min_value=1,
+                                            max_value=60, step=1, key="pen_count")
+        keep("pen_zero", True)
+        pen_zero = st.sidebar.checkbox("Also fit without a penalty", key="pen_zero")
     keep("rule", "paired")
-    rule = st.sidebar.radio("How to pick the recommended cell", list(RULE_CHOICES),
-                            format_func=RULE_CHOICES.get, key="rule", horizontal=True,
+    rule = st.sidebar.radio(option_label("rule"), list(RULE_NAMES),
+                            format_func=RULE_NAMES.get, key="rule", horizontal=True,
                             help="Paired: each cell's error is compared with the best cell's on "
                                  "the same validation rows; the simplest cell within one standard "
                                  "error of those differences is recommended. Unpaired: the "
@@ -474,7 +481,7 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
     spec = SweepSpec(
         target=target, inputs=tuple(inputs), max_order=int(max_order),
         interactions=bool(interactions),
-        penalties=default_penalties(lo, hi, int(pen_count), bool(pen_zero)),
+        penalties=() if pen_fit else default_penalties(lo, hi, int(pen_count), bool(pen_zero)),
         scheme=SchemeSpec(kind=scheme, folds=int(folds or 5), repeats=int(repeats or 3),
                           gap=int(gap or 0), holdout_fraction=float(frac),
                           order_column=order_c, group_column=group_c, split_column=split_c,

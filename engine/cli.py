@@ -263,8 +263,8 @@ def build_parser() -> argparse.ArgumentParser:
                           "--penalty-range; LIST: these values, comma separated (e.g. 0,0.1,10)")
     run.add_argument("--penalty-range", type=parse_penalty_range, default=None,
                      metavar="LO:HI:COUNT",
-                     help="log-spaced ridge grid used with --penalties ridge "
-                          f"(default {DEFAULT_PENALTY_LOW:g}:{DEFAULT_PENALTY_HIGH:g}:{DEFAULT_PENALTY_COUNT})")
+                     help="log-spaced ridge grid used with --penalties ridge (default: a "
+                          "range fitted to the data, widened when the pick lies on its edge)")
     run.add_argument("--families", type=parse_families, default=("ridge",),
                      metavar="ridge,lasso,elasticnet",
                      help="penalty families swept side by side on the same penalties "
@@ -366,7 +366,9 @@ def _penalty_grid(args: argparse.Namespace) -> tuple[float, ...]:
     if choice == "none":
         return (0.0,)
     if choice == "ridge":
-        lo, hi, count = args.penalty_range or DEFAULT_PENALTY_RANGE
+        if args.penalty_range is None:
+            return ()       # 0 plus a range fitted to the data, widened at an edge
+        lo, hi, count = args.penalty_range
         return default_penalties(lo, hi, count, include_zero=True)
     return tuple(choice)
 

@@ -1363,7 +1363,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                                    overwrite=overwrite)
     if analysis is None:
         analysis = analyse(data, spec, progress=_stage(progress, 0.0, 0.55))
-    elif analysis.spec != spec:
+    elif (getattr(analysis, "request", None) or analysis.spec) != spec:
         raise InputProblem("The analysis given was run for another request; run it again "
                            "for this one.", code="stale_analysis")
     # a grid over lag depths, input counts or targets: the recommended rung's columns

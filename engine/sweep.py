@@ -21,6 +21,7 @@ from .families import FamilyFit, RawMap, TermSummary, fit_family, ridge, sse
 from .moments import Moments, combine_batch, design_moments
 from .rungs import TermSet
 from .rungs import order as order_rung
+from .penalty_range import data_penalties
 from .recommend import SplitErrors
 from .schemes import FoldPlan
 
@@ -273,7 +274,8 @@ def fit_settings(summary: TermSummary, raw: RawMap, penalties: np.ndarray,
 
 def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPlan,
               orders: list[int], penalties, progress: Progress | None = None,
-              families=RIDGE_ONLY, term_sets: list[TermSet] | None = None) -> SweepResult:
+              families=RIDGE_ONLY, term_sets: list[TermSet] | None = None,
+              statistics: tuple | None = None) -> SweepResult:
     """Validation errors and coefficients for every (term set, setting, split).
 
     Parameters
@@ -283,11 +285,15 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     plan : the splits (`engine.schemes.make_plan`).
     orders : orders to report (each <= basis.max_order); ignored when
         ``term_sets`` is given.
-    penalties : penalties of every family, 0 = none.
+    penalties : penalties of every family, 0 = none; empty: penalty 0 plus a
+        range fitted to the training summaries (`engine.penalty_range`).
     progress : called as ``progress(fraction_done, message)``.
     families : (family, l1_ratio) pairs (see `engine.families`); ridge only by default.
     term_sets : index sets of the full design, one per rung (default: one per order,
         `engine.rungs.order.term_sets`).
+    statistics : ``SweepResult.statistics`` of an earlier sweep of the same
+        rows, plan and basis: the grid follows from them without reading the
+        rows again (used to widen a penalty range).
 
     Returns
     -------
@@ -309,12 +315,17 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     if plan.loo:
         return _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress,
                           plan.description)
-    stats = []
-    for r, rnd in enumerate(plan.rounds):
-        stats.append(piece_statistics(basis, X, y, rnd.pieces, rnd.n_pieces))
-        if progress:
-            progress(0.8 * (r + 1) / len(plan.rounds), "Summarising rows")
-    res = sweep_summaries(split_summaries(stats, plan), term_sets, A, a0, pen, families,
+    if statistics is None:
+        stats = []
+        for r, rnd in enumerate(plan.rounds):
+            stats.append(piece_statistics(basis, X, y, rnd.pieces, rnd.n_pieces))
+            if progress:
+                progress(0.8 * (r + 1) / len(plan.rounds), "Summarising rows")
+        statistics = split_summaries(stats, plan)
+    if pen.size == 0:
+        n_t, m_t, M_t = statistics[:3]
+        pen = np.asarray(data_penalties(n_t, m_t, M_t, A, a0, term_sets), float)
+    res = sweep_summaries(statistics, term_sets, A, a0, pen, families,
                           plan.description, progress)
     res.repeats = len(plan.rounds) if plan.kind == "repeated" else 1
     add_row_errors(res, X, y, basis, plan)
@@ -462,11 +473,13 @@ def _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress, desc) -> 
             "choose shuffled k-fold (for example 10 folds) or leave those families out.",
             code="loo_family")
     n = y.size
+    stats = piece_statistics(basis, X, y, np.zeros(n, dtype=np.int64), 1)
+    n_t, m_t, M_t = stats.n, stats.mean, stats.comoment      # one set: all rows
+    if pen.size == 0:
+        pen = np.asarray(data_penalties(n_t, m_t, M_t, A, a0, term_sets), float)
     res = _empty_result(term_sets, pen, families, 1, desc)
     res.loo = True
     res.loo_se = np.zeros((len(term_sets), pen.size))
-    stats = piece_statistics(basis, X, y, np.zeros(n, dtype=np.int64), 1)
-    n_t, m_t, M_t = stats.n, stats.mean, stats.comoment      # one set: all rows
     res.n_train[0], res.n_valid[0] = n - 1, 1
     F = basis.expand(X)
     Fc = F - m_t[0, :-1]
