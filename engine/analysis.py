@@ -18,7 +18,8 @@ from .schemes import FoldPlan, make_plan
 from .spec import SchemeSpec, SweepSpec, default_penalties
 from .ladder import RUNG_COLUMNS
 from .threads import one_thread
-from .sweep import Progress, SweepResult, _fit_penalties, _sse, check_design_size, piece_statistics, run_sweep
+from .sweep import (Progress, SweepResult, _fit_penalties, _sse, add_row_errors, check_design_size,
+                    piece_statistics, run_sweep)
 
 
 class DataLike(Protocol):
@@ -590,6 +591,7 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
         raise InputProblem(f"The sweep could not be computed: {exc}", code="sweep_failed") from exc
     out = []
     for t, (res, info) in enumerate(ladders):
+        add_row_errors(res, design.X, design.Y[:, t], basis, plan)   # one split: per-row SEs
         table = res.validation_table()
         res.repeats = len(plan.rounds) if plan.kind == "repeated" else 1
         rec = _pick(table, res, spec)

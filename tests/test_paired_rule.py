@@ -268,3 +268,20 @@ def test_rule_is_recorded_and_older_records_keep_the_unpaired_rule():
     from engine.errors import InputProblem
     with pytest.raises(InputProblem, match="selection rule"):
         SweepSpec("y", ("x",), rule="lowest").validate()
+
+
+def test_lagged_holdout_gets_per_row_standard_errors():
+    from engine.lagged import LagSpec
+    rng = np.random.default_rng(8)
+    n = 150
+    x = np.cumsum(rng.normal(size=n))
+    y = 0.5 * x + rng.normal(size=n)
+    a = analyse(ArrayData(x, y, ("x",), "y"),
+                SweepSpec("y", ("x",), max_order=2, scheme=SchemeSpec("holdout"),
+                          lags=LagSpec(depths=(0, 2))))
+    t = a.validation
+    # the per-row sums reproduce each cell's holdout error, and no cell reads "± 0"
+    np.testing.assert_allclose(a.sweep.row_sum / a.sweep.row_count, t["validation_mse"],
+                               rtol=1e-8)
+    assert (t["validation_mse_se"] > 0).all()
+    assert "per-row" in a.recommendation.se_method
