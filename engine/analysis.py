@@ -565,7 +565,8 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
             one_data = ArrayData(data.X, Y[:, t], spec.inputs, name,
                                  getattr(data, "groups", None), getattr(data, "split", None))
             a = _analyse_plain(one_data, one, progress)
-            a.spec = spec
+            a.spec = replace(spec, penalties=a.spec.penalties)
+            a.request = spec if a.spec != spec else None
             a.validation = a.validation.assign(target=name)
             a.model_data, a.model_spec = one_data, one
             out.append(a)
@@ -582,8 +583,10 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
                         None if groups is None else np.asarray(groups)[kept],
                         None if split is None else np.asarray(split)[kept])
         plan = plan_for(sub, spec.scheme, spec.seed)
+        # grids over lags or input sets sweep the fixed default penalties when none are given
+        ran = spec if spec.penalties else replace(spec, penalties=default_penalties())
         ladders = run_ladder(design, basis, plan, spec.targets, spec.inputs, orders,
-                             spec.penalties or default_penalties(), spec.lags, spec.nested_inputs,
+                             ran.penalties, spec.lags, spec.nested_inputs,
                              families=spec.family_pairs(), progress=progress)
     except InputProblem:
         raise
@@ -600,14 +603,14 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
         names = tuple(design.columns[c] for c in cols)
         mdata = ArrayData(design.X[:, cols], design.Y[:, t], names, spec.targets[t],
                           sub.groups, sub.split)
-        mspec = replace(spec, target=spec.targets[t], inputs=names, lags=None,
+        mspec = replace(ran, target=spec.targets[t], inputs=names, lags=None,
                         nested_inputs=None, extra_targets=())
         mbasis = PolynomialBasis.fit(mdata.X, names, max(orders), spec.interactions)
-        out.append(Analysis(spec=spec, sweep=res, validation=table, recommendation=rec,
+        out.append(Analysis(spec=ran, sweep=res, validation=table, recommendation=rec,
                             basis=mbasis, plan=plan, n_rows=int(design.X.shape[0]),
                             notes=list(info.notes) + list(res.notes), model_data=mdata,
                             model_spec=mspec, rows_left_out=int(design.rows_dropped),
-                            rankings=info.rankings))
+                            rankings=info.rankings, request=spec if ran != spec else None))
     return out
 
 

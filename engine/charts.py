@@ -457,6 +457,11 @@ def grid_heatmap_chart(cells: pd.DataFrame, x: str, y: str, best: Cell, recommen
             tooltip=[alt.Tooltip("cell:N", title="cell"),
                      alt.Tooltip("error:Q", title=f"validation {short}", format=".4g")]))
     notes = [title + (", logarithmic colour scale." if use_log else ".")]
+    if "near_best" in t and t["near_best"].astype(bool).any():
+        layers.append(alt.Chart(t[t["near_best"].astype(bool)]).mark_text(
+            text=NEAR_BEST_GLYPH, fontSize=13, fontWeight="bold", color=PALETTE["ink"],
+            dy=9).encode(x=ex, y=ey))
+        notes.append(f"{NEAR_BEST_GLYPH} marks cells the data cannot tell from the best.")
     if held:
         notes.append("Held fixed: " + held + ".")
     chart = alt.layer(*layers).properties(
