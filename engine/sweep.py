@@ -324,7 +324,11 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
         statistics = split_summaries(stats, plan)
     if pen.size == 0:
         n_t, m_t, M_t = statistics[:3]
-        pen = np.asarray(data_penalties(n_t, m_t, M_t, A, a0, term_sets), float)
+        if all(f == "ridge" for f, _ in families):
+            pen = np.asarray(data_penalties(n_t, m_t, M_t, A, a0, term_sets), float)
+        else:   # the derived range is on ridge's scale; lasso and elastic net keep the default
+            from .spec import default_penalties
+            pen = np.asarray(default_penalties(), float)
     res = sweep_summaries(statistics, term_sets, A, a0, pen, families,
                           plan.description, progress)
     res.repeats = len(plan.rounds) if plan.kind == "repeated" else 1
