@@ -301,6 +301,9 @@ def recommend(table: pd.DataFrame, split_errors: SplitErrors | np.ndarray | None
     if rule not in RULES:
         raise InputProblem(f"Unknown selection rule '{rule}'. Choose one of: {', '.join(RULES)}.",
                            code="bad_rule")
+    if isinstance(split_errors, (int, float, np.integer, np.floating)):
+        # the earlier call form recommend(table, mean_train_rows): no per-split errors
+        mean_train_rows, split_errors = float(split_errors), None
     t = table.reset_index(drop=True)
     vm = t["validation_mse"].to_numpy(float)
     finite = np.isfinite(vm)
