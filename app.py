@@ -38,7 +38,7 @@ from engine.compare import fit_candidates
 from engine.labels import (ERROR_UNITS, number_text, SAMPLES_PER_PARAMETER_HOW, SCHEME_NEEDS, error_in_unit,
                            error_text, reason_in_unit, samples_per_parameter, se_in_unit,
                            se_text)
-from engine.labels import (CHARTS, ROW_ORDER_ANSWERS, ROW_ORDER_HELP, SCHEME_NAMES,
+from engine.labels import (CHARTS, ROW_ORDER_ANSWERS, RULE_NAMES, ROW_ORDER_HELP, SCHEME_NAMES,
                            SCHEMES_WITH_FOLDS, TABLES, column_header, human_headers,
                            option_label, penalty_text)
 from engine.roles import default_roles
@@ -118,7 +118,8 @@ VIEW_KEYS = ("heat_x", "heat_y", "view_penalty", "lc_order", "lc_penalty", "cmp_
              "cmp_zero", "coef_order", "coef_penalty")
 SETUP_KEYS = ("target", "inputs", "all_inputs", "order_column", "group_column", "split_column",
               "scheme", "folds", "repeats", "gap", "holdout_fraction", "max_order",
-              "interactions", "pen_range", "pen_count", "pen_zero", "seed", "rows_time")
+              "interactions", "pen_fit", "pen_range", "pen_count", "pen_zero", "rule", "seed",
+              "rows_time")
 
 # ---------------------------------------------------------------------------
 # errors: readable messages, never a traceback
@@ -452,14 +453,28 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
     keep("interactions", False)
     interactions = st.sidebar.checkbox(option_label("interactions"), key="interactions")
     preset = ss.get("_preset", Preset())
-    pen_range = st.sidebar.select_slider(option_label("penalties"), PENALTY_STEPS,
-                                         value=(preset.pen_low, preset.pen_high),
-                                         format_func=penalty_text, key="pen_range")
-    keep("pen_count", 15)
-    pen_count = st.sidebar.number_input("Penalties in the range (log-spaced)", min_value=1,
-                                        max_value=60, step=1, key="pen_count")
-    keep("pen_zero", True)
-    pen_zero = st.sidebar.checkbox("Also fit without a penalty", key="pen_zero")
+    keep("pen_fit", True)
+    pen_fit = st.sidebar.checkbox(
+        option_label("penalty_range"), key="pen_fit",
+        help="From no penalty to one that leaves about one effective degree of freedom, "
+             "widened by itself when the pick lies on its edge. Untick to set the range.")
+    pen_range, pen_count, pen_zero = (preset.pen_low, preset.pen_high), 15, True
+    if not pen_fit:
+        pen_range = st.sidebar.select_slider(option_label("penalties"), PENALTY_STEPS,
+                                             value=(preset.pen_low, preset.pen_high),
+                                             format_func=penalty_text, key="pen_range")
+        keep("pen_count", 15)
+        pen_count = st.sidebar.number_input("Penalties in the range (log-spaced)", min_value=1,
+                                            max_value=60, step=1, key="pen_count")
+        keep("pen_zero", True)
+        pen_zero = st.sidebar.checkbox("Also fit without a penalty", key="pen_zero")
+    keep("rule", "paired")
+    rule = st.sidebar.radio(option_label("rule"), list(RULE_NAMES),
+                            format_func=RULE_NAMES.get, key="rule", horizontal=True,
+                            help="Paired: each cell's error is compared with the best cell's on "
+                                 "the same validation rows; the simplest cell within one standard "
+                                 "error of those differences is recommended. Unpaired: the "
+                                 "classic one-standard-error rule on each cell's own spread.")
     keep("seed", 0)
     seed = st.sidebar.number_input(option_label("seed"), min_value=0, max_value=2**31 - 1,
                                    step=1, key="seed")
@@ -477,12 +492,12 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
     spec = SweepSpec(
         target=target, inputs=tuple(inputs), max_order=int(max_order),
         interactions=bool(interactions),
-        penalties=default_penalties(lo, hi, int(pen_count), bool(pen_zero)),
+        penalties=() if pen_fit else default_penalties(lo, hi, int(pen_count), bool(pen_zero)),
         scheme=SchemeSpec(kind=scheme, folds=int(folds or 5), repeats=int(repeats or 3),
                           gap=int(gap or 0), holdout_fraction=float(frac),
                           order_column=order_c, group_column=group_c, split_column=split_c,
                           rows_in_time_order=rows_time),
-        seed=int(seed), lags=lags, nested_inputs=nested, extra_targets=more)
+        seed=int(seed), lags=lags, nested_inputs=nested, extra_targets=more, rule=str(rule))
     return Choices(roles=roles, spec=spec)
 
 
@@ -621,7 +636,9 @@ def recommendation_panel(analysis, target: str, n_rows: int | None = None) -> No
         m4.caption(f"± {f['best_se']} · {C.cell_text(b.order, b.penalty)}"
                    + rung_text(b.lags, b.target_lags, b.inputs_used))
         st.markdown(md(f["reason"]))
-        st.caption(md(f"{analysis.plan.description} Rule: {rec.rule}."))
+        how = (f" Standard errors {rec.se_method}." if rec.rule_name == "paired"
+               and rec.se_method else "")
+        st.caption(md(f"{analysis.plan.description} Rule: {rec.rule}.{how}"))
         st.caption("Where this model feeds a safety or compliance decision (a calibration "
                    "used on a plant, say), check it against your own acceptance standards "
                    "and uncertainty budget; this dashboard does not replace them.")

@@ -11,12 +11,15 @@ from .design import PolynomialBasis
 from .errors import InputProblem
 from .final_fit import FinalModel, fit_final
 from .moments import combine_batch
+from .labels import penalty_text
+from .penalty_range import MAX_EXTENSIONS, extend, penalty_edges, range_of
 from .recommend import Recommendation, recommend
 from .schemes import FoldPlan, make_plan
-from .spec import SchemeSpec, SweepSpec
+from .spec import SchemeSpec, SweepSpec, default_penalties
 from .ladder import RUNG_COLUMNS
 from .threads import one_thread
-from .sweep import Progress, SweepResult, _fit_penalties, _sse, check_design_size, piece_statistics, run_sweep
+from .sweep import (Progress, SweepResult, _fit_penalties, _sse, add_row_errors, check_design_size,
+                    piece_statistics, run_sweep)
 
 
 class DataLike(Protocol):
@@ -71,13 +74,19 @@ class Analysis:
 
     Attributes
     ----------
-    spec : the request.
+    spec : the request as run: with a data-fitted penalty range
+        (``penalty_range="data"``) its ``penalties`` are the grid the sweep
+        ended with.
     sweep : per-split results (`engine.sweep.SweepResult`).
     validation : validation-curve table, one row per (order, penalty).
     recommendation : best and recommended cells.
     basis, plan : the design and the splits used.
     n_rows : rows used.
     notes : plain sentences about how the numbers were computed.
+    request : the request exactly as given (``spec`` before the penalty grid
+        was filled in); ``None`` when it equals ``spec``.
+    penalty_edges : `engine.penalty_range.Edge` of each chosen cell still on
+        an edge of the penalty range after any widening.
     """
 
     spec: SweepSpec
@@ -92,6 +101,8 @@ class Analysis:
     model_spec: SweepSpec | None = None
     rows_left_out: int = 0
     rankings: np.ndarray | None = None
+    request: SweepSpec | None = None
+    penalty_edges: list = field(default_factory=list)
 
     @property
     def target(self) -> str:
@@ -248,14 +259,83 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
         with one_thread():   # many small factorisations; the row pass picks its own
             res = run_sweep(data.X, data.y, basis, plan, spec.order_list(), spec.penalties,
                             progress, families=spec.family_pairs())
+            table, rec = _table_and_pick(res, spec)
+            notes: list[str] = []
+            edges = _edges(res, rec)
+            if spec.penalty_range == "data":
+                first = range_of(_grid(res))
+                for _ in range(MAX_EXTENSIONS):
+                    if not edges:
+                        break
+                    wider = extend(_grid(res), {e.side for e in edges})
+                    res = run_sweep(data.X, data.y, basis, plan, spec.order_list(), wider, None,
+                                    families=spec.family_pairs(),
+                                    statistics=res.statistics)
+                    table, rec = _table_and_pick(res, spec)
+                    edges = _edges(res, rec)
+                if range_of(_grid(res)) != first:
+                    lo, hi = range_of(_grid(res))
+                    notes.append(f"The penalty range fitted to the data ({penalty_text(first[0])} to "
+                                 f"{penalty_text(first[1])}) was widened to {penalty_text(lo)} to "
+                                 f"{penalty_text(hi)} because a chosen cell lay on its edge.")
     except InputProblem:
         raise
     except (ValueError, np.linalg.LinAlgError, MemoryError) as exc:  # pragma: no cover
         raise InputProblem(f"The sweep could not be computed: {exc}", code="sweep_failed") from exc
+    ran = spec
+    if spec.penalty_range == "data":
+        ran = replace(spec, penalties=_grid(res))
+    return Analysis(spec=ran, sweep=res, validation=table, recommendation=rec, basis=basis,
+                    plan=plan, n_rows=int(len(data.y)), notes=list(res.notes) + notes,
+                    request=spec if ran != spec else None, penalty_edges=edges)
+
+
+def _grid(res: SweepResult) -> tuple[float, ...]:
+    """The distinct penalties of a sweep, ascending."""
+    return tuple(sorted({float(p) for p in np.asarray(res.penalties, float)}))
+
+
+def _table_and_pick(res: SweepResult, spec: SweepSpec) -> tuple[pd.DataFrame, Recommendation]:
     table = res.validation_table()
     rec = _pick(table, res, spec)
-    return Analysis(spec=spec, sweep=res, validation=table, recommendation=rec, basis=basis,
-                    plan=plan, n_rows=int(len(data.y)), notes=list(res.notes))
+    return with_paired_columns(table, rec), rec
+
+
+def _edges(res: SweepResult, rec: Recommendation) -> list:
+    return penalty_edges(_grid(res), {"best": rec.best, "recommended": rec.recommended})
+
+
+def with_paired_columns(table: pd.DataFrame, rec: Recommendation) -> pd.DataFrame:
+    """Add the comparison with the best cell to a validation table.
+
+    Columns: ``paired_difference`` (mean validation error minus the best
+    cell's, on the same rows), ``paired_difference_se`` (its standard error)
+    and ``near_best`` (within one standard error of the best under the rule
+    used: the data cannot tell the cell from the best).
+    """
+    t = table.copy()
+    if rec.difference.size == len(t):
+        t["paired_difference"] = rec.difference
+        t["paired_difference_se"] = rec.difference_se
+        t["near_best"] = rec.near_best.astype(bool)
+    return t
+
+
+def data_grid(data: DataLike, spec: SweepSpec, basis: PolynomialBasis | None = None,
+              orders: list[int] | None = None) -> tuple[float, ...]:
+    """Penalty 0 plus the range fitted to all rows of ``data`` (`engine.penalty_range`).
+
+    For callers that need one fixed starting grid before any sweep (resampling
+    studies, learning curves of a request not yet analysed).
+    """
+    from .penalty_range import data_penalties
+    from .rungs import order as order_rung
+    orders = spec.order_list() if orders is None else list(orders)
+    if basis is None:
+        basis = PolynomialBasis.fit(data.X, spec.inputs, max(orders), spec.interactions)
+    A, a0 = basis.raw_map()
+    st = piece_statistics(basis, data.X, data.y, np.zeros(len(data.y), dtype=np.int64), 1)
+    return data_penalties(st.n, st.mean, st.comoment, A, a0, order_rung.term_sets(basis, orders))
 
 
 def fit_cell(data: DataLike, spec: SweepSpec, order: int, penalty: float,
@@ -388,6 +468,8 @@ def _learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None,
     check_design_size(basis)
     A, a0 = basis.raw_map()
     pen = np.asarray(spec.penalties, float)
+    if pen.size == 0:       # a data-fitted range not yet run: the base range of all rows
+        pen = np.asarray(data_grid(data, spec, basis, orders), float)
     sizes = train_sizes(spec.learning_sizes, len(plan.train_sets[0]))
     rows = []
     for s, cuts, (n_t, m_t, M_t), (n_v, m_v, M_v) in _learning_statistics(basis, data, plan,
@@ -428,7 +510,7 @@ def _pick(table: pd.DataFrame, res: SweepResult, spec: SweepSpec) -> Recommendat
 
     ``table`` rows are aligned with ``res.validation_errors()`` (cells x splits).
     """
-    return recommend(table, float(np.mean(res.n_train)))
+    return recommend(table, res.split_errors(), float(np.mean(res.n_train)), spec.rule)
 
 
 def target_matrix(data, spec: SweepSpec) -> np.ndarray:
@@ -485,7 +567,8 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
             one_data = ArrayData(data.X, Y[:, t], spec.inputs, name,
                                  getattr(data, "groups", None), getattr(data, "split", None))
             a = _analyse_plain(one_data, one, progress)
-            a.spec = spec
+            a.spec = replace(spec, penalties=a.spec.penalties)
+            a.request = spec if a.spec != spec else None
             a.validation = a.validation.assign(target=name)
             a.model_data, a.model_spec = one_data, one
             out.append(a)
@@ -502,8 +585,10 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
                         None if groups is None else np.asarray(groups)[kept],
                         None if split is None else np.asarray(split)[kept])
         plan = plan_for(sub, spec.scheme, spec.seed)
+        # grids over lags or input sets sweep the fixed default penalties when none are given
+        ran = spec if spec.penalties else replace(spec, penalties=default_penalties())
         ladders = run_ladder(design, basis, plan, spec.targets, spec.inputs, orders,
-                             spec.penalties, spec.lags, spec.nested_inputs,
+                             ran.penalties, spec.lags, spec.nested_inputs,
                              families=spec.family_pairs(), progress=progress)
     except InputProblem:
         raise
@@ -511,20 +596,23 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
         raise InputProblem(f"The sweep could not be computed: {exc}", code="sweep_failed") from exc
     out = []
     for t, (res, info) in enumerate(ladders):
+        add_row_errors(res, design.X, design.Y[:, t], basis, plan)   # one split: per-row SEs
         table = res.validation_table()
+        res.repeats = len(plan.rounds) if plan.kind == "repeated" else 1
         rec = _pick(table, res, spec)
+        table = with_paired_columns(table, rec)
         cols = _final_columns(design, basis, info, rec.recommended, t, spec)
         names = tuple(design.columns[c] for c in cols)
         mdata = ArrayData(design.X[:, cols], design.Y[:, t], names, spec.targets[t],
                           sub.groups, sub.split)
-        mspec = replace(spec, target=spec.targets[t], inputs=names, lags=None,
+        mspec = replace(ran, target=spec.targets[t], inputs=names, lags=None,
                         nested_inputs=None, extra_targets=())
         mbasis = PolynomialBasis.fit(mdata.X, names, max(orders), spec.interactions)
-        out.append(Analysis(spec=spec, sweep=res, validation=table, recommendation=rec,
+        out.append(Analysis(spec=ran, sweep=res, validation=table, recommendation=rec,
                             basis=mbasis, plan=plan, n_rows=int(design.X.shape[0]),
                             notes=list(info.notes) + list(res.notes), model_data=mdata,
                             model_spec=mspec, rows_left_out=int(design.rows_dropped),
-                            rankings=info.rankings))
+                            rankings=info.rankings, request=spec if ran != spec else None))
     return out
 
 

@@ -54,6 +54,8 @@ PALETTE = {
 MODEL_COLOURS = ["#c2502f", "#2a7f8e", "#4b2e83", "#d99a00", "#5c7f2a", "#8a5a44",
                  "#2f4f9e", "#b0467a"]
 #: Sequential colour ramp for error heat maps: low error light, high error dark.
+#: Glyph on heat-map cells that are statistically indistinguishable from the best.
+NEAR_BEST_GLYPH = "≈"
 ERROR_RAMP = ["#f6f1de", "#e8c98a", "#d58a4f", "#a8483a", "#5b2338"]
 #: A term is "steep" when its standardised magnitude is more than this many
 #: times the median magnitude of the other terms of the same cell (cells
@@ -369,7 +371,20 @@ def heatmap_chart(validation: pd.DataFrame, best: Cell, recommended: Cell, targe
         tooltip=[alt.Tooltip("mark:N", title="marker"), alt.Tooltip("cell:N", title="cell"),
                  alt.Tooltip("error:Q", title=f"validation {short}", format=".4g")])
     notes = [title + (", logarithmic colour scale." if use_log else ".")]
-    chart = alt.layer(heat, pts).properties(
+    layers = [heat, pts]
+    if "near_best" in t:
+        near = t[t["near_best"].astype(bool)
+                 & ~t.apply(lambda r: _same_cell(best, r["order"], r["penalty"])
+                            or _same_cell(recommended, r["order"], r["penalty"]), axis=1)]
+        if len(near):
+            layers.append(alt.Chart(near).mark_text(text=NEAR_BEST_GLYPH, fontSize=13,
+                                                    fontWeight="bold", color=PALETTE["ink"]
+                                                    ).encode(x=x, y=y))
+        notes.append(f"{NEAR_BEST_GLYPH} marks cells the data cannot tell from the best "
+                     "(within one standard error of the paired differences)."
+                     if recommended.rule == "paired" else
+                     f"{NEAR_BEST_GLYPH} marks cells within one standard error of the best.")
+    chart = alt.layer(*layers).properties(
         width=max(260, min(_WIDTH, 38 * len(orders))), height=max(200, 18 * len(labels)),
         title=_title("Validation error for every order and penalty", notes))
     return _finish(chart)
@@ -442,6 +457,11 @@ def grid_heatmap_chart(cells: pd.DataFrame, x: str, y: str, best: Cell, recommen
             tooltip=[alt.Tooltip("cell:N", title="cell"),
                      alt.Tooltip("error:Q", title=f"validation {short}", format=".4g")]))
     notes = [title + (", logarithmic colour scale." if use_log else ".")]
+    if "near_best" in t and t["near_best"].astype(bool).any():
+        layers.append(alt.Chart(t[t["near_best"].astype(bool)]).mark_text(
+            text=NEAR_BEST_GLYPH, fontSize=13, fontWeight="bold", color=PALETTE["ink"],
+            dy=9).encode(x=ex, y=ey))
+        notes.append(f"{NEAR_BEST_GLYPH} marks cells the data cannot tell from the best.")
     if held:
         notes.append("Held fixed: " + held + ".")
     chart = alt.layer(*layers).properties(

@@ -1407,6 +1407,57 @@ def check_train_validation_gap(analysis: Analysis) -> tuple[Finding | None, dict
     return Finding("train_validation_gap", message, ratio, advice, severity, info), info
 
 
+def check_grid_edges(analysis: Analysis) -> tuple[Finding | None, pd.DataFrame]:
+    """The chosen cell on an edge of the swept range: the range may be too narrow.
+
+    Fires when the best or recommended cell lies on the largest (or smallest
+    positive) penalty of a range the user fixed (a data-fitted range widens
+    itself first, see `engine.penalty_range`; it fires too if it is still on
+    an edge after widening), or when the recommended cell uses the highest
+    order swept. Penalty edges count only where a stronger (weaker) penalty
+    could still change the fit by more than half a degree of freedom.
+    """
+    from .labels import penalty_text
+    from .penalty_range import edge_sentence, edge_table, range_of
+
+    rec = analysis.recommendation
+    spec = analysis.spec
+    edges = list(getattr(analysis, "penalty_edges", []) or [])
+    table = edge_table(edges)
+    sentences, advice = [], []
+    if edges:
+        lo, hi = range_of(spec.penalties)
+        sentences += [edge_sentence(e, lo, hi) + "." for e in edges]
+        advice.append(
+            f"Widen the penalty range past {penalty_text(hi if edges[0].side == 'upper' else lo)}"
+            + (" (or let the range follow the data)" if spec.penalty_range == "given" else "")
+            + " and run again; the pick may move.")
+    orders = spec.order_list()
+    top = max(orders) if orders else 0
+    r = rec.recommended
+    # a straight line of several inputs is usually a deliberate choice; from order 2
+    # (or one input) a pick at the top of the range says the range may be too short
+    if (top >= 2 or (top == 1 and len(spec.inputs) == 1)) and int(r.order) == top \
+            and r.parameters > 1:
+        sentences.append(f"The recommended cell uses order {top}, the highest order swept "
+                         f"(orders {min(orders)} to {top}); a higher order was not tried.")
+        advice.append(f"Sweep orders above {top} to see whether the data support more; "
+                      "keep the lower order if they add nothing.")
+        table = pd.concat([table, pd.DataFrame([{"side": "highest order", "role": "recommended",
+                                                 "penalty": r.penalty,
+                                                 "effective_df": r.effective_df,
+                                                 "parameters": r.parameters}])],
+                          ignore_index=True)
+    if not sentences:
+        return None, table
+    message = " ".join(sentences) + " The range swept may be too narrow."
+    return Finding("range_edge", message, float(len(sentences)), " ".join(advice), "caution",
+                   {"penalty_range": list(range_of(spec.penalties)),
+                    "penalty_range_from_data": spec.penalty_range == "data",
+                    "highest_order": int(top),
+                    "edges": table.to_dict(orient="records")}), table
+
+
 # ---------------------------------------------------------------------------
 # all checks
 # ---------------------------------------------------------------------------
@@ -1545,8 +1596,12 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
     f7, gap_info = check_train_validation_gap(analysis)
     summary.append(("train_validation_gap", f7, float(gap_info["ratio"]),
                     f"validation MSE more than {GAP_RATIO:g} times training MSE"))
+    f8, t_edges = check_grid_edges(analysis)
+    report.tables["range_edges"] = t_edges
+    summary.append(("range_edge", f8, float(len(t_edges)),
+                    "the chosen cell on an edge of the penalty range or at the highest order"))
 
-    report.findings = [x for x in (f0, f, f2, f3, f4, f5, f6, f7) if x is not None]
+    report.findings = [x for x in (f0, f, f2, f3, f4, f5, f6, f7, f8) if x is not None]
     skipped = {x["code"]: x["reason"] for x in report.skipped}
     report.tables["summary"] = pd.DataFrame(
         [{"code": c, "fired": fi is not None, "severity": fi.severity if fi else "",

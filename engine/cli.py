@@ -25,7 +25,7 @@ from .errors import InputProblem
 from .lagged import LagSpec
 from .spec import (DEFAULT_FOLDS, DEFAULT_GAP, DEFAULT_HOLDOUT_FRACTION, DEFAULT_MAX_ORDER,
                    DEFAULT_PENALTY_COUNT, DEFAULT_PENALTY_HIGH, DEFAULT_PENALTY_LOW,
-                   DEFAULT_REPEATS, DEFAULT_SEED, SCHEME_HELP, SCHEMES, SchemeSpec, SweepSpec,
+                   DEFAULT_REPEATS, DEFAULT_SEED, SCHEME_HELP, SCHEMES, SELECTION_RULES, SchemeSpec, SweepSpec,
                    default_penalties)
 
 PROG = "fitladder"
@@ -263,8 +263,8 @@ def build_parser() -> argparse.ArgumentParser:
                           "--penalty-range; LIST: these values, comma separated (e.g. 0,0.1,10)")
     run.add_argument("--penalty-range", type=parse_penalty_range, default=None,
                      metavar="LO:HI:COUNT",
-                     help="log-spaced ridge grid used with --penalties ridge "
-                          f"(default {DEFAULT_PENALTY_LOW:g}:{DEFAULT_PENALTY_HIGH:g}:{DEFAULT_PENALTY_COUNT})")
+                     help="log-spaced ridge grid used with --penalties ridge (default: a "
+                          "range fitted to the data, widened when the pick lies on its edge)")
     run.add_argument("--families", type=parse_families, default=("ridge",),
                      metavar="ridge,lasso,elasticnet",
                      help="penalty families swept side by side on the same penalties "
@@ -273,6 +273,11 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--l1-ratios", type=parse_l1_ratios, default=None, metavar="0.1,0.5,0.9",
                      help="elastic-net mixing parameters (l1_ratio), used with --families "
                           "elasticnet (default 0.1,0.5,0.9)")
+    run.add_argument("--rule", choices=SELECTION_RULES, default=SELECTION_RULES[0],
+                     help="how the recommended cell is chosen: paired (default; differences "
+                          "from the best cell on the same validation rows, within one standard "
+                          "error of those differences) or unpaired (the classic "
+                          "one-standard-error rule on each cell's own spread)")
     run.add_argument("--seed", type=int, default=DEFAULT_SEED, metavar="S",
                      help="seed for every shuffle")
     run.add_argument("--decimal-comma", action="store_true",
@@ -367,7 +372,9 @@ def _penalty_grid(args: argparse.Namespace) -> tuple[float, ...]:
     if choice == "none":
         return (0.0,)
     if choice == "ridge":
-        lo, hi, count = args.penalty_range or DEFAULT_PENALTY_RANGE
+        if args.penalty_range is None:
+            return ()       # 0 plus a range fitted to the data, widened at an edge
+        lo, hi, count = args.penalty_range
         return default_penalties(lo, hi, count, include_zero=True)
     return tuple(choice)
 
@@ -588,7 +595,7 @@ def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
     spec = SweepSpec(target=data.target, inputs=tuple(data.inputs), max_order=args.max_order,
                      orders=args.orders, interactions=args.interactions, penalties=penalties,
                      scheme=scheme, seed=args.seed, lags=lags, nested_inputs=args.rank_inputs,
-                     extra_targets=more, families=args.families,
+                     extra_targets=more, families=args.families, rule=args.rule,
                      **({"l1_ratios": args.l1_ratios} if args.l1_ratios else {}))
     result = build_pack(folder, loaded=loaded, source_name=loaded.report.source_name,
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,

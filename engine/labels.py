@@ -232,6 +232,8 @@ OPTIONS = {
     "max_order": ("Highest polynomial order", "--max-order"),
     "interactions": ("Products of inputs (interactions)", "--interactions"),
     "penalties": ("Ridge penalty range", "--penalty-range"),
+    "penalty_range": ("Penalty range from the data", "--penalty-range"),
+    "rule": ("How to pick the recommended cell", "--rule"),
     "seed": ("Seed for the shuffles", "--seed"),
     "rows_in_time_order": ("Are the rows in time order?", "--rows-in-time-order"),
 }
@@ -243,6 +245,9 @@ ROW_ORDER_HELP = ("Checks for dependence between neighbouring rows and for a shi
                   "earlier and later rows read the row order as time. Not said: they assume "
                   "the file's row order is time order, say so, and their warnings stay at "
                   "caution. No: they are not used.")
+
+#: Selection rules (`engine.recommend`): name -> short label on the page.
+RULE_NAMES = {"paired": "paired (default)", "unpaired": "unpaired"}
 
 
 def option_label(key: str) -> str:
@@ -308,6 +313,10 @@ COLUMNS = {
     "target_lags": "Target lag depth",
     "inputs_used": "Inputs used",
     "target": "Target",
+    "paired_difference": "Difference from best (paired)",
+    "paired_difference_se": "Difference from best ± SE",
+    "near_best": "Indistinguishable from best",
+    "side": "Edge",
 }
 
 #: Axes of a grid (validation-table column -> axis title in charts and page).

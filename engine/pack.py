@@ -470,7 +470,9 @@ def _cell_dict(cell: Cell, row: pd.Series | None = None) -> dict:
          "validation_r2": cell.validation_r2, "train_mse": cell.train_mse,
          "parameters": int(cell.parameters), "effective_df": cell.effective_df,
          "samples_per_parameter": cell.samples_per_parameter, "reason": cell.reason,
-         "family": cell.family, "l1_ratio": float(cell.l1_ratio)}
+         "family": cell.family, "l1_ratio": float(cell.l1_ratio),
+         "paired_difference": getattr(cell, "paired_difference", None),
+         "paired_difference_se": getattr(cell, "paired_difference_se", None)}
     for k in RUNG_KEYS:   # the cell's other axes, when the grid has them
         v = getattr(cell, k, None)
         if v is not None:
@@ -503,6 +505,9 @@ def _axes_dict(full: Analysis) -> dict:
         out["target"] = full.target
         out["chosen_columns"] = list(full.model_spec.inputs)
     return out
+
+
+_PAIRED_KEYS = ("paired_difference", "paired_difference_se", "near_best")
 
 
 def _finding_dicts(checks: Any) -> list[dict]:
@@ -579,7 +584,8 @@ def summary_dict(analysis: Analysis, model: FinalModel, data_facts: dict, roles:
     rec = analysis.recommendation
     full = analysis if full is None else full
     spec = full.spec
-    keys = _grid_keys(full.validation)
+    keys = _grid_keys(full.validation) + tuple(
+        k for k in _PAIRED_KEYS if k in full.validation)
     grid = [{k: (None if pd.isna(r[k]) else r[k]) if k in RUNG_KEYS else r[k] for k in keys}
             for _, r in full.validation.iterrows()]
     cand = [{**{k: (None if k in RUNG_KEYS and pd.isna(r[k]) else r[k])
@@ -598,6 +604,8 @@ def summary_dict(analysis: Analysis, model: FinalModel, data_facts: dict, roles:
                   "interactions": bool(spec.interactions), "seed": int(spec.seed),
                   "cells": int(len(full.validation)), "notes": list(full.notes)},
         "rule": rec.rule,
+        "rule_name": getattr(rec, "rule_name", None),
+        "rule_se_method": getattr(rec, "se_method", None),
         "threshold": rec.threshold,
         "best": _cell_dict(rec.best),
         "recommended": _cell_dict(rec.recommended),
@@ -804,6 +812,12 @@ def _mse_words(c: dict, se_name: str = "") -> str:
     return f"{_num(c['validation_mse'])} ± {_num(c['validation_mse_se'], 2)}{tail}"
 
 
+def _se_method_words(s: dict) -> str:
+    """``; standard errors from ...`` for the paired rule, else nothing."""
+    m = s.get("rule_se_method")
+    return f"; standard errors {m}" if s.get("rule_name") == "paired" and m else ""
+
+
 def _headline(s: dict) -> str:
     r = s["recommended"]
     return (f"order {r['order']}, {_penalty_words(r['penalty'])}"
@@ -845,7 +859,7 @@ def render_markdown(s: dict) -> str:
               f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}"
               f"{rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used'))}: validation MSE "
               f"{_mse_words(b)}. "
-              f"Rule: {md_escape(s['rule'])}.", ""]
+              f"Rule: {md_escape(s['rule'])}{_se_method_words(s)}.", ""]
     lines += ["## Data", "",
               f"- File: {escape_name(d['file'])}",
               f"- SHA-256: `{d['sha256'] or 'not from a file'}`",
@@ -1155,7 +1169,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
   <div>{_h(r['reason'])}</div>
   <div style="margin-top:.8mm">Best cell: order {b['order']}, {_h(_penalty_words(b['penalty']))}{_h(rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used')))}
    (MSE {_h(_mse_words(b))}).
-   Chosen by the {_h(s['rule'].split(':')[0])}.</div>
+   Chosen by the {_h(s['rule'].split(':')[0])}{_h(_se_method_words(s))}.</div>
  </div>
  <div>
   <h2>Data and request</h2>
@@ -1349,7 +1363,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                                    overwrite=overwrite)
     if analysis is None:
         analysis = analyse(data, spec, progress=_stage(progress, 0.0, 0.55))
-    elif analysis.spec != spec:
+    elif (getattr(analysis, "request", None) or analysis.spec) != spec:
         raise InputProblem("The analysis given was run for another request; run it again "
                            "for this one.", code="stale_analysis")
     # a grid over lag depths, input counts or targets: the recommended rung's columns

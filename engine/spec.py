@@ -29,6 +29,11 @@ DEFAULT_PENALTY_HIGH = 1e3
 DEFAULT_PENALTY_COUNT = 15
 DEFAULT_SEED = 0
 
+#: Selection rules (see `engine.recommend`); the first is the default.
+SELECTION_RULES = ("paired", "unpaired")
+#: How the penalty range is set: fitted to the data (and extended at an edge), or given.
+PENALTY_RANGES = ("data", "given")
+
 
 @dataclass(frozen=True)
 class SchemeSpec:
@@ -113,7 +118,14 @@ class SweepSpec:
     interactions : include all products of inputs up to the order, not only
         per-input powers.
     penalties : ridge penalties (scikit-learn ``alpha`` on training-standardised
-        terms); 0 means no penalty.
+        terms); 0 means no penalty. Empty (the default): penalty 0 plus a range
+        fitted to the data (`engine.penalty_range`), extended when the best or
+        recommended cell lies on its edge.
+    penalty_range : ``"data"`` (the range follows the data and widens itself;
+        given ``penalties`` are the starting grid, as in the ``spec`` of a
+        data-fitted analysis) or
+        ``"given"`` (exactly ``penalties``; a pick on an edge draws a warning).
+        Left empty it is ``"data"`` without penalties and ``"given"`` with them.
     scheme : the validation scheme.
     seed : seed for every random choice (shuffles).
     learning_sizes : fractions of each training set for the learning curve.
@@ -130,6 +142,10 @@ class SweepSpec:
         ``alpha`` with each of ``l1_ratios``); every family uses ``penalties``.
     l1_ratios : mixing parameters of the elastic net, each in [0, 1]
         (1 = lasso, 0 = a ridge-type penalty on scikit-learn's ElasticNet scale).
+    rule : how the recommended cell is chosen, one of `engine.recommend.RULES`:
+        ``"paired"`` (differences from the best cell on the same validation
+        rows) or ``"unpaired"`` (the classic one-standard-error rule). Records
+        written before the rule was recorded used the unpaired rule.
     """
 
     target: str
@@ -137,7 +153,7 @@ class SweepSpec:
     max_order: int = DEFAULT_MAX_ORDER
     orders: tuple[int, ...] | None = None
     interactions: bool = False
-    penalties: tuple[float, ...] = field(default_factory=default_penalties)
+    penalties: tuple[float, ...] = ()
     scheme: SchemeSpec = field(default_factory=SchemeSpec)
     seed: int = DEFAULT_SEED
     learning_sizes: tuple[float, ...] = (0.1, 0.325, 0.55, 0.775, 1.0)
@@ -146,6 +162,8 @@ class SweepSpec:
     extra_targets: tuple[str, ...] = ()
     families: tuple[str, ...] = ("ridge",)
     l1_ratios: tuple[float, ...] = DEFAULT_L1_RATIOS
+    rule: str = "paired"
+    penalty_range: str = ""
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "inputs", tuple(self.inputs))
@@ -156,6 +174,8 @@ class SweepSpec:
         object.__setattr__(self, "families", tuple(str(f) for f in fam))
         object.__setattr__(self, "l1_ratios", tuple(float(r) for r in self.l1_ratios))
         object.__setattr__(self, "penalties", tuple(float(p) for p in self.penalties))
+        if self.penalty_range not in PENALTY_RANGES:
+            object.__setattr__(self, "penalty_range", "given" if self.penalties else "data")
         if self.orders is not None:
             object.__setattr__(self, "orders", tuple(sorted({int(o) for o in self.orders})))
             object.__setattr__(self, "max_order", max(self.orders) if self.orders else 0)
@@ -230,7 +250,7 @@ class SweepSpec:
                                code="bad_order")
         if self.orders is not None and (not self.orders or min(self.orders) < 0):
             raise InputProblem("Orders must be whole numbers of 0 or more.", code="bad_order")
-        if not self.penalties:
+        if not self.penalties and self.penalty_range == "given":
             raise InputProblem("Give at least one penalty (0 for none).", code="bad_penalty")
         for p in self.penalties:
             if not np.isfinite(p) or p < 0:
@@ -249,6 +269,9 @@ class SweepSpec:
                                code="bad_nested_inputs")
         if self.lags is not None:
             self.lags.validate(self.inputs, self.scheme)
+        if self.rule not in SELECTION_RULES:
+            raise InputProblem(f"Unknown selection rule '{self.rule}'. Choose one of: "
+                               f"{', '.join(SELECTION_RULES)}.", code="bad_rule")
         for f in self.learning_sizes:
             if not (0.0 < f <= 1.0):
                 raise InputProblem(f"Learning-curve sizes are fractions in (0, 1] (got {f}).",
@@ -293,4 +316,6 @@ class SweepSpec:
         # records written before penalty families existed: ridge only
         d["families"] = tuple(d.get("families", ("ridge",)))
         d["l1_ratios"] = tuple(d.get("l1_ratios", DEFAULT_L1_RATIOS))
+        # records written before the rule was recorded were chosen by the unpaired rule
+        d.setdefault("rule", "unpaired")
         return cls(**d)

@@ -327,7 +327,9 @@ def analyse_moments(folds: Moments, basis: PolynomialBasis, spec, rows: int,
     -------
     `engine.analysis.Analysis`
     """
-    from .analysis import Analysis
+    from dataclasses import replace
+
+    from .analysis import Analysis, with_paired_columns
     from .recommend import recommend
     from .rungs import order as order_rung
     from .sweep import check_design_size, split_summaries, sweep_summaries
@@ -348,15 +350,22 @@ def analyse_moments(folds: Moments, basis: PolynomialBasis, spec, rows: int,
         raise InputProblem(f"Raw powers up to order {basis.max_order} of these inputs are too "
                            "large to compute in double precision. Rescale the inputs or lower "
                            "the highest order.", code="values_too_large")
+    summaries = split_summaries([folds], plan_all)
+    term_sets = order_rung.term_sets(basis, spec.order_list())
+    pen = np.asarray(spec.penalties, float)
+    if pen.size == 0:   # a range fitted to the data (`engine.penalty_range`)
+        from .penalty_range import data_penalties
+        pen = np.asarray(data_penalties(*summaries[:3], A, a0, term_sets), float)
     with one_thread():
-        res = sweep_summaries(split_summaries([folds], plan_all),
-                              order_rung.term_sets(basis, spec.order_list()), A, a0,
-                              np.asarray(spec.penalties, float), description=desc)
+        res = sweep_summaries(summaries, term_sets, A, a0, pen, description=desc)
     table = res.validation_table()
-    rec = recommend(table, float(np.mean(res.n_train)))
+    rec = recommend(table, res.split_errors(), float(np.mean(res.n_train)), spec.rule)
+    table = with_paired_columns(table, rec)
+    ran = spec if spec.penalties else replace(spec, penalties=tuple(float(p) for p in pen))
     plan = plan_all if sample_folds is None else hashed_fold_plan(sample_folds, k, desc)
-    return Analysis(spec=spec, sweep=res, validation=table, recommendation=rec, basis=basis,
-                    plan=plan, n_rows=int(rows), notes=list(res.notes) + list(notes))
+    return Analysis(spec=ran, sweep=res, validation=table, recommendation=rec, basis=basis,
+                    plan=plan, n_rows=int(rows), notes=list(res.notes) + list(notes),
+                    request=spec if ran != spec else None)
 
 
 def numeric_columns(path: str | Path) -> list[str]:

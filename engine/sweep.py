@@ -21,6 +21,8 @@ from .families import FamilyFit, RawMap, TermSummary, fit_family, ridge, sse
 from .moments import Moments, combine_batch, design_moments
 from .rungs import TermSet
 from .rungs import order as order_rung
+from .penalty_range import data_penalties
+from .recommend import SplitErrors
 from .schemes import FoldPlan
 
 Progress = Callable[[float, str], None]
@@ -88,6 +90,14 @@ class SweepResult:
     families: list[str] | None = None     # (K,) family of each setting; None = all ridge
     l1_ratios: np.ndarray | None = None   # (K,) mixing parameter (0 for ridge)
     rung_keys: list[dict] | None = None   # (O,) coordinates of each term set
+    repeats: int = 1                  # repetitions of a k-fold partition (repeated k-fold)
+    # one split or leave-one-out: per-row squared errors on the validation rows,
+    # summarised over rows (cells in validation-table order)
+    row_count: int = 0
+    row_sum: np.ndarray | None = None        # (O*K,) sum of squared errors
+    row_comoment: np.ndarray | None = None   # (O*K, O*K) centred co-moment of squared errors
+    statistics: tuple | None = field(default=None, repr=False)   # split summaries
+    row_fits: list | None = field(default=None, repr=False)      # one split: fits for the row pass
 
     def __post_init__(self) -> None:
         K = int(np.asarray(self.penalties).size)
@@ -118,6 +128,18 @@ class SweepResult:
         O, K, S = self.valid_mse.shape
         return self.valid_mse.reshape(O * K, S)
 
+    def split_errors(self) -> SplitErrors:
+        """Per-split validation MSE with what the paired rule needs, rows aligned with
+        `validation_table`.
+
+        For a single split and for leave-one-out it also carries the per-row
+        sums that give paired standard errors (see `engine.recommend`).
+        """
+        return SplitErrors(self.validation_errors().copy(), self.n_train.copy(),
+                           self.n_valid.copy(), repeats=int(self.repeats),
+                           row_count=int(self.row_count), row_sum=self.row_sum,
+                           row_comoment=self.row_comoment)
+
     def validation_table(self) -> pd.DataFrame:
         """One row per cell (term set x setting): mean errors across splits and their SE."""
         O, K, S = self.valid_mse.shape
@@ -129,6 +151,11 @@ class SweepResult:
 
         vm = self.valid_mse.mean(axis=2)
         v_se = self.loo_se if self.loo else se(self.valid_mse)
+        if not self.loo and S == 1 and self.row_count > 1 and self.row_comoment is not None:
+            # one split: standard error of the mean over its validation rows
+            n = float(self.row_count)
+            v_se = np.sqrt(np.clip(np.diagonal(self.row_comoment), 0, None)
+                           / (n - 1.0) / n).reshape(O, K)
         t_se = np.zeros((O, K)) if self.loo else se(self.train_mse)
         r2 = self.valid_r2
         finite = np.isfinite(r2)
@@ -247,7 +274,8 @@ def fit_settings(summary: TermSummary, raw: RawMap, penalties: np.ndarray,
 
 def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPlan,
               orders: list[int], penalties, progress: Progress | None = None,
-              families=RIDGE_ONLY, term_sets: list[TermSet] | None = None) -> SweepResult:
+              families=RIDGE_ONLY, term_sets: list[TermSet] | None = None,
+              statistics: tuple | None = None) -> SweepResult:
     """Validation errors and coefficients for every (term set, setting, split).
 
     Parameters
@@ -257,11 +285,15 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     plan : the splits (`engine.schemes.make_plan`).
     orders : orders to report (each <= basis.max_order); ignored when
         ``term_sets`` is given.
-    penalties : penalties of every family, 0 = none.
+    penalties : penalties of every family, 0 = none; empty: penalty 0 plus a
+        range fitted to the training summaries (`engine.penalty_range`).
     progress : called as ``progress(fraction_done, message)``.
     families : (family, l1_ratio) pairs (see `engine.families`); ridge only by default.
     term_sets : index sets of the full design, one per rung (default: one per order,
         `engine.rungs.order.term_sets`).
+    statistics : ``SweepResult.statistics`` of an earlier sweep of the same
+        rows, plan and basis: the grid follows from them without reading the
+        rows again (used to widen a penalty range).
 
     Returns
     -------
@@ -283,13 +315,78 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     if plan.loo:
         return _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress,
                           plan.description)
-    stats = []
-    for r, rnd in enumerate(plan.rounds):
-        stats.append(piece_statistics(basis, X, y, rnd.pieces, rnd.n_pieces))
-        if progress:
-            progress(0.8 * (r + 1) / len(plan.rounds), "Summarising rows")
-    return sweep_summaries(split_summaries(stats, plan), term_sets, A, a0, pen, families,
-                           plan.description, progress)
+    if statistics is None:
+        stats = []
+        for r, rnd in enumerate(plan.rounds):
+            stats.append(piece_statistics(basis, X, y, rnd.pieces, rnd.n_pieces))
+            if progress:
+                progress(0.8 * (r + 1) / len(plan.rounds), "Summarising rows")
+        statistics = split_summaries(stats, plan)
+    if pen.size == 0:
+        n_t, m_t, M_t = statistics[:3]
+        if all(f == "ridge" for f, _ in families):
+            pen = np.asarray(data_penalties(n_t, m_t, M_t, A, a0, term_sets), float)
+        else:   # the derived range is on ridge's scale; lasso and elastic net keep the default
+            from .spec import default_penalties
+            pen = np.asarray(default_penalties(), float)
+    res = sweep_summaries(statistics, term_sets, A, a0, pen, families,
+                          plan.description, progress)
+    res.repeats = len(plan.rounds) if plan.kind == "repeated" else 1
+    add_row_errors(res, X, y, basis, plan)
+    return res
+
+
+def add_row_errors(res: SweepResult, X: np.ndarray, y: np.ndarray, basis: PolynomialBasis,
+                   plan: FoldPlan) -> None:
+    """For a single split, summarise every cell's per-row squared error on its validation rows.
+
+    Fills ``res.row_count``, ``row_sum`` and ``row_comoment`` (the paired rule's
+    standard errors); ``X`` must be the rows ``basis`` expands into the full design.
+    """
+    if res.row_fits is None or plan.loo or plan.n_splits != 1:
+        return
+    rows = plan.valid_sets[0]
+    res.row_count, res.row_sum, res.row_comoment = _row_squared_errors(
+        np.asarray(X, float), np.asarray(y, float), basis, rows, res.row_fits)
+    res.row_fits = None
+
+
+def _merge_moments(a: tuple, b: tuple) -> tuple:
+    """Pairwise update of (count, mean, centred co-moment) summaries."""
+    na, ma, Ma = a
+    nb, mb, Mb = b
+    if na == 0:
+        return b
+    n = na + nb
+    d = mb - ma
+    return n, ma + d * (nb / n), Ma + Mb + (na * nb / n) * np.outer(d, d)
+
+
+def _row_squared_errors(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, rows: np.ndarray,
+                        fits: list[tuple[np.ndarray, np.ndarray, np.ndarray]],
+                        chunk_rows: int = 8192) -> tuple[int, np.ndarray, np.ndarray]:
+    """Count, sum and centred co-moment of every cell's squared error over ``rows``.
+
+    ``fits`` holds, per term set, ``(index into the full design (p,), training
+    means (p+1,) with the target last, beta_u (p, K))``; cells follow in
+    validation-table order. Rows are read in chunks, so only a (cells x cells)
+    matrix is kept, never rows x cells.
+    """
+    C = sum(b.shape[1] for _, _, b in fits)
+    acc: tuple = (0, np.zeros(C), np.zeros((C, C)))
+    for start in range(0, rows.size, chunk_rows):
+        r = rows[start:start + chunk_rows]
+        F = basis.expand(X[r])
+        cols = []
+        for idx, mt, bu in fits:
+            e = (y[r] - mt[-1])[:, None] - (F[:, idx] - mt[:-1]) @ bu
+            cols.append(e * e)
+        Z = np.hstack(cols)
+        mz = Z.mean(axis=0)
+        Zc = Z - mz
+        acc = _merge_moments(acc, (r.size, mz, Zc.T @ Zc))
+    n, mean, M = acc
+    return int(n), mean * n, M
 
 
 def split_summaries(stats: list[Moments], plan: FoldPlan) -> tuple[np.ndarray, ...]:
@@ -326,6 +423,9 @@ def sweep_summaries(summaries: tuple[np.ndarray, ...], term_sets: list[TermSet],
     families = tuple((str(f), float(r)) for f, r in families)
     res = _empty_result(term_sets, pen, families, S, description)
     res.n_train[:], res.n_valid[:] = n_t, n_v
+    res.statistics = summaries
+    one_split = S == 1 and all(np.asarray(ts.index).ndim == 1 for ts in term_sets)
+    res.row_fits = [] if one_split else None
     for i, ts in enumerate(term_sets):
         train = TermSummary.select(n_t, m_t, M_t, ts.index)
         valid = TermSummary.select(n_v, m_v, M_v, ts.index)
@@ -342,6 +442,8 @@ def sweep_summaries(summaries: tuple[np.ndarray, ...], term_sets: list[TermSet],
         res.coef_std[i][:] = fit.w_std.transpose(2, 0, 1)
         res.coef_raw[i][:] = fit.beta_raw.transpose(2, 0, 1)
         res.intercept_raw[i] = fit.intercept_raw.T
+        if res.row_fits is not None:
+            res.row_fits.append((np.asarray(ts.index), train.mean[0], fit.beta_u[0]))
         if progress:
             progress(0.8 + 0.2 * (i + 1) / len(term_sets), _fit_message(ts))
     return res
@@ -375,17 +477,20 @@ def _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress, desc) -> 
             "choose shuffled k-fold (for example 10 folds) or leave those families out.",
             code="loo_family")
     n = y.size
+    stats = piece_statistics(basis, X, y, np.zeros(n, dtype=np.int64), 1)
+    n_t, m_t, M_t = stats.n, stats.mean, stats.comoment      # one set: all rows
+    if pen.size == 0:
+        pen = np.asarray(data_penalties(n_t, m_t, M_t, A, a0, term_sets), float)
     res = _empty_result(term_sets, pen, families, 1, desc)
     res.loo = True
     res.loo_se = np.zeros((len(term_sets), pen.size))
-    stats = piece_statistics(basis, X, y, np.zeros(n, dtype=np.int64), 1)
-    n_t, m_t, M_t = stats.n, stats.mean, stats.comoment      # one set: all rows
     res.n_train[0], res.n_valid[0] = n - 1, 1
     F = basis.expand(X)
     Fc = F - m_t[0, :-1]
     yc = y - m_t[0, -1]
     sst = M_t[0, -1, -1]
     flagged = 0
+    per_row: list[np.ndarray] = []
     for i, ts in enumerate(term_sets):
         idx = np.asarray(ts.index)
         p = idx.size
@@ -409,6 +514,7 @@ def _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress, desc) -> 
         flagged = max(flagged, int(bad.any(axis=1).sum()))
         R = np.where(bad, np.nan, E / np.where(bad, 1.0, denom))
         sq = R * R
+        per_row.append(sq)
         res.valid_mse[i, :, 0] = np.nanmean(sq, axis=0)
         res.loo_se[i] = np.nanstd(sq, axis=0, ddof=1) / np.sqrt(np.sum(~bad, axis=0))
         res.valid_r2[i, :, 0] = 1.0 - np.nansum(sq, axis=0) / sst if sst > 0 else np.nan
@@ -419,6 +525,15 @@ def _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress, desc) -> 
         res.intercept_raw[i, :, 0] = fit.intercept_raw[0]
         if progress:
             progress((i + 1) / len(term_sets), "Leave-one-out, " + _fit_message(ts)[8:])
+    Z = np.hstack(per_row)
+    del per_row
+    clean = np.all(np.isfinite(Z), axis=1)
+    if clean.sum() > 1:
+        Z = Z[clean]
+        mz = Z.mean(axis=0)
+        Z -= mz
+        res.row_count, res.row_sum, res.row_comoment = int(Z.shape[0]), mz * Z.shape[0], Z.T @ Z
+    del Z
     if flagged:
         res.notes.append(f"{flagged} rows have leverage 1 for some model (the model passes "
                          "through them exactly); their leave-one-out error is undefined and "

@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 from sklearn.model_selection import GroupKFold, KFold
 
-from .analysis import Analysis, ArrayData, DataLike, analyse
+from .analysis import Analysis, ArrayData, DataLike, analyse, data_grid
 from .checks import single_threaded_blas
 from .compare import cell_label
 from .schemes import label_codes
@@ -198,6 +198,8 @@ def _nested_cv(data, spec, outer_folds, progress, analysis) -> NestedResult:
             progress(f, msg)
 
     full = analysis if analysis is not None else analyse(data, spec)
+    if not spec.penalties:      # a data-fitted range: every inner sweep starts from its grid
+        spec = replace(spec, penalties=full.spec.penalties)
     splits, desc = outer_splits(data, spec, outer_folds)
     X, y = np.asarray(data.X, float), np.asarray(data.y, float)
     rows = []
@@ -317,6 +319,8 @@ def _selection_stability(data, spec, resamples, method, seed, progress, block_le
     if R < 1:
         raise InputProblem(f"Use at least one resample (got {resamples}).", code="bad_method")
     seed = int(spec.seed if seed is None else seed)
+    if not spec.penalties:      # a data-fitted range: one starting grid for every resample
+        spec = replace(spec, penalties=data_grid(data, spec))
     kind = spec.scheme.kind
     notes: list[str] = []
     if method == "repeated" and kind not in ("kfold", "repeated"):

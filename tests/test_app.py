@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 from streamlit.testing.v1 import AppTest
 
-from engine import SchemeSpec, SweepSpec, analyse, default_penalties
+from engine import SchemeSpec, SweepSpec, analyse
 from engine import charts as C
 from engine.labels import CHARTS, TABLES, samples_per_parameter
 from engine.pack import build_pack, pack_zip_bytes
@@ -44,8 +44,7 @@ def _no_failures(at) -> None:
 def _engine_recommendation(path, target, inputs, scheme, max_order, order_column=None):
     table = load_table(path)
     data = prepare(table.frame, target, inputs, order_column=order_column)
-    spec = SweepSpec(target, tuple(inputs), max_order=max_order, scheme=scheme,
-                     penalties=default_penalties())
+    spec = SweepSpec(target, tuple(inputs), max_order=max_order, scheme=scheme)  # range from the data
     return analyse(data, spec).recommendation.recommended
 
 

@@ -59,7 +59,7 @@ def test_validation_curve_marks_cells_at_its_penalty(calibration):
     assert "°C²" in text  # unit read from the column name, squared for MSE
     svg = _check_outputs(chart)
     assert "Validation curve" in svg
-    other = [p for p in spec.penalties if p not in (rec.best.penalty, rec.recommended.penalty)][0]
+    other = [p for p in a.spec.penalties if p not in (rec.best.penalty, rec.recommended.penalty)][0]
     chart2 = C.validation_curve_chart(a.validation, other, rec.best, rec.recommended,
                                       "bath_temp_C", metric="rmse")
     text2 = _spec_text(chart2)

@@ -21,7 +21,7 @@ from engine.checks import (
 
 REPO = Path(__file__).resolve().parents[1]
 CHECK_CODES = {"target_leakage", "serial_dependence", "period_shift", "extrapolation", "high_leverage",
-               "few_samples_per_parameter", "ill_conditioned", "train_validation_gap"}
+               "few_samples_per_parameter", "ill_conditioned", "train_validation_gap", "range_edge"}
 
 
 # ---------------------------------------------------------------------------

@@ -214,12 +214,14 @@ def test_options_become_the_request(recorded, demo_dir, tmp_path, capsys):
     assert kw["source_name"] == "drifting_line_sensors.csv"
 
 
-def test_default_penalties_are_the_documented_grid(recorded, demo_dir, tmp_path, capsys):
+def test_default_penalties_follow_the_data(recorded, demo_dir, tmp_path, capsys):
     code, _, err = _call(["run", str(demo_dir / "calibration_curve.csv"), "--target",
                           "bath_temp_C", "--out", str(tmp_path / "o")], capsys)
     assert code == 0, err
     spec = recorded[0]["spec"]
-    assert spec.penalties == default_penalties(1e-4, 1e3, 15, include_zero=True)
+    # no --penalty-range: the range is fitted to the data (and widened at an edge)
+    assert spec.penalties == () and spec.penalty_range == "data"
+    assert spec.rule == "paired"
     assert spec.max_order == DEFAULT_MAX_ORDER and spec.scheme.kind == "kfold" and spec.scheme.folds == 5
     assert parse_penalty_range("1e-4:1e3:15") == (1e-4, 1e3, 15)
 

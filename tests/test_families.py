@@ -12,7 +12,7 @@ from sklearn.linear_model import ElasticNet, Lasso, lars_path
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import PolynomialFeatures, StandardScaler
 
-from engine import ArrayData, SchemeSpec, SweepSpec, analyse
+from engine import ArrayData, SchemeSpec, SweepSpec, analyse, default_penalties
 from engine.errors import InputProblem
 from engine.families import RawMap, TermSummary, fit_family
 from engine.families import lasso as lasso_family
@@ -174,9 +174,11 @@ def test_families_in_spec_records_and_validation():
 
 
 def test_ridge_rows_keep_their_meaning_with_families(curve_data):
-    base = SweepSpec("y", ("x",), max_order=3, scheme=SchemeSpec("kfold", folds=4))
+    # the same given penalties for both (a range fitted to the data is ridge-only)
+    base = SweepSpec("y", ("x",), max_order=3, scheme=SchemeSpec("kfold", folds=4),
+                     penalties=default_penalties())
     both = SweepSpec("y", ("x",), max_order=3, scheme=SchemeSpec("kfold", folds=4),
-                     families=("ridge", "lasso"))
+                     families=("ridge", "lasso"), penalties=default_penalties())
     a, b = analyse(curve_data, base), analyse(curve_data, both)
     ridge_rows = b.validation[b.validation["family"] == "ridge"].reset_index(drop=True)
     pd.testing.assert_frame_equal(ridge_rows, a.validation)

@@ -242,9 +242,10 @@ def test_bad_lag_requests_are_named():
 def test_view_is_the_plain_analysis_of_the_chosen_columns():
     # the recommended rung's cells equal a plain sweep on those columns (pandas-shift design)
     x, y = simulate_ar2(1, n=300)
+    # the unpaired rule picks target lags 2 here (the paired rule keeps 3: 0.0017 +- 0.0008)
     spec = SweepSpec("y", ("x",), orders=(1, 2), penalties=(0.0, 1.0),
                      scheme=SchemeSpec("blocked", folds=4, gap=3),
-                     lags=LagSpec(depths=(0, 3), target_depths=(0, 2, 3)))
+                     lags=LagSpec(depths=(0, 3), target_depths=(0, 2, 3)), rule="unpaired")
     a = analyse(ArrayData(x, y, ("x",), "y"), spec)
     v = a.view()
     assert v.spec.lags is None and v.spec.inputs == a.model_spec.inputs
@@ -272,12 +273,13 @@ def test_command_line_lags_and_two_targets_pack_and_record(tmp_path, capsys):
     code = main(["run", str(src), "--target", "y", "--more-targets", "z", "--inputs", "x",
                  "--order-column", "t", "--scheme", "blocked", "--folds", "4", "--gap", "3",
                  "--lags", "0-4", "--target-lags", "0-3", "--max-order", "1",
-                 "--penalties", "0,1", "--out", str(out)])
+                 "--penalties", "0,1", "--rule", "unpaired", "--out", str(out)])
     printed = capsys.readouterr().out
     assert code == 0, printed
     assert "input lags 3, target lags 2" in printed and "Target z:" in printed
     s = json.loads((out / "summary.json").read_text())
     assert s["recommended"]["lags"] == 3 and s["recommended"]["target_lags"] == 2
+    assert s["rule_name"] == "unpaired"     # the rule asked for is the rule recorded
     assert len(s["grid"]) == 5 * 4 * 2 * 2
     assert {"lags", "target_lags", "target", "order", "penalty", "validation_mse"} <= set(s["grid"][0])
     assert s["sweep"]["axes"]["lags"]["rows_left_out"] == 4

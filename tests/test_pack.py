@@ -127,6 +127,10 @@ def test_summary_json_carries_full_precision_numbers(demo_pack):
                 "effective_df"):
         assert s["recommended"][key] == getattr(rec, key)
         assert s["best"][key] == getattr(best, key)
+    # the record names the selection rule and the paired comparison behind the pick
+    assert s["rule_name"] == a.recommendation.rule_name == "paired"
+    assert s["recommended"]["paired_difference"] == rec.paired_difference
+    assert [c["near_best"] for c in s["grid"]] == a.validation["near_best"].tolist()
     assert s["coefficients"]["terms"] == list(res.model.terms)
     assert s["coefficients"]["terms"][:2] == ["intercept", "probe_mV"]
     assert s["coefficients"]["values"] == [float(v) for v in res.model.coefficients]
@@ -143,8 +147,10 @@ def test_nan_becomes_null(nasty_pack):
     text = (res.out_dir / "summary.json").read_text(encoding="utf-8")
     assert "NaN" not in text and "Infinity" not in text
     s = json.loads(text, parse_constant=_reject_constant)
-    # one holdout split: the standard error across splits does not exist
-    assert all(c["validation_mse_se"] is None for c in s["grid"])
+    # one holdout split: the training error has no spread across splits (NaN -> null),
+    # while the validation error's standard error comes from the held-out rows (never 0)
+    assert all(c["train_mse_se"] is None for c in s["grid"])
+    assert all(c["validation_mse_se"] > 0 for c in s["grid"])
     assert all(isinstance(c["validation_mse"], float) for c in s["grid"])
 
 

@@ -79,7 +79,7 @@ def test_streamed_file_gives_the_sweep_of_the_whole_table(kind, tmp_path):
     labels = row_folds(np.flatnonzero(keep), 5, 9)
     basis = PolynomialBasis.fit(X, ("a", "b"), 3)
     whole = run_sweep(X, y, basis, hashed_fold_plan(labels, 5, ""), [0, 1, 2, 3],
-                      spec.penalties)
+                      streamed.spec.penalties)      # the grid the streamed sweep ran
     np.testing.assert_allclose(streamed.sweep.valid_mse, whole.valid_mse, rtol=1e-9)
     np.testing.assert_allclose(streamed.sweep.train_mse, whole.train_mse, rtol=1e-9)
     assert 300 < stats.sample_y.size < 700

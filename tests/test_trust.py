@@ -7,7 +7,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from engine import ArrayData, InputProblem, SchemeSpec, SweepSpec, analyse
+from engine import ArrayData, InputProblem, SchemeSpec, SweepSpec, analyse, default_penalties
 from engine.trust import (
     moving_block_rows, nested_cv, outer_splits, selection_stability, subset,
 )
@@ -26,7 +26,9 @@ def table_1000():
 
 
 def _spec(kind="kfold", **kw):
-    return SweepSpec("y", ("a", "b"), max_order=4, scheme=SchemeSpec(kind, **kw))
+    # a given penalty grid, so every pick can be checked against it
+    return SweepSpec("y", ("a", "b"), max_order=4, scheme=SchemeSpec(kind, **kw),
+                     penalties=default_penalties())
 
 
 def _in_grid(spec, orders, penalties):
@@ -193,3 +195,14 @@ def test_subset_keeps_labels(table_1000):
     np.testing.assert_array_equal(s.order, [5.0, 3.0, 3.0])
     np.testing.assert_array_equal(s.y, table_1000.y[[5, 3, 3]])
     assert s.inputs == ("a", "b")
+
+
+def test_stability_with_a_data_fitted_range_keeps_one_starting_grid(table_1000):
+    spec = SweepSpec("y", ("a", "b"), max_order=2, scheme=SchemeSpec("kfold"))
+    res = selection_stability(table_1000, spec, resamples=3)
+    from engine.analysis import data_grid
+    grid = np.asarray(data_grid(table_1000, spec))
+    # the picks come from the grid fitted to all rows (widening adds values beyond it)
+    inside = res.chosen["penalty"].map(lambda a: np.isclose(grid, a, rtol=1e-12).any()
+                                       or a > grid.max() or 0 < a < grid[grid > 0].min())
+    assert inside.all()
