@@ -171,12 +171,15 @@ def _cell_outlook(curve: pd.DataFrame, folds: pd.DataFrame, factors, table_scale
         return out
     targets = {f: n[-1] * f for f in factors}
     split_preds = {f: [] for f in factors}
-    for _, g in folds.groupby("fold"):
+    by_split: dict = {f: {} for f in factors}
+    for fold, g in folds.groupby("fold"):
         g = g.sort_values("rows_used")
         sf = fit_power_law(g["rows_used"].to_numpy(float), g["validation_mse"].to_numpy(float))
         if sf is not None:
             for f in factors:
                 split_preds[f].append(float(sf(targets[f])))
+                by_split[f][int(fold)] = float(sf(targets[f]))
+    out["_by_split"] = by_split
     out.update({"a": fit.a, "b": fit.b, "floor": fit.c})
     for f in factors:
         mid = float(fit(targets[f]))
@@ -196,6 +199,29 @@ def _cell_outlook(curve: pd.DataFrame, folds: pd.DataFrame, factors, table_scale
         return out
     out["status"] = "fitted"
     return out
+
+
+def _supported_order(fitted: pd.DataFrame, f: float) -> int:
+    """The order a table ``f`` times larger would support: a paired one-standard-error rule.
+
+    Per split, each order's extrapolated error minus that of the order with
+    the lowest expected error (same validation rows, so the split-to-split
+    level cancels); the simplest order whose mean difference is within one
+    standard error of the differences.
+    """
+    col = f"error_at_{f:g}x"
+    best = fitted.sort_values(col).iloc[0]
+    ref = best["_by_split"][f]
+    for _, r in fitted.sort_values("order").iterrows():
+        if int(r["order"]) == int(best["order"]):
+            return int(r["order"])
+        common = sorted(set(ref) & set(r["_by_split"][f]))
+        if len(common) < 2:
+            continue
+        d = np.array([r["_by_split"][f][k] - ref[k] for k in common])
+        if d.mean() <= d.std(ddof=1) / np.sqrt(d.size):
+            return int(r["order"])
+    return int(best["order"])
 
 
 def rows_outlook(lc_folds: pd.DataFrame, lc_table: pd.DataFrame, recommended: tuple[int, float],
@@ -240,21 +266,17 @@ def rows_outlook(lc_folds: pd.DataFrame, lc_table: pd.DataFrame, recommended: tu
         rows.append({"order": q, "penalty": a, "recommended": (q, a) == (rq, ra),
                      **_cell_outlook(sel_t, sel_f, factors, 1.0)})
     table = pd.DataFrame(rows)
+    by_split = table.pop("_by_split") if "_by_split" in table else None
     rows_now = float(t.loc[t["train_size"] == largest, "rows_used"].mean())
     rec = table[table["recommended"]].iloc[0].to_dict() if len(table) else {}
     declined = not rec or rec.get("status") != "fitted"
     supported: dict = {}
     verdict: list[str] = []
     fitted = table[table["status"] == "fitted"] if len(table) else table
+    if by_split is not None:
+        fitted = fitted.assign(_by_split=by_split[fitted.index])
     for f in factors:
-        if declined or fitted.empty:
-            supported[f] = None
-            continue
-        col, hi = f"error_at_{f:g}x", f"high_at_{f:g}x"
-        best = fitted.sort_values(col).iloc[0]
-        # the simplest order whose expected error is within the best one's band
-        ok = fitted[fitted[col] <= best[hi]].sort_values("order")
-        supported[f] = int(ok.iloc[0]["order"])
+        supported[f] = None if declined or fitted.empty else _supported_order(fitted, f)
     if declined:
         why = rec.get("reason") if rec else "the recommended cell has no learning curve"
         verdict.append(f"No forecast of what more rows would bring: {why}.")
@@ -293,9 +315,28 @@ def rows_outlook(lc_folds: pd.DataFrame, lc_table: pd.DataFrame, recommended: tu
     notes = ["Fitted error(n) = a·n^(-b) + c to the mean validation error of each order's "
              "learning curve (at the recommended penalty for the recommended order, at each "
              "other order's best penalty); the band runs from the lowest to the highest "
-             "prediction of the same curve fitted to each split's own learning curve.",
+             "prediction of the same curve fitted to each split's own learning curve. The "
+             "order a larger table would support is the simplest whose extrapolated error, "
+             "split by split, is within one standard error of the lowest.",
              "An extrapolation assumes the new rows come from the same conditions as these; "
              "it is a guide for planning, not a promise."]
     return RowsOutlook(rows_now=rows_now, table_rows=int(table_rows), factors=factors,
                        table=table, recommended=rec, supported_order=supported,
                        declined=declined, verdict=verdict, notes=notes)
+
+
+def more_rows(analysis, data, spec=None, factors=FACTORS) -> RowsOutlook:
+    """`rows_outlook` for the recommended cell of ``analysis`` and every order of its request.
+
+    Runs `engine.analysis.learning_curve` on every order (one pass over the
+    rows per split).
+    """
+    from .analysis import learning_curve
+    spec = analysis.spec if spec is None else spec
+    data_w, spec_w = analysis.working(data, spec)
+    rec = analysis.recommendation.recommended
+    lc = learning_curve(data_w, spec_w)
+    out = rows_outlook(lc.folds, lc.table, (rec.order, rec.penalty), int(len(data_w.y)), factors)
+    if lc.note:
+        out.notes.append(lc.note)
+    return out

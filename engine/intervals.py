@@ -306,6 +306,7 @@ class ErrorInterval:
     se : standard error behind the width.
     naive_se : the naive standard error (per-row squared errors / sqrt(n)).
     folds, repeats : outer folds and repetitions.
+    rows : rows behind the estimate (validation rows for one split, all rows otherwise).
     notes : plain sentences.
     """
 
@@ -319,10 +320,11 @@ class ErrorInterval:
     naive_se: float
     folds: int
     repeats: int
+    rows: int = 0
     notes: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict:
-        return {"method": self.method, "level": self.level, "estimate": self.estimate,
+        return {"method": self.method, "rows": self.rows, "level": self.level, "estimate": self.estimate,
                 "low": self.low, "high": self.high, "cv_estimate": self.cv_estimate,
                 "se": self.se, "naive_se": self.naive_se, "folds": self.folds,
                 "repeats": self.repeats, "notes": list(self.notes)}
@@ -368,14 +370,13 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
         e = (y[va] - fits.predict(0, design.rows(va))) ** 2
         mean = float(e.mean())
         se = float(e.std(ddof=1) / math.sqrt(e.size)) if e.size > 1 else float("nan")
-        return ErrorInterval(
-            "validation rows", level, mean, float(max(mean - z * se, 0.0)), float(mean + z * se),
-            mean, se, se,
-            1, 1, [f"Mean of the {e.size} per-row squared errors on the validation rows of the "
-                   "model trained on the training rows, ± {:.0f}% normal interval from their "
-                   "standard error. It is the error of that model on those rows (for a time "
-                   "scheme: on the later period), not of a model refitted on all rows."
-                   .format(100 * level)])
+        note = (f"Mean of the {e.size} per-row squared errors on the validation rows of the "
+                "model trained on the training rows, with a {:.0f}% normal interval from their "
+                "standard error. It is the error of that model on those rows (for a time "
+                "scheme: on the later period), not of a model refitted on all rows."
+                .format(100 * level))
+        return ErrorInterval("validation rows", level, mean, float(max(mean - z * se, 0.0)),
+                             float(mean + z * se), mean, se, se, 1, 1, int(e.size), [note])
     k = int(folds or min(max(int(spec.scheme.folds), 2), 10))
     if kind == "loo":
         k = int(folds or min(10, n // 2))
@@ -424,7 +425,8 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
     # the width stays between the naive one and sqrt(K) times it (Bates et al., section 4)
     se = min(max(se, naive_se), math.sqrt(k) * naive_se)
     bias = (1.0 + (k - 2) / k) * (err_ncv - err_cv)
-    centre = err_ncv - bias
+    # the bias correction assumes exchangeable rows; contiguous blocks keep the plain estimate
+    centre = err_cv if kind == "blocked" else err_ncv - bias
     notes = [f"Nested cross-validation (Bates, Hastie and Tibshirani 2023): {k} outer folds"
              + (f", repeated {R} times with fresh shuffles" if R > 1 else "")
              + f"; the model is the fixed cell, refitted in every fold. Plain cross-validation "
@@ -432,13 +434,14 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
              f"estimate of its spread is {se:.2g}."]
     if kind == "blocked":
         notes.append("Folds are contiguous blocks in row order with the scheme's gap; the "
-                     "method assumes rows are exchangeable, so with serial dependence the "
-                     "interval is a rough guide.")
+                     "method assumes rows are exchangeable, so the interval is centred on the "
+                     "plain estimate without the bias correction, and with serial dependence "
+                     "it is a rough guide.")
     if progress:
         progress(1.0, "Nested cross-validation done")
     return ErrorInterval("nested cross-validation", level, float(centre),
                          float(max(centre - z * se, 0.0)), float(centre + z * se), err_cv,
-                         float(se), naive_se, k, R, notes)
+                         float(se), naive_se, k, R, int(n), notes)
 
 
 # ---------------------------------------------------------------------------
@@ -623,3 +626,84 @@ def _slice(f: SetFits, s) -> tuple:
         As, ds, Q, lam = f.lev_raw
         lev_raw = (As[sl], ds[sl], Q[sl], lam[sl])
     return summ, f.beta_u[sl], f.edf[sl], f.sse[sl], cut(f.lev_u), lev_raw
+
+
+# ---------------------------------------------------------------------------
+# public entry point for the recommended cell
+# ---------------------------------------------------------------------------
+@dataclass
+class HowSure:
+    """The error interval and prediction intervals of the recommended cell.
+
+    Attributes
+    ----------
+    order, penalty, label : the cell.
+    error : `ErrorInterval`.
+    prediction : `PredictionIntervals`.
+    """
+
+    order: int
+    penalty: float
+    label: str
+    error: ErrorInterval
+    prediction: PredictionIntervals
+
+    def sentences(self) -> list[str]:
+        """Plain sentences for the page and the pack."""
+        e, p = self.error, self.prediction
+        lvl = f"{100 * e.level:.0f}%"
+        if e.method == "nested cross-validation":
+            first = (f"Error of this model on new rows like these: MSE {e.estimate:.4g}, "
+                     f"{lvl} interval {e.low:.4g} to {e.high:.4g} (nested cross-validation).")
+        else:
+            first = (f"Error on the validation rows: MSE {e.estimate:.4g}, {lvl} interval "
+                     f"{e.low:.4g} to {e.high:.4g} (from the {e.rows:,} per-row errors).")
+        where = "later-period" if p.checked_on == "later period" else "validation"
+        second = (f"{100 * p.level:.0f}% prediction intervals held for "
+                  + (f"{100 * p.analytic_coverage:.0f}% (analytic, median width "
+                     f"{p.analytic_width:.3g}) and " if p.analytic_coverage is not None else "")
+                  + f"{100 * p.cvplus_coverage:.0f}% (CV+, median width {p.cvplus_width:.3g}) "
+                  f"of {p.checked_rows:,} {where} rows they never saw.")
+        return [first, second]
+
+    def to_dict(self) -> dict:
+        return {"order": self.order, "penalty": self.penalty, "cell": self.label,
+                "error_interval": self.error.to_dict(),
+                "prediction_intervals": self.prediction.to_dict(),
+                "summary": self.sentences()}
+
+
+def how_sure(analysis, data, spec: SweepSpec | None = None, level: float = LEVEL,
+             progress: Progress | None = None) -> HowSure:
+    """Error interval and prediction intervals of the recommended cell of ``analysis``.
+
+    Parameters
+    ----------
+    analysis : a finished `engine.analysis.Analysis`.
+    data : the prepared data it was run on.
+    spec : the request (default: the analysis's).
+    level : nominal coverage of every interval.
+    progress : called as ``progress(fraction_done, message)``.
+
+    Returns
+    -------
+    HowSure
+    """
+    spec = analysis.spec if spec is None else spec
+    data_w, spec_w = analysis.working(data, spec)
+    rec = analysis.recommendation.recommended
+    family = str(getattr(rec, "family", None) or "ridge")
+    l1 = float(getattr(rec, "l1_ratio", None) or 0.0)
+    try:
+        err = error_interval(data_w, spec_w, rec.order, rec.penalty, level, family=family,
+                             l1_ratio=l1, progress=progress)
+        pred = prediction_intervals(data_w, spec_w, rec.order, rec.penalty, level,
+                                    family=family, l1_ratio=l1)
+    except InputProblem:
+        raise
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        raise InputProblem(f"The intervals could not be computed: {exc}",
+                           code="intervals_failed") from exc
+    from .labels import cell_text
+    return HowSure(int(rec.order), float(rec.penalty), cell_text(rec.order, rec.penalty),
+                   err, pred)
