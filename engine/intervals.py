@@ -707,3 +707,51 @@ def how_sure(analysis, data, spec: SweepSpec | None = None, level: float = LEVEL
     from .labels import cell_text
     return HowSure(int(rec.order), float(rec.penalty), cell_text(rec.order, rec.penalty),
                    err, pred)
+
+
+def band_table(sure: HowSure, data, extend: float = 0.25, points: int = 241,
+               sample: int = 2000) -> pd.DataFrame:
+    """The prediction band of the recommended model, for the side-by-side chart.
+
+    With one input: the intervals along a grid reaching a quarter of the range
+    past the data (as `engine.compare.curve_table`), ``x`` the input. With
+    several inputs: a band about the line of perfect agreement, ``x`` the
+    actual value and the bounds the median lower and upper offsets of the
+    intervals at the data rows (a seeded sample of at most ``sample`` rows).
+
+    Returns
+    -------
+    DataFrame with ``x``, ``cvplus_low``, ``cvplus_high``, ``analytic_low``,
+    ``analytic_high``, ``model`` (the cell's label) and ``layout``
+    (``'curve'`` or ``'diagonal'``).
+    """
+    p = sure.prediction
+    X = np.asarray(data.X, float)
+    if X.ndim == 1:
+        X = X[:, None]
+    y = np.asarray(data.y, float)
+    if X.shape[1] == 1:
+        lo, hi = float(X[:, 0].min()), float(X[:, 0].max())
+        span = hi - lo if hi > lo else max(abs(lo), 1.0)
+        grid = np.unique(np.r_[np.linspace(lo - extend * span, hi + extend * span, points), lo, hi])
+        b = p.bounds(grid)
+        out = pd.DataFrame({"x": grid, "cvplus_low": b["cvplus_low"],
+                            "cvplus_high": b["cvplus_high"], "analytic_low": b["analytic_low"],
+                            "analytic_high": b["analytic_high"], "layout": "curve"})
+    else:
+        rows = _sample(np.arange(y.size), sample, np.random.default_rng(0))
+        b = p.bounds(X[rows])
+        pred = b["prediction"].to_numpy()
+        grid = np.linspace(float(y.min()), float(y.max()), 2)
+
+        def off(col):
+            v = b[col].to_numpy() - pred
+            return float(np.median(v)) if np.all(np.isfinite(v)) else np.nan
+        # actual in [predicted + low offset, predicted + high offset], drawn with the
+        # predicted value on the vertical axis: predicted in [actual - high, actual - low]
+        out = pd.DataFrame({"x": grid, "cvplus_low": grid - off("cvplus_high"),
+                            "cvplus_high": grid - off("cvplus_low"),
+                            "analytic_low": grid - off("analytic_high"),
+                            "analytic_high": grid - off("analytic_low"), "layout": "diagonal"})
+    out["model"] = sure.label
+    return out
