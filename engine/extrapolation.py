@@ -4,7 +4,7 @@ For each cell the mean validation error along the learning curve is fitted by
 ``error(n) = a * n^(-b) + c`` (``a, c >= 0``, ``0.05 <= b <= 3``; ``c`` is
 the error no number of rows removes, ``a n^-b`` the part more rows shrink), a
 common model of learning curves. For fixed ``b`` the curve is linear in
-``(a, c)``, solved by non-negative least squares; ``b`` is found by a grid
+``(a, c)``, solved by least squares with both bounds; ``b`` is found by a grid
 search refined by a bounded scalar minimisation (deterministic, no starting
 values). Points are weighted by their standard errors. The same curve fitted
 to each split's own learning curve gives the band: from the lowest to the
@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy.optimize import minimize_scalar, nnls
+from scipy.optimize import minimize_scalar
 
 B_RANGE = (0.05, 3.0)
 FACTORS = (2.0, 5.0)
@@ -40,10 +40,38 @@ class PowerLaw:
         return self.a * np.asarray(n, float) ** (-self.b) + self.c
 
 
-def _solve_ac(n: np.ndarray, e: np.ndarray, w: np.ndarray, b: float) -> tuple[float, float, float]:
-    A = np.column_stack([n ** (-b), np.ones_like(n)]) * w[:, None]
-    coef, rnorm = nnls(A, e * w)
-    return float(coef[0]), float(coef[1]), float(rnorm ** 2)
+def _solve_ac(n: np.ndarray, e: np.ndarray, w: np.ndarray, b) -> tuple[np.ndarray, ...]:
+    """Weighted least squares of ``e`` on ``[n^-b, 1]`` with ``a, c >= 0``, for each ``b``.
+
+    Two unknowns: the unconstrained solution of the 2 x 2 normal equations,
+    or, when it breaks a bound, the better of the two one-variable fits
+    (``a = 0`` or ``c = 0``). Returns ``(a, c, rss)`` with the shape of ``b``.
+    """
+    b = np.atleast_1d(np.asarray(b, float))
+    X = n[None, :] ** (-b[:, None])             # (G, m)
+    w2 = w * w
+    sxx = (w2 * X * X).sum(axis=1)
+    sx = (w2 * X).sum(axis=1)
+    s1 = w2.sum()
+    sxe = (w2 * X * e).sum(axis=1)
+    se_ = (w2 * e).sum()
+    det = sxx * s1 - sx * sx
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a = np.where(det > 0, (sxe * s1 - sx * se_) / det, -1.0)
+        c = np.where(det > 0, (sxx * se_ - sx * sxe) / det, -1.0)
+    ok = (a >= 0) & (c >= 0)
+    a_only = np.clip(np.where(sxx > 0, sxe / np.where(sxx > 0, sxx, 1.0), 0.0), 0, None)
+    c_only = max(se_ / s1, 0.0)
+
+    def rss(a_, c_):
+        r = (e[None, :] - a_[:, None] * X - c_[:, None]) * w[None, :]
+        return (r * r).sum(axis=1)
+    r_full = np.where(ok, rss(np.where(ok, a, 0.0), np.where(ok, c, 0.0)), np.inf)
+    r_a = rss(a_only, np.zeros_like(a_only))
+    r_c = rss(np.zeros_like(a_only), np.full_like(a_only, c_only))
+    best_a = np.where(ok, a, np.where(r_a <= r_c, a_only, 0.0))
+    best_c = np.where(ok, c, np.where(r_a <= r_c, 0.0, c_only))
+    return best_a, best_c, np.minimum(r_full, np.minimum(r_a, r_c))
 
 
 def fit_power_law(n, error, se=None) -> PowerLaw | None:
@@ -76,16 +104,16 @@ def fit_power_law(n, error, se=None) -> PowerLaw | None:
     scale = float(np.max(np.abs(e))) or 1.0
     e_s = e / scale
     grid = np.linspace(*B_RANGE, 120)
-    rss = np.array([_solve_ac(n, e_s, w, b)[2] for b in grid])
+    rss = _solve_ac(n, e_s, w, grid)[2]
     i = int(np.argmin(rss))
     lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
     if hi > lo:
-        res = minimize_scalar(lambda b: _solve_ac(n, e_s, w, b)[2], bounds=(lo, hi),
+        res = minimize_scalar(lambda b: float(_solve_ac(n, e_s, w, b)[2][0]), bounds=(lo, hi),
                               method="bounded", options={"xatol": 1e-6})
         b = float(res.x) if res.fun <= rss[i] else float(grid[i])
     else:
         b = float(grid[i])
-    a, c, r = _solve_ac(n, e_s, w, b)
+    a, c, r = (float(v[0]) for v in _solve_ac(n, e_s, w, b))
     return PowerLaw(a * scale, b, c * scale, r * scale ** 2)
 
 
@@ -225,7 +253,8 @@ def _supported_order(fitted: pd.DataFrame, f: float) -> int:
 
 
 def rows_outlook(lc_folds: pd.DataFrame, lc_table: pd.DataFrame, recommended: tuple[int, float],
-                 table_rows: int, factors=FACTORS) -> RowsOutlook:
+                 table_rows: int, factors=FACTORS,
+                 cells: list[tuple[int, float]] | None = None) -> RowsOutlook:
     """Expected validation error at more rows, per order, and what order they would support.
 
     Parameters
@@ -236,6 +265,9 @@ def rows_outlook(lc_folds: pd.DataFrame, lc_table: pd.DataFrame, recommended: tu
     table_rows : rows of the table now (the factors multiply the rows; each
         split's training set grows in proportion).
     factors : multiples of the rows to look at.
+    cells : the (order, penalty) cells to carry forward (default: the
+        recommended cell and, for every other order, its penalty with the
+        lowest validation error at the largest learning-curve size).
 
     Returns
     -------
@@ -247,13 +279,17 @@ def rows_outlook(lc_folds: pd.DataFrame, lc_table: pd.DataFrame, recommended: tu
     rows_used = lc_folds.groupby(["order", "penalty", "train_size"])["rows_used"].mean()
     t = t.join(rows_used, on=["order", "penalty", "train_size"])
     largest = t["train_size"].max()
-    cells = []
+    picked, cells = cells, []
     for q, g in t[t["train_size"] == largest].groupby("order"):
+        if picked is not None:
+            break
         if q == rq:
             cells.append((rq, ra))
         else:
             r = g.sort_values(["validation_mse", "penalty"], ascending=[True, False]).iloc[0]
             cells.append((int(q), float(r["penalty"])))
+    if picked is not None:
+        cells = [(int(q), float(a)) for q, a in picked]
     if (rq, ra) not in cells:
         cells.append((rq, ra))
     rows = []
@@ -313,8 +349,8 @@ def rows_outlook(lc_folds: pd.DataFrame, lc_table: pd.DataFrame, recommended: tu
                        f"More rows would lower the error by about {100 * share:.0f}% at "
                        f"{top:g}x the rows.")
     notes = ["Fitted error(n) = a·n^(-b) + c to the mean validation error of each order's "
-             "learning curve (at the recommended penalty for the recommended order, at each "
-             "other order's best penalty); the band runs from the lowest to the highest "
+             "learning curve (at the recommended penalty for the recommended order, at the "
+             "penalty with the lowest validation error for each other order); the band runs from the lowest to the highest "
              "prediction of the same curve fitted to each split's own learning curve. The "
              "order a larger table would support is the simplest whose extrapolated error, "
              "split by split, is within one standard error of the lowest.",
@@ -331,12 +367,25 @@ def more_rows(analysis, data, spec=None, factors=FACTORS) -> RowsOutlook:
     Runs `engine.analysis.learning_curve` on every order (one pass over the
     rows per split).
     """
+    from dataclasses import replace
+
     from .analysis import learning_curve
     spec = analysis.spec if spec is None else spec
     data_w, spec_w = analysis.working(data, spec)
     rec = analysis.recommendation.recommended
-    lc = learning_curve(data_w, spec_w)
-    out = rows_outlook(lc.folds, lc.table, (rec.order, rec.penalty), int(len(data_w.y)), factors)
+    # per order, the penalty the sweep found best (the recommended one for its order):
+    # the learning curve then runs only at those penalties
+    t = analysis.at_rung()
+    cells = [(int(rec.order), float(rec.penalty))]
+    for q, g in t.groupby("order"):
+        if int(q) != int(rec.order):
+            r = g.sort_values(["validation_mse", "penalty"], ascending=[True, False]).iloc[0]
+            cells.append((int(q), float(r["penalty"])))
+    pens = tuple(sorted({a for _, a in cells}))
+    lc = learning_curve(data_w, replace(spec_w, penalties=pens),
+                        orders=sorted({q for q, _ in cells}))
+    out = rows_outlook(lc.folds, lc.table, (rec.order, rec.penalty), int(len(data_w.y)), factors,
+                       cells=cells)
     if lc.note:
         out.notes.append(lc.note)
     return out
