@@ -1397,7 +1397,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     overwrite : replace the pack files of a folder that holds other files too
         (those are kept).
     sure : ``(HowSure or None, RowsOutlook or None, notes)`` as `sureness`
-        returns it, already computed for this analysis; computed when None.
+        returns it (or a future of it), already computed for this analysis;
+        computed when None.
 
     Returns
     -------
@@ -1464,6 +1465,11 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             lc = learning_curve(data, analysis.spec, orders=lc_orders)
         if progress:
             progress(0.66, "Intervals and the larger-table outlook")
+        if sure is not None and hasattr(sure, "result"):  # the page's background job
+            try:
+                sure = sure.result()
+            except Exception:  # noqa: BLE001 - computed here instead
+                sure = None
         sure, outlook, sure_notes = sure if sure is not None else sureness(analysis, data,
                                                                             analysis.spec)
         band = None
