@@ -29,6 +29,7 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
+from dashboard.how_sure import band_for, how_sure_panel, sureness
 from engine import (SCHEME_HELP, InputProblem, SchemeSpec, SweepSpec, analyse,
                     default_penalties, learning_curve)
 from engine import charts as C
@@ -900,6 +901,7 @@ def pack_request(loaded, source_name: str, data, analysis, spec: SweepSpec,
     return dict(loaded=loaded, source_name=source_name, data=data, spec=spec,
                 analysis=analysis, checks=pending, compare_orders=list(cells),
                 models=fits, learning=lc, trust=(nested, stab),
+                sure=run_once(("sureness", analysis_key), sureness, work_data, view),
                 load_options={"decimal": "," if getattr(loaded.report, "decimal", ".") == ","
                               else None, "sheet": None})
 
@@ -910,7 +912,7 @@ def pack_zip(request: dict) -> bytes:
 
     def build() -> bytes:
         kw = dict(request)
-        for k in ("checks", "models", "learning"):  # futures of the page's background work
+        for k in ("checks", "models", "learning", "sure"):  # the page's background work
             if isinstance(kw.get(k), Future):
                 try:
                     kw[k] = kw[k].result()
@@ -1034,7 +1036,10 @@ def tab_compare(analysis_key: str, data, analysis, target: str) -> list[int]:
     cells = compare_cells(analysis)
     models = wait_for(start_fits(analysis_key, data, analysis, cells),
                       "Fitting the chosen orders on all rows…")
-    chart = roomy(C.comparison_chart(data, models, target), 800, 420)
+    band = guarded("drawing the prediction band", band_for,
+                   wait_for(run_once(("sureness", analysis_key), sureness, data, analysis),
+                            "Computing prediction intervals…"), data, analysis, models)
+    chart = roomy(C.comparison_chart(data, models, target, band=band), 800, 420)
     chart_block(chart, "order_comparison")
     st.caption("Fitted on all rows and drawn in-sample: a model that reproduces every row "
                "here can still fail on rows it never saw; the validation curve is the judge.")
@@ -1242,6 +1247,9 @@ def main() -> None:
     # replaces the previous data set's warnings at once (they would stay, greyed, until
     # the new checks finish)
     warn_slot.caption("Checking data and fit for warning signs…")
+    sure_job = guarded("starting the intervals", run_once, ("sureness", analysis_key),
+                       sureness, data, analysis)
+    sure_slot = st.empty()
     guarded("checking the choice", trust_panel, data, analysis, analysis_key)
     tabs = st.tabs([CHARTS["validation_curve"], CHARTS["order_penalty_heatmap"],
                     CHARTS["learning_curve"], CHARTS["order_comparison"],
@@ -1270,6 +1278,11 @@ def main() -> None:
     else:
         warn_slot.empty()
     mark("checks")
+    if sure_job is not None:
+        with sure_slot.container():
+            guarded("showing how sure", how_sure_panel,
+                    wait_for(sure_job, "Computing intervals and the larger-table outlook…"),
+                    table_download)
     with st.sidebar:
         st.subheader("5 · Meeting pack")
         request = guarded("preparing the pack", pack_request, loaded, name, data_all, full,

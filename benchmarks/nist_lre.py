@@ -38,7 +38,7 @@ def main() -> int:
         worst = min(worst, float(lre.min()))
         print(f"{name:9s} coefficients {len(ref):2d}  min LRE {lre.min():5.1f}  "
               f"condition number {m.condition_number:.3g}")
-    print(f"min_lre {worst:.1f}")
+    print(f"min_lre {worst:.1f} (required >= 10 on every set: {'pass' if worst >= 10 else 'FAIL'})")
     return 0
 
 

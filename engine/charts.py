@@ -598,10 +598,37 @@ def _segments(curves: pd.DataFrame, lo: float, hi: float) -> pd.DataFrame:
     return pd.concat(parts, ignore_index=True)
 
 
+def _band_note(band: pd.DataFrame) -> str:
+    where = ("about the line of perfect agreement (median interval offsets)"
+             if band["layout"].iloc[0] == "diagonal" else "")
+    dotted = "; dotted: analytic interval" if band["analytic_low"].notna().any() else ""
+    return (f"Band: prediction interval (CV+) of {band['model'].iloc[0]}"
+            + (f" {where}" if where else "") + dotted + ".")
+
+
+def _band_layers(band: pd.DataFrame, xscale, yscale, order: list[str], ylo: float,
+                 yhi: float) -> list:
+    """Shaded CV+ band and dotted analytic bounds, clipped to the plotted range."""
+    colour = MODEL_COLOURS[order.index(band["model"].iloc[0]) % len(MODEL_COLOURS)]
+    b = band.copy()
+    for c in ("cvplus_low", "cvplus_high", "analytic_low", "analytic_high"):
+        b[c] = b[c].clip(ylo, yhi)
+    out = [alt.Chart(b).mark_area(opacity=0.16, color=colour).encode(
+        x=alt.X("x:Q", scale=xscale), y=alt.Y("cvplus_low:Q", scale=yscale),
+        y2="cvplus_high:Q")]
+    if b["analytic_low"].notna().any():
+        for c in ("analytic_low", "analytic_high"):
+            out.append(alt.Chart(b).mark_line(color=colour, strokeDash=[2, 2], strokeWidth=1,
+                                              opacity=0.9).encode(
+                x=alt.X("x:Q", scale=xscale), y=alt.Y(f"{c}:Q", scale=yscale)))
+    return out
+
+
 def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
                      target: str = "y", *, units: str | None = None,
                      input_units: str | None = None,
-                     scatter_limit: int = SCATTER_LIMIT) -> alt.TopLevelMixin:
+                     scatter_limit: int = SCATTER_LIMIT,
+                     band: pd.DataFrame | None = None) -> alt.TopLevelMixin:
     """Candidate models side by side.
 
     With one input: the data as points, each model's fitted curve over them,
@@ -614,6 +641,11 @@ def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
 
     Tables with more than ``scatter_limit`` rows are drawn from a random
     sample of rows (fixed seed), said in the subtitle; the curves use all rows.
+
+    ``band`` (`engine.intervals.band_table`) adds the recommended model's
+    prediction intervals: the CV+ interval shaded, the analytic one dotted —
+    along the curve with one input, about the line of perfect agreement in the
+    model's own panel with several.
     """
     if not models:
         raise ValueError("comparison_chart needs at least one model")
@@ -664,8 +696,12 @@ def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
             tooltip=[alt.Tooltip("model:N"), alt.Tooltip("x:Q", title=xtitle, format=".4g"),
                      alt.Tooltip("prediction:Q", title=f"predicted {tname}", format=".4g"),
                      alt.Tooltip("inside:N", title="inside training range")])
-        # data points drawn last, above the fitted curves
-        chart = alt.layer(shade, curve, scatter).properties(
+        # data points drawn last, above the fitted curves and the band
+        layers = [shade]
+        if band is not None and not band.empty and band["model"].iloc[0] in order:
+            layers += _band_layers(band, xscale, yscale, order, ylo, yhi)
+            notes.append(_band_note(band))
+        chart = alt.layer(*layers, curve, scatter).properties(
             width=_WIDTH + 60, height=_HEIGHT + 40,
             title=_title("Fitted curves over the data", notes))
         return _finish(chart)
@@ -701,7 +737,12 @@ def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
         line = alt.Chart(ident).mark_line(color=PALETTE["ink"], strokeDash=[4, 3],
                                           strokeWidth=1).encode(
             x=alt.X("a:Q", scale=ascale), y=alt.Y("b:Q", scale=ascale))
-        top_panels.append(alt.layer(line, pv).properties(width=w, height=w, title=m))
+        extra = []
+        if band is not None and not band.empty and band["model"].iloc[0] == m:
+            extra = _band_layers(band, ascale, ascale, order, lo, hi)
+            if _band_note(band) not in notes:
+                notes.append(_band_note(band))
+        top_panels.append(alt.layer(*extra, line, pv).properties(width=w, height=w, title=m))
         rv = alt.Chart(sub).mark_circle(size=22, opacity=0.6).encode(
             x=alt.X("prediction:Q", title=f"predicted {tname}", scale=pscale),
             y=alt.Y("residual:Q", title="residual (actual minus predicted)", scale=rscale),

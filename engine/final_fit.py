@@ -2,8 +2,10 @@
 
 Without a penalty the least-squares problem is solved by QR on products of
 Chebyshev polynomials of the scaled inputs (a well-conditioned basis), refined
-with residuals in extended precision, and mapped back to powers of the raw
-inputs in exact rational arithmetic. With a penalty the ridge problem on
+with residuals in extended precision (corrected semi-normal equations, scaled
+inputs and design formed in extended precision), carried as an unevaluated sum
+of doubles, and mapped back to powers of the raw inputs in exact rational
+arithmetic. With a penalty the ridge problem on
 standardised raw terms is solved as an augmented least-squares problem by SVD.
 """
 from __future__ import annotations
@@ -13,6 +15,7 @@ from fractions import Fraction
 from math import comb
 
 import numpy as np
+from scipy.linalg import solve_triangular
 
 from .design import PolynomialBasis, chebyshev_columns, chebyshev_table
 from .errors import InputProblem
@@ -161,8 +164,13 @@ def _chebyshev_design(U: np.ndarray, exponents: np.ndarray, dtype=float) -> np.n
 
 
 def _lstsq_refined(V: np.ndarray, y: np.ndarray, V_ext: np.ndarray, y_ext: np.ndarray,
-                   steps: int = 3) -> tuple[np.ndarray, int]:
-    """Least squares by QR on column-scaled V, refined with extended-precision residuals."""
+                   steps: int = 4) -> tuple[list[Fraction], int]:
+    """Least squares by QR on column-scaled V, refined with extended-precision residuals.
+
+    The solution is carried as the unevaluated sum of the first solve and each
+    refinement step (every part a double), and returned as exact fractions, so
+    the refined digits beyond double precision survive the map to raw powers.
+    """
     norms = np.linalg.norm(V, axis=0)
     norms = np.where(norms > 0, norms, 1.0)
     Vs = V / norms
@@ -171,12 +179,22 @@ def _lstsq_refined(V: np.ndarray, y: np.ndarray, V_ext: np.ndarray, y_ext: np.nd
     rank = int(np.sum(diag > diag.max() * max(V.shape) * np.finfo(float).eps))
     if rank < V.shape[1]:
         g, *_ = np.linalg.lstsq(Vs, y, rcond=None)
-        return g / norms, rank
-    g = np.linalg.solve(R, Q.T @ y)
+        return [Fraction(float(v)) / Fraction(float(s)) for v, s in zip(g, norms)], rank
+    parts = [solve_triangular(R, Q.T @ y)]
+    g_ext = parts[0].astype(V_ext.dtype)
+    Vs_ext = V_ext / norms.astype(V_ext.dtype)
     for _ in range(steps):
-        r = (y_ext - V_ext @ (g / norms).astype(V_ext.dtype)).astype(float)
-        g = g + np.linalg.solve(R, Q.T @ r)
-    return g / norms, rank
+        # corrected semi-normal equations: the normal-equation residual Vs' r is formed
+        # in extended precision (Q' r would carry Q's rounding times the large
+        # residual of an inconsistent system), then R'R step = Vs' r
+        r = y_ext - Vs_ext @ g_ext
+        rhs = (Vs_ext.T @ r).astype(float)
+        step = solve_triangular(R, solve_triangular(R, rhs, trans="T"))
+        parts.append(step)
+        g_ext = g_ext + step.astype(V_ext.dtype)
+    exact = [sum((Fraction(float(pt[t])) for pt in parts), Fraction(0)) / Fraction(float(norms[t]))
+             for t in range(V.shape[1])]
+    return exact, rank
 
 
 def _too_large(order: int) -> InputProblem:
@@ -330,13 +348,16 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
     ybar = float(np.mean(y))
     if penalty == 0 or p == 0:
         V = _chebyshev_design(U, E)
-        V_ext = _chebyshev_design(U.astype(np.longdouble), E, dtype=np.longdouble)
+        # the scaled inputs themselves in extended precision: u = (x - c) / h rounded
+        # to double would be a different design from the one the exact map assumes
+        U_ext = ((X.astype(np.longdouble) - basis.centre.astype(np.longdouble))
+                 / basis.half_range.astype(np.longdouble))
+        V_ext = _chebyshev_design(U_ext, E, dtype=np.longdouble)
         g, rank = _lstsq_refined(V, y, V_ext, y.astype(np.longdouble))
         if rank < p + 1:
             notes.append(f"The design has rank {rank} for {p + 1} parameters: some terms are "
                          "exact combinations of others; the minimum-norm solution is reported.")
-        poly_u = _chebyshev_to_monomials(np.vstack([np.zeros((1, d), int), E]),
-                                         [Fraction(float(v)) for v in g])
+        poly_u = _chebyshev_to_monomials(np.vstack([np.zeros((1, d), int), E]), g)
         edf = float(min(rank, n))
     else:
         if family == "ridge":

@@ -215,6 +215,8 @@ TABLES = {
     "model_coefficients": "Model coefficients",
     "nested_cv": "Nested cross-validation",
     "selection_stability": "Selection stability",
+    "interval_coverage": "Prediction-interval coverage per split",
+    "more_rows": "What more rows would buy, per order",
 }
 
 #: Options: request field -> (page label, command-line flag).
@@ -317,6 +319,23 @@ COLUMNS = {
     "paired_difference_se": "Difference from best ± SE",
     "near_best": "Indistinguishable from best",
     "side": "Edge",
+    "split": "Split",
+    "training_rows": "Training rows",
+    "checked_rows": "Rows checked",
+    "cvplus_coverage": "Share inside CV+ interval",
+    "analytic_coverage": "Share inside analytic interval",
+    "status": "Forecast",
+    "reason": "Why not",
+    "error_now": "Validation MSE now",
+    "error_at_2x": "Expected MSE at 2x rows",
+    "low_at_2x": "Band low at 2x",
+    "high_at_2x": "Band high at 2x",
+    "error_at_5x": "Expected MSE at 5x rows",
+    "low_at_5x": "Band low at 5x",
+    "high_at_5x": "Band high at 5x",
+    "a": "Curve a",
+    "b": "Curve b (decay)",
+    "floor": "Curve floor c",
 }
 
 #: Axes of a grid (validation-table column -> axis title in charts and page).

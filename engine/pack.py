@@ -61,7 +61,7 @@ PACK_FILES = (
     "summary.html", "summary.md", "summary.json", "record.json",
     *[f"{stem}.{ext}" for stem in CHART_FILES for ext in ("png", "svg")],
     "validation_grid.csv", "learning_curve.csv", "coefficients.csv", "warnings.csv",
-    "model_coefficients.csv", "model.skops",
+    "model_coefficients.csv", "interval_coverage.csv", "more_rows.csv", "model.skops",
 )
 
 #: several targets: the side-by-side table at the top of the pack
@@ -740,7 +740,8 @@ def learning_cells(cells: list[tuple[int, float]]) -> list[tuple[int, float]]:
 
 
 def make_charts(analysis: Analysis, lc_table: pd.DataFrame, models: dict, data: DataLike,
-                cells: list[tuple[int, float]], lc_note: str = "") -> dict:
+                cells: list[tuple[int, float]], lc_note: str = "",
+                band: pd.DataFrame | None = None) -> dict:
     """Altair charts of the pack, keyed by the stems of `CHART_FILES`."""
     from . import charts
 
@@ -754,7 +755,7 @@ def make_charts(analysis: Analysis, lc_table: pd.DataFrame, models: dict, data: 
         "order_penalty_heatmap": charts.heatmap_chart(analysis.validation, best, rec, target),
         "learning_curve": charts.learning_curve_chart(lc_table, learning_cells(cells), target,
                                                       note=lc_note),
-        "order_comparison": charts.comparison_chart(data, models, target),
+        "order_comparison": charts.comparison_chart(data, models, target, band=band),
         "coefficient_magnitudes": charts.coefficient_chart(coef, rec.order, rec.penalty),
     }
 
@@ -903,7 +904,8 @@ def render_markdown(s: dict) -> str:
         lines += [f"| {md_escape(t)} | {v!r} |" for t, v in zip(co["terms"], co["values"])]
     else:
         lines.append(f"{len(co['terms'])} coefficients: see model_coefficients.csv.")
-    lines += ["", "## Warnings", ""]
+    lines += [""] + _sureness_md(s)
+    lines += ["## Warnings", ""]
     if s["warnings"]:
         for w in s["warnings"]:
             val = "" if w.get("value") is None else f" (value: {md_escape(_value_words(w['value']))})"
@@ -917,8 +919,78 @@ def render_markdown(s: dict) -> str:
     lines += ["", "## Caution", "", CAUTION, "",
               "Charts: " + ", ".join(f"{stem}.png" for stem in CHART_FILES) + ". Tables: "
               "validation_grid.csv, learning_curve.csv, coefficients.csv, warnings.csv, "
-              "model_coefficients.csv. Model: model.skops (scikit-learn pipeline).", ""]
+              "model_coefficients.csv, interval_coverage.csv, more_rows.csv. Model: "
+              "model.skops (scikit-learn pipeline).", ""]
     return "\n".join(lines)
+
+
+def sureness(analysis: Analysis, data: DataLike, spec: SweepSpec) -> tuple[Any, Any, list[str]]:
+    """Intervals (`engine.intervals.how_sure`) and the larger-table outlook
+    (`engine.extrapolation.more_rows`) of the recommended cell; a part that cannot be
+    computed is None, with the reason in the returned notes."""
+    from .extrapolation import more_rows
+    from .intervals import how_sure
+    notes: list[str] = []
+    sure = outlook = None
+    try:
+        sure = how_sure(analysis, data, spec)
+    except InputProblem as exc:
+        notes.append(f"Intervals not computed: {exc.message}")
+    try:
+        outlook = more_rows(analysis, data, spec)
+    except InputProblem as exc:
+        notes.append(f"Larger-table outlook not computed: {exc.message}")
+    return sure, outlook, notes
+
+
+def sureness_dict(sure: Any, outlook: Any, notes: list[str]) -> dict:
+    """The ``how_sure`` and ``more_rows`` entries of ``summary.json``."""
+    return plain({"how_sure": sure.to_dict() if sure is not None else {"notes": notes},
+                  "more_rows": outlook.to_dict() if outlook is not None else {"notes": notes}})
+
+
+def _sureness_md(s: dict) -> list[str]:
+    """The 'How sure' and 'More rows or a simpler model?' sections of summary.md."""
+    hs, mr = s.get("how_sure") or {}, s.get("more_rows") or {}
+    lines = ["## How sure", ""]
+    lines += [md_escape(t) for t in hs.get("summary", [])] or ["Not computed."]
+    extra = (hs.get("error_interval") or {}).get("notes", []) + \
+        (hs.get("prediction_intervals") or {}).get("notes", []) + \
+        ([] if hs.get("summary") else hs.get("notes", []))
+    if extra:
+        lines += [""] + [f"- {md_escape(t)}" for t in extra]
+    lines += ["", "## More rows or a simpler model?", ""]
+    lines += [md_escape(t) for t in mr.get("verdict", [])] or ["Not computed."]
+    if mr.get("notes"):
+        lines += [""] + [f"- {md_escape(t)}" for t in mr["notes"]]
+    return lines + [""]
+
+
+def _sureness_html(s: dict) -> str:
+    """One compact paragraph for summary.html: error interval, interval coverage, more rows."""
+    hs, mr = s.get("how_sure") or {}, s.get("more_rows") or {}
+    parts = []
+    e, p = hs.get("error_interval"), hs.get("prediction_intervals")
+    if e:
+        parts.append(f"error on new rows MSE {_num(e['low'])} to {_num(e['high'])} "
+                     f"({100 * e['level']:.0f}%, {_h(e['method'])})")
+    if p:
+        held = (f"{100 * p['analytic_coverage']:.0f}% analytic, "
+                if p.get("analytic_coverage") is not None else "")
+        parts.append(f"{100 * p['level']:.0f}% prediction intervals held for {held}"
+                     f"{100 * p['cvplus_coverage']:.0f}% CV+ of {p['checked_rows']:,} unseen "
+                     f"{'later-period ' if p['checked_on'] == 'later period' else ''}rows")
+    r = mr.get("recommended") or {}
+    if mr and not mr.get("declined") and r.get("error_at_5x") is not None:
+        q = (mr.get("supported_order") or {}).get("5x")
+        parts.append(f"at 5x the rows MSE about {_num(r['error_at_5x'])}"
+                     + (f", supporting order {q}" if q is not None else ""))
+    elif mr:
+        parts.append("no forecast for more rows (see summary.md)")
+    if not parts:
+        return ""
+    text = "; ".join(parts)
+    return f"<p style=\"margin:1mm 0 0 0\"><b>How sure:</b> {text[0].upper() + text[1:]}.</p>"
 
 
 def _value_words(v: Any) -> str:
@@ -1136,7 +1208,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
         if stem in pngs:
             b64 = base64.b64encode(pngs[stem]).decode("ascii")
             # the trust results sit under the last chart, beside the candidates table
-            tail = f"</figure><div>{_trust_html(s)}</div>" if stem == "coefficient_magnitudes" \
+            tail = f"</figure><div>{_sureness_html(s)}{_trust_html(s)}</div>" if stem == "coefficient_magnitudes" \
                 else "</figure>"
             figs.append(f"<div><figure class=\"chart\"><img alt=\"{_h(title)}\" "
                         f"src=\"data:image/png;base64,{b64}\">{tail}</div>")
@@ -1301,7 +1373,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                model_file_in_background: bool = False, analyses: list[Analysis] | None = None,
                targets: pd.DataFrame | None = None, models: dict | None = None,
                learning: Any | None = None, trust: tuple | None = None,
-               overwrite: bool = False) -> PackResult:
+               overwrite: bool = False, sure: tuple | None = None) -> PackResult:
     """Write the meeting pack for one request into ``out_dir``.
 
     Whatever the caller already computed (the dashboard: its sweep, checks,
@@ -1338,6 +1410,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         `engine.trust`, written to the pack when given.
     overwrite : replace the pack files of a folder that holds other files too
         (those are kept).
+    sure : ``(HowSure or None, RowsOutlook or None, notes)`` as `sureness`
+        returns it (or a future of it), already computed for this analysis;
+        computed when None.
 
     Returns
     -------
@@ -1402,11 +1477,25 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         lc = learning
         if lc is None or not set(lc_orders) <= {int(q) for q in lc.table["order"]}:
             lc = learning_curve(data, analysis.spec, orders=lc_orders)
+        if progress:
+            progress(0.66, "Intervals and the larger-table outlook")
+        if sure is not None and hasattr(sure, "result"):  # the page's background job
+            try:
+                sure = sure.result()
+            except Exception:  # noqa: BLE001 - computed here instead
+                sure = None
+        sure, outlook, sure_notes = sure if sure is not None else sureness(analysis, data,
+                                                                            analysis.spec)
+        band = None
+        if sure is not None and (sure.order, sure.penalty) in {_cell_key(q, a) for q, a in cells}:
+            from .intervals import band_table
+            band = band_table(sure, data)
         # the charts need nothing from the checks: draw them in the background meanwhile
         if progress:
             progress(0.70, "Drawing charts")
         from . import charts as _charts
-        chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note)
+        chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note,
+                                 band=band)
         rendering = _charts.render_charts({stem: _charts.for_print(ch, 95)
                                            for stem, ch in chart_objs.items()})
         if checks is None:
@@ -1431,6 +1520,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         summary.update(plain({"nested_cv": _nested_dict(nested),
                               "selection_stability": _stability_dict(stability, analysis),
                               "use": usage(model)}))
+        summary.update(sureness_dict(sure, outlook, sure_notes))
         record = record_dict(spec, facts, roles, cells, load_options, source_path)
         if progress:
             progress(0.90, "Writing files")
@@ -1441,6 +1531,10 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             pngs = {stem: png for stem, (png, _) in drawn.items()}
             svgs = {stem: svg for stem, (_, svg) in drawn.items()}
             _write_files(work, summary, record, pngs, svgs, full, lc, findings, model)
+            write_csv(sure.prediction.per_split if sure is not None else pd.DataFrame(),
+                      work / "interval_coverage.csv")
+            write_csv(outlook.table if outlook is not None else pd.DataFrame(),
+                      work / "more_rows.csv")
             if nested is not None:
                 write_csv(nested.per_fold, work / "nested_cv.csv")
             if stability is not None:

@@ -373,3 +373,22 @@ def test_wide_demo_tile_and_warning_count_samples_per_parameter_alike(repo_root)
     finding = next(f for f in report.findings if f.code == "few_samples_per_parameter")
     worst = table.loc[table["rows_per_parameter"].idxmin()]
     assert f"{float(worst['rows_per_parameter']):.1f} rows per parameter" in finding.message
+
+
+def test_page_shows_how_sure_with_the_engine_numbers(repo_root, demo_dir):
+    from engine.intervals import how_sure
+
+    at = _app(repo_root).run()
+    _no_failures(at)
+    text = _texts(at)
+    assert "How sure, and what would more rows buy?" in text
+    assert "More rows or a simpler model?" in text
+    table = load_table(demo_dir / "calibration_curve.csv")
+    data = prepare(table.frame, "bath_temp_C", ["probe_mV"])
+    spec = SweepSpec("bath_temp_C", ("probe_mV",), max_order=10, scheme=SchemeSpec("loo"),
+                     penalties=default_penalties())
+    sure = how_sure(analyse(data, spec), data)
+    shown = {m.label: m.value for m in at.metric}
+    assert shown["Error on new rows (MSE, 90% interval)"] == \
+        f"{sure.error.low:.4g} – {sure.error.high:.4g}"
+    assert shown["90% prediction intervals held"] == f"{sure.prediction.cvplus_coverage:.0%}"

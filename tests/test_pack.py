@@ -500,3 +500,25 @@ def test_saved_pipeline_predicts_from_a_dataframe_without_warnings(demo_pack, tm
     assert len(use["python"]) == 3
     assert use["formula"].startswith("bath_temp_C = ")
     assert use["input_range"]["probe_mV"] == [float(data.X[:, 0].min()), float(data.X[:, 0].max())]
+
+
+def test_pack_carries_intervals_and_the_larger_table_outlook(demo_pack, nasty_pack):
+    res, data, spec, _ = demo_pack
+    s = res.summary
+    hs, mr = s["how_sure"], s["more_rows"]
+    ei, pi = hs["error_interval"], hs["prediction_intervals"]
+    assert ei["method"] == "nested cross-validation" and ei["low"] < ei["estimate"] < ei["high"]
+    assert 0.0 <= pi["cvplus_coverage"] <= 1.0 and pi["checked_rows"] == data.n_rows
+    assert set(mr["supported_order"]) == {"2x", "5x"} and mr["verdict"]
+    md = (res.out_dir / "summary.md").read_text(encoding="utf-8")
+    assert "## How sure" in md and "## More rows or a simpler model?" in md
+    html = (res.out_dir / "summary.html").read_text(encoding="utf-8")
+    assert "How sure:" in html
+    cov = pd.read_csv(res.out_dir / "interval_coverage.csv")
+    assert len(cov) == res.analysis.plan.n_splits and "cvplus_coverage" in cov
+    assert len(pd.read_csv(res.out_dir / "more_rows.csv")) >= 1
+    # one split (holdout): a real standard error from the validation rows, never ± 0
+    nres = nasty_pack[0]
+    nei = nres.summary["how_sure"]["error_interval"]
+    assert nei["method"] == "validation rows" and nei["se"] > 0
+    assert nres.summary["how_sure"]["prediction_intervals"]["checked_on"] == "later period"

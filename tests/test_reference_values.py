@@ -41,7 +41,8 @@ CERT = json.loads((REF / "nist" / "certified.json").read_text())
 @pytest.mark.parametrize("name", sorted(CERT))
 def test_final_fit_reproduces_nist_certified_coefficients(name):
     # Published: NIST Statistical Reference Datasets (StRD), linear regression,
-    # certified coefficients; score = log relative error (LRE), required >= 7.
+    # certified coefficients; score = log relative error (LRE), required >= 10 (every
+    # coefficient agrees with the certified value to at least 10 significant digits).
     c = CERT[name]
     d = pd.read_csv(REF / "nist" / f"{name}.csv")
     cols = [k for k in d.columns if k != "y"]
@@ -50,7 +51,7 @@ def test_final_fit_reproduces_nist_certified_coefficients(name):
     cert = np.array(c["certified_coefficients"])
     assert len(m.coefficients) == len(cert)
     lre = _lre(m.coefficients, cert)
-    assert lre.min() >= 7.0, f"{name}: LRE {np.round(lre, 1)}"
+    assert lre.min() >= 10.0, f"{name}: LRE {np.round(lre, 1)}"
 
 
 def test_nist_residual_sd_and_r2():
