@@ -842,6 +842,12 @@ def _axes_words(s: dict) -> list[str]:
     return out
 
 
+def _large_table_words(s: dict) -> list[str]:
+    """How a streamed or cluster run read the rows and which steps used a sample."""
+    return [n for n in s["sweep"].get("notes", [])
+            if "record batches" in n or "Dask cluster" in n or "use a seeded sample" in n]
+
+
 def _input_range_words(s: dict, esc: Callable[[Any], str]) -> str:
     return "; ".join(f"{esc(k)} {_num(v[0])} to {_num(v[1])}"
                      for k, v in s["final_fit"]["input_range"].items())
@@ -876,6 +882,7 @@ def render_markdown(s: dict) -> str:
     lines += [f"- Validation: {md_escape(s['validation']['description'])}",
               f"- Grid: {_grid_words(s)}"]
     lines += [f"- {md_escape(w)}" for w in _axes_words(s)]
+    lines += [f"- Rows: {md_escape(w)}" for w in _large_table_words(s)]
     lines += [""]
     if s.get("targets"):
         lines += ["## Targets side by side", "",
@@ -1251,7 +1258,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
    <dt>Rows</dt><dd>{d['rows_used']} used of {d['rows_in']}; dropped: {_h(_drop_words(d))}{f"; {d['rows_left_out_for_lags']} more left out at the start for lags" if d.get("rows_left_out_for_lags") else ""}</dd>
    <dt>Target</dt><dd>{tgt}</dd>
    <dt>Inputs</dt><dd>{inputs}</dd>{extra_roles}{_text_inputs_html(d)}
-   <dt>Validation</dt><dd>{_h(s['validation']['description'])}</dd>
+   <dt>Validation</dt><dd>{_h(s['validation']['description'])}</dd>{"".join(f"<dt>Rows</dt><dd>{_h(w)}</dd>" for w in _large_table_words(s))}
    <dt>Grid</dt><dd>{_h(_grid_words(s))}</dd>{"".join(f"<dt>Target</dt><dd>{_h(t['target'])}: {_h(t['recommended'])}, validation MSE {_h(_num(t['validation_mse']))} (folder {_h(t.get('section', ''))})</dd>" for t in s.get("targets") or [])}{"".join(f"<dt>Axes</dt><dd>{_h(w)}</dd>" for w in _axes_words(s))}
   </dl>
  </div>

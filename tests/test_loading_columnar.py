@@ -12,7 +12,7 @@ import engine.loading as L
 from engine.cli import main
 from engine.errors import InputProblem
 
-from test_loading import CORPUS_NAMES, EXPECTED, MALFORMED, _check_problem, _run_case
+from test_loading import EXPECTED, LOAD_NAMES, MALFORMED, _check_problem, _run_case
 
 
 def _both(raw: bytes, monkeypatch, **kw):
@@ -34,7 +34,7 @@ def _same(fast, slow):
                                        b.sha256)
 
 
-@pytest.mark.parametrize("file_name", CORPUS_NAMES)
+@pytest.mark.parametrize("file_name", LOAD_NAMES)
 def test_malformed_corpus_gives_the_same_messages_with_the_columnar_route_first(
         file_name, monkeypatch):
     monkeypatch.setattr(L, "COLUMNAR_MIN_BYTES", 0)

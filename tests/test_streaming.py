@@ -99,6 +99,10 @@ def test_command_line_streams_a_folder_of_parquet_files(tmp_path, capsys):
     text = json.dumps(summary)
     assert "hash(seed 0, row number)" in text and "seeded sample" in text
     assert summary["recommended"]["order"] == 2    # y is quadratic in b
+    md = (tmp_path / "pack" / "summary.md").read_text()
+    page = (tmp_path / "pack" / "summary.html").read_text()
+    for text in (md, page):                        # the one-page summary says which rows
+        assert "record batches" in text and "seeded sample" in text
     status = main(["run", str(folder), "--target", "y", "--scheme", "blocked",
                    "--out", str(tmp_path / "pack2")])
     assert status == 2 and "kfold only" in capsys.readouterr().err
