@@ -679,7 +679,9 @@ def model_formula(model: FinalModel, digits: int = 7, max_terms: int = 12) -> st
 def usage(model: FinalModel, file: str = "model.skops") -> dict:
     """How to use the recommended model elsewhere: three lines of Python, the
     formula and the input range it was fitted on."""
-    example = {name: [float(np.round((lo + hi) / 2, 6))]
+    # the middle of each input's range; indicator terms of a text input (column[level]) at 0
+    example = {name: [0.0 if (str(name).endswith("]") and "[" in str(name) and lo == 0
+                              and hi == 1) else float(np.round((lo + hi) / 2, 6))]
                for name, lo, hi in zip(model.input_names, model.x_min, model.x_max)}
     frame = ", ".join(f"{name!r}: {vals!r}" for name, vals in list(example.items())[:4])
     if len(example) > 4:
