@@ -26,7 +26,7 @@ def _write(tmp_path, name, x_name, y_name, n, f, seed):
     return path
 
 
-@pytest.mark.timeout(300)
+@pytest.mark.timeout(480)
 def test_three_sessions_uploading_at_once_each_see_their_own_results(server, tmp_path,
                                                                      output_dir):
     paths = [_write(tmp_path, *t, seed=i) for i, t in enumerate(TABLES)]
@@ -43,7 +43,7 @@ def test_three_sessions_uploading_at_once_each_see_their_own_results(server, tmp
                 page.get_by_text("Recommended:").first.wait_for(timeout=90_000)
             # the three uploads go in back to back, so the server works on them at once
             for page, path in zip(pages, paths):
-                page.locator("input[type=file]").set_input_files(str(path))
+                page.locator("input[type=file]").set_input_files(str(path), timeout=120_000)
             for page, (name, x_name, y_name, n, _) in zip(pages, TABLES):
                 page.get_by_text(f"{name} · {n} of {n} rows used").wait_for(timeout=120_000)
                 page.get_by_text("Recommended:").first.wait_for(timeout=120_000)
@@ -77,7 +77,7 @@ def test_markdown_link_target_name_is_shown_as_text(server, tmp_path, output_dir
             page = browser.new_page(viewport={"width": 1400, "height": 1000})
             page.goto(server)
             page.get_by_text("Recommended:").first.wait_for(timeout=90_000)
-            page.locator("input[type=file]").set_input_files(str(path))
+            page.locator("input[type=file]").set_input_files(str(path), timeout=120_000)
             page.get_by_text("60 of 60 rows used").first.wait_for(timeout=90_000)
             page.get_by_text("Recommended:").first.wait_for(timeout=90_000)
             page.wait_for_timeout(2000)
