@@ -610,9 +610,24 @@ def analyse_targets(data: DataLike, spec: SweepSpec,
         mbasis = PolynomialBasis.fit(mdata.X, names, max(orders), spec.interactions)
         out.append(Analysis(spec=ran, sweep=res, validation=table, recommendation=rec,
                             basis=mbasis, plan=plan, n_rows=int(design.X.shape[0]),
-                            notes=list(info.notes) + list(res.notes), model_data=mdata,
+                            notes=list(info.notes) + _axes_cautions(data, spec) + list(res.notes),
+                            model_data=mdata,
                             model_spec=mspec, rows_left_out=int(design.rows_dropped),
                             rankings=info.rankings, request=spec if ran != spec else None))
+    return out
+
+
+def _axes_cautions(data, spec: SweepSpec) -> list[str]:
+    """Plain sentences on what a lag-depth or input-count grid does not cover."""
+    out = []
+    if spec.lags is not None or spec.nested_inputs is not None:
+        out.append("Nested cross-validation and selection stability, where shown, repeat the "
+                   "order and penalty choice on the recommended columns only; they do not "
+                   "repeat the choice of lag depth or number of inputs.")
+    dropped = int(getattr(data, "rows_dropped", 0) or 0)
+    if spec.lags is not None and spec.lags.max_depth > 0 and dropped:
+        out.append(f"{dropped} rows with missing values were dropped before the past values "
+                   "were taken, so a lag reaches across each gap they leave.")
     return out
 
 

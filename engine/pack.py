@@ -838,7 +838,7 @@ def _axes_words(s: dict) -> list[str]:
         out.append("Lag depths compared: inputs " + ", ".join(str(v) for v in lg["depths"])
                    + "; target " + ", ".join(str(v) for v in lg["target_depths"]) + ".")
     out += [n for n in s["sweep"]["notes"] if "past values" in n or "ranked" in n
-            or "first k inputs" in n]
+            or "first k inputs" in n or "lag depth or number of inputs" in n]
     if ax.get("chosen_columns"):
         out.append("Columns of the recommended model: " + ", ".join(ax["chosen_columns"]) + ".")
     return out

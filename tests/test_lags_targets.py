@@ -171,6 +171,7 @@ def test_target_lags_only_with_time_schemes():
     a = analyse(data, SweepSpec("y", ("x",), max_order=1, scheme=SchemeSpec("holdout"),
                                 lags=LagSpec(depths=(0, 3), target_depths=(0, 2))))
     assert a.rows_left_out == 3 and a.n_rows == 117
+    assert any("do not repeat the choice of lag depth" in n for n in a.notes)
 
 
 @pytest.fixture(scope="module")
@@ -289,6 +290,7 @@ def test_command_line_lags_and_two_targets_pack_and_record(tmp_path, capsys):
     assert z["roles"]["target"] == "z" and all(r["target"] == "z" for r in z["grid"])
     md = (out / "summary.md").read_text()
     assert "Targets side by side" in md and "left out at every lag depth" in md
+    assert "do not repeat the choice of lag depth" in md
     # the record holds the whole request, so a rerun sweeps the same grid
     rec = json.loads((out / "record.json").read_text())
     spec = SweepSpec.from_dict(rec["spec"])
