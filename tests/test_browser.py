@@ -155,16 +155,19 @@ def _set_number(page, label: str, value: int) -> None:
     box.press("Enter")
 
 
-@pytest.mark.timeout(300)
+@pytest.mark.timeout(480)
 def test_drifting_line_demo_offers_lag_depth(server, output_dir):
     # the reactor-log demo with lag depths compared, and the heat map over two chosen axes
     with sync_playwright() as p:
         browser = p.chromium.launch(executable_path=CHROMIUM, args=LAUNCH_ARGS)
         try:
             page = browser.new_page(viewport={"width": 1400, "height": 1000})
+            page.set_default_timeout(120_000)   # a loaded machine can take its time
             page.goto(server)
-            page.get_by_text("Recommended:").first.wait_for(timeout=90_000)
-            page.locator("[data-testid=stSidebar] [data-testid=stSelectbox]").first.click()
+            page.get_by_text("Recommended:").first.wait_for(timeout=120_000)
+            source = page.locator("[data-testid=stSidebar] [data-testid=stSelectbox]").first
+            source.wait_for(timeout=120_000)
+            source.click()
             page.get_by_text("Demo: reactor line log (3,000 rows)").click()
             page.get_by_text("drifting_line_sensors.csv ·").first.wait_for(timeout=90_000)
             page.get_by_text("Past values and input sets").click()
