@@ -1009,10 +1009,10 @@ def _value_words(v: Any) -> str:
 
 
 _CSS = """
-@page { size: A4; margin: 6mm 10mm; }
+@page { size: A4; margin: 5mm 10mm; }
 * { box-sizing: border-box; }
 html { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
-body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-size: 7.3pt;
+body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-size: 7.0pt;
        line-height: 1.25; color: #1d2330; margin: 0; }
 .page { width: 190mm; margin: 0 auto; display: flex; flex-direction: column; }
 .page > * { flex: 0 0 auto; }
@@ -1048,10 +1048,10 @@ ol.warn .adv { color: #4a5566; }
 .sev.sev-caution { border-color: #a86400; color: #8a5200; background: #fff; }
 .use { border: 0.5pt solid #b8c4d2; padding: .8mm 2mm; margin-bottom: 1.4mm; font-size: 6.6pt;
        line-height: 1.2; }
-.use pre { margin: .4mm 0; font-size: 6.5pt; line-height: 1.2; white-space: pre-wrap;
+.use pre { margin: .3mm 0; font-size: 6.2pt; line-height: 1.15; white-space: pre-wrap;
            overflow-wrap: anywhere; }
-.beforeuse { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: .8mm 2mm;
-             font-size: 6.6pt; line-height: 1.2; }
+.beforeuse { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: .6mm 2mm;
+             font-size: 6.3pt; line-height: 1.18; }
 .foot { color: #6b7685; font-size: 6.2pt; margin-top: 1.2mm; }
 code { font-size: 6.6pt; overflow-wrap: anywhere; }
 @media screen { body { padding: 6mm 0; background: #f3f5f8; }
@@ -1112,7 +1112,7 @@ def _sorted_warnings(warnings: list[dict]) -> list[dict]:
 
 
 #: Printed height (mm) left for the warnings on the one-page summary.
-WARNINGS_ROOM_MM = 36.0
+WARNINGS_ROOM_MM = 28.0
 
 
 def _warnings_html(s: dict, room_mm: float = WARNINGS_ROOM_MM) -> str:
@@ -1205,7 +1205,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
     rows = []
     shown = [c for c in s["candidates"] if c["role"]]  # recommended and best always
     shown = [c for c in s["candidates"] if c in shown or
-             len([x for x in s["candidates"][:s["candidates"].index(c)] if not x["role"]]) < 3]
+             len([x for x in s["candidates"][:s["candidates"].index(c)] if not x["role"]]) < 2]
     for c in shown:
         cls = " class=\"rec\"" if "recommended" in c["role"] else ""
         rows.append(f"<tr{cls}><td>{int(c['order'])}</td><td>{_penalty_short(c['penalty'])}</td>"
@@ -1217,7 +1217,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
         if stem in pngs:
             b64 = base64.b64encode(pngs[stem]).decode("ascii")
             # the trust results sit under the last chart, beside the candidates table
-            tail = f"</figure><div>{_sureness_html(s)}{_trust_html(s)}</div>" if stem == "coefficient_magnitudes" \
+            tail = f"</figure><div>{_sureness_html(s)}</div>" if stem == "coefficient_magnitudes" \
                 else "</figure>"
             figs.append(f"<div><figure class=\"chart\"><img alt=\"{_h(title)}\" "
                         f"src=\"data:image/png;base64,{b64}\">{tail}</div>")
@@ -1228,7 +1228,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
                 + "".join(rows) + "</table>"
                 f"<p style=\"margin:1mm 0 0 0\">Recommended model refitted on all {ff['rows']} "
                 f"rows: R² {_num(ff['r2'])}, residual SD {_num(ff['residual_sd'])}, condition "
-                f"number {_num(ff['condition_number'], 3)}.</p></figure>")
+                f"number {_num(ff['condition_number'], 3)}.</p>{_trust_html(s)}</figure>")
     use_html = _use_html(s)
     css = _CSS.replace("PAGE_H", f"{PAGE_BUDGET_MM:g}")
     sha = d["sha256"] or "not from a file"
@@ -1505,7 +1505,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         from . import charts as _charts
         chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note,
                                  band=band)
-        rendering = _charts.render_charts({stem: _charts.for_print(ch, 95)
+        rendering = _charts.render_charts({stem: _charts.for_print(ch, 75)
                                            for stem, ch in chart_objs.items()})
         if checks is None:
             if progress:
