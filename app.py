@@ -33,7 +33,10 @@ from dashboard.how_sure import band_for, how_sure_panel, sureness
 from engine import (SCHEME_HELP, InputProblem, SchemeSpec, SweepSpec, analyse,
                     default_penalties, learning_curve)
 from engine import charts as C
+from dashboard import paths_section
 from dashboard.grid_axes import axes_controls, grid_heatmap, target_choice, targets_control
+from engine.labels import PATH_CHARTS, family_text
+from engine.spec import FAMILIES
 from engine.labels import rung_text
 from engine.compare import fit_candidates
 from engine.labels import (ERROR_UNITS, number_text, SAMPLES_PER_PARAMETER_HOW, SCHEME_NEEDS, error_in_unit,
@@ -84,6 +87,7 @@ class Preset:
     pen_zero: bool = True
     seed: int = DEFAULT_SEED
     compare_unpenalised: bool = False  # side by side: each order also without a penalty
+    families: tuple[str, ...] = ("ridge",)
 
 
 @dataclass(frozen=True)
@@ -110,17 +114,18 @@ DEMOS: dict[str, Demo] = {
     "demo:wide": Demo(
         "wide_spectra.csv", "Demo: dye-bath spectra (60 rows, 150 channels)",
         "More inputs than rows: a straight-line fit needs a penalty to hold up on new samples.",
-        Preset(target="analyte_mg_L", all_inputs=True, scheme="kfold", folds=5, max_order=1)),
+        Preset(target="analyte_mg_L", all_inputs=True, scheme="kfold", folds=5, max_order=1,
+               families=("ridge", "lasso"))),
 }
 
 PENALTY_STEPS = [10.0 ** k for k in range(-8, 7)]
 NONE = "(none)"
 VIEW_KEYS = ("heat_x", "heat_y", "view_penalty", "lc_order", "lc_penalty", "cmp_orders", "cmp_penalty",
-             "cmp_zero", "coef_order", "coef_penalty")
+             "cmp_zero", "coef_order", "coef_penalty", "path_order", "path_setting")
 SETUP_KEYS = ("target", "inputs", "all_inputs", "order_column", "group_column", "split_column",
               "scheme", "folds", "repeats", "gap", "holdout_fraction", "max_order",
               "interactions", "pen_fit", "pen_range", "pen_count", "pen_zero", "rule", "seed",
-              "rows_time")
+              "rows_time", "families")
 
 # ---------------------------------------------------------------------------
 # errors: readable messages, never a traceback
@@ -309,6 +314,7 @@ def apply_preset(p: Preset) -> None:
     ss["pen_count"] = p.pen_count
     ss["pen_zero"] = p.pen_zero
     ss["seed"] = p.seed
+    ss["families"] = list(p.families)
     ss["rows_time"] = next(iter(ROW_ORDER_ANSWERS))
     for k in ("lags_max", "target_lags_max", "nested_inputs", "extra_targets", "target_shown"):
         ss.pop(k, None)
@@ -476,6 +482,14 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
                                  "the same validation rows; the simplest cell within one standard "
                                  "error of those differences is recommended. Unpaired: the "
                                  "classic one-standard-error rule on each cell's own spread.")
+    keep("families", ["ridge"])
+    families = st.sidebar.multiselect(option_label("families"), list(FAMILIES),
+                                      format_func=family_text, key="families")
+    if not families:
+        st.sidebar.caption("No family chosen: ridge is used.")
+    if any(f != "ridge" for f in families) and scheme == "loo":
+        st.sidebar.caption("Lasso and elastic net need folds (leave-one-out is exact only "
+                           "for ridge): choose another way to hold data out.")
     keep("seed", 0)
     seed = st.sidebar.number_input(option_label("seed"), min_value=0, max_value=2**31 - 1,
                                    step=1, key="seed")
@@ -498,7 +512,8 @@ def roles_and_setup(frame: pd.DataFrame, numeric: list[str]) -> Choices:
                           gap=int(gap or 0), holdout_fraction=float(frac),
                           order_column=order_c, group_column=group_c, split_column=split_c,
                           rows_in_time_order=rows_time),
-        seed=int(seed), lags=lags, nested_inputs=nested, extra_targets=more, rule=str(rule))
+        seed=int(seed), lags=lags, nested_inputs=nested, extra_targets=more, rule=str(rule),
+        families=tuple(f for f in FAMILIES if f in (families or ["ridge"])))
     return Choices(roles=roles, spec=spec)
 
 
@@ -544,7 +559,7 @@ def chart_block(chart, stem: str, tables: list[tuple[pd.DataFrame, str]] = ()) -
     ``stem`` is a key of `engine.labels.CHARTS` (the pack's file names are the
     same); tables are ``(frame, stem)`` with stems from `engine.labels.TABLES`.
     """
-    what = CHARTS[stem]
+    what = CHARTS.get(stem) or PATH_CHARTS[stem]
     st.altair_chart(chart, theme=None, width="content")
     with downloads_row():
         st.download_button(f"{what} (PNG)", data=lambda: C.chart_to_png(chart),
@@ -616,7 +631,7 @@ def recommendation_panel(analysis, target: str, n_rows: int | None = None) -> No
     st.session_state["_card"] = f  # read by the page tests
     u = f["unit"]
     with st.container(border=True):
-        st.markdown(f"#### Recommended: {C.cell_text(r.order, r.penalty)}"
+        st.markdown(f"#### Recommended: {C.cell_text(r.order, r.penalty, r.family, r.l1_ratio)}"
                     + rung_text(r.lags, r.target_lags, r.inputs_used))
         m1, m2, m3, m4 = st.columns(4)
         shown_units = "" if not units else (f" {units}" if unit == "rmse" else "")
@@ -1229,7 +1244,7 @@ def main() -> None:
         st.warning(md(describe_drops(data)), icon=":material/filter_alt:")
     # lag depths / input counts: the page's per-cell views use the recommended rung's columns
     full, data_all = analysis, data
-    analysis = full.view()
+    analysis = full.view().at_family()   # per-cell views: the recommended cell's family
     data, _ = full.working(data_all, spec)
     if full.model_spec is not None and full.model_spec.inputs != spec.inputs:
         st.caption(md("Columns of the recommended model: " + ", ".join(full.model_spec.inputs)
@@ -1253,11 +1268,11 @@ def main() -> None:
     guarded("checking the choice", trust_panel, data, analysis, analysis_key)
     tabs = st.tabs([CHARTS["validation_curve"], CHARTS["order_penalty_heatmap"],
                     CHARTS["learning_curve"], CHARTS["order_comparison"],
-                    CHARTS["coefficient_magnitudes"], "Data"])
+                    CHARTS["coefficient_magnitudes"], "Data", PATH_CHARTS["coefficient_paths"]])
     with tabs[0]:
         guarded("drawing the validation curve", tab_validation, analysis, target)
     with tabs[1]:
-        guarded("drawing the heat map", tab_heatmap, full, target)
+        guarded("drawing the heat map", tab_heatmap, full.at_family(), target)
     with tabs[4]:
         guarded("drawing the coefficients", tab_coefficients, analysis, target)
     with tabs[2]:
@@ -1265,6 +1280,9 @@ def main() -> None:
                 target)
     with tabs[5]:
         guarded("showing the data", tab_data, loaded, data_all)
+    with tabs[6]:
+        guarded("tracing the coefficients", paths_section.render, analysis_key, data, full,
+                analysis, target, chart_block, table_download, md)
     mark("quick tabs")
     with tabs[3]:  # last: it fits models on all rows
         compare_orders = guarded("comparing orders", tab_compare, analysis_key, data,

@@ -166,6 +166,27 @@ class Analysis:
                     keep &= (col == int(v)).fillna(False).to_numpy()
         return t[keep]
 
+    def at_family(self, family: str | None = None, l1_ratio: float | None = None) -> "Analysis":
+        """This analysis restricted to one penalty family (default: the recommended cell's).
+
+        Charts of order x penalty read one family at a time; the recommendation
+        stays the one of the whole grid. With one family swept: the analysis itself.
+        """
+        fams = set(self.sweep.families or ["ridge"])
+        ratios = set(np.round(np.asarray(self.sweep.l1_ratios, float), 12))
+        if len(fams) <= 1 and len(ratios) <= 1:
+            return self
+        rec = self.recommendation.recommended
+        family = rec.family if family is None else family
+        l1_ratio = rec.l1_ratio if l1_ratio is None else l1_ratio
+        keep = [k for k, (f, r) in enumerate(zip(self.sweep.families, self.sweep.l1_ratios))
+                if f == family and abs(float(r) - float(l1_ratio)) < 1e-12]
+        if not keep:
+            raise InputProblem(f"No {family} cells with l1_ratio {l1_ratio} in this sweep.",
+                               code="unknown_cell")
+        sweep = self.sweep.at_settings(keep)
+        return replace(self, sweep=sweep, validation=sweep.validation_table())
+
     def cell_row(self, order: int, penalty: float, family: str | None = None,
                  l1_ratio: float | None = None, **rung) -> pd.Series:
         """The validation-table row of a cell; rung axes default to the recommended cell's."""

@@ -21,7 +21,7 @@ import altair as alt
 import numpy as np
 import pandas as pd
 
-from .labels import cell_text, penalty_text  # noqa: F401  (part of this module's API)
+from .labels import cell_text, family_text, penalty_text  # noqa: F401  (part of this module's API)
 from .compare import cell_label, curve_table, prediction_table
 from .final_fit import FinalModel
 from .recommend import Cell
@@ -64,6 +64,8 @@ STEEP_RATIO = 3.0
 STEEP_MIN_TERMS = 3
 #: Most data points drawn in one scatter panel; larger tables are sampled.
 SCATTER_LIMIT = 1500
+#: Most rows of a coefficient-path chart (Vega-Lite inlines its data).
+PATH_ROW_LIMIT = 4500
 FONT = "DejaVu Sans, Verdana, sans-serif"
 
 _WIDTH = 520
@@ -881,6 +883,124 @@ def coefficient_chart(coef_table: pd.DataFrame, order: int, penalty: float,
 # ---------------------------------------------------------------------------
 # export
 # ---------------------------------------------------------------------------
+def coefficient_path_chart(path_table: pd.DataFrame, setting: str, *, order: int,
+                           entry: pd.DataFrame | None = None, target: str | None = None,
+                           highlight: int = 8) -> alt.TopLevelMixin:
+    """Standardised coefficient of every term against the penalty, for one family setting.
+
+    ``path_table`` is `engine.paths.CoefficientPaths.table`; ``setting`` one of
+    its ``setting`` values. The first ``highlight`` terms to enter the lasso
+    path (``entry``; else the largest at the smallest penalty) are coloured,
+    the rest drawn thin and grey. The recommended penalty, when it belongs to
+    this setting, is a vertical rule.
+    """
+    t = path_table[path_table["setting"] == setting].copy()
+    if t.empty:
+        empty = alt.Chart(pd.DataFrame({"text": [f"No path for {setting}."]})
+                          ).mark_text(size=14).encode(text="text:N")
+        return _finish(empty.properties(width=_WIDTH, height=60))
+    rec_rows = t[t["recommended"] & (t["std_coef"] != 0)]
+    lead_kind = "entry"
+    if not rec_rows.empty:
+        # the terms the recommended cell keeps, largest first
+        lead = list(rec_rows.assign(m=rec_rows["std_coef"].abs()).sort_values(
+            "m", ascending=False)["term"][:highlight])
+        lead_kind = "kept"
+    elif entry is not None and len(entry):
+        lead = [v for v in entry["term"] if v in set(t["term"])][:highlight]
+    else:
+        small = t[t["penalty"] == t["penalty"].min()]
+        lead = list(small.assign(m=small["std_coef"].abs()).sort_values(
+            "m", ascending=False)["term"][:highlight])
+    t["shown"] = np.where(t["term"].isin(lead), t["term"], "other terms")
+    t = t[["term", "shown", "penalty", "std_coef", "recommended"]]
+    # grey terms: those that are ever non-zero, largest first, within a row budget
+    peak = t.assign(m=t["std_coef"].abs()).groupby("term")["m"].max()
+    others = [v for v in peak.sort_values(ascending=False).index
+              if v not in lead and peak[v] > 0]
+    per_term = max(1, int(t["penalty"].nunique()))
+    others = others[:max(0, PATH_ROW_LIMIT // per_term - len(lead))]
+    t = t[t["term"].isin(lead + others)]
+    notes = [f"Order {int(order)}, fitted on all rows; coefficient per standard deviation "
+             "of each term."]
+    n_terms = int(peak.size)
+    if n_terms > len(lead):
+        what = (f"the {len(lead)} terms of the recommended penalty with the largest coefficients"
+                if lead_kind == "kept" else
+                f"the first {len(lead)} of {n_terms} terms to enter the lasso path")
+        notes.append(f"Coloured: {what}; {len(others)} others in grey"
+                     + ("." if len(others) + len(lead) == n_terms else
+                        " (terms that stay at zero, or the smallest, not drawn)."))
+    lo_p, hi_p = float(t["penalty"].min()), float(t["penalty"].max())
+    x = alt.X("penalty:Q", title="penalty (alpha, log scale)",
+              scale=alt.Scale(type="log", domain=[lo_p, hi_p], nice=False),
+              axis=alt.Axis(format="~g", values=_log_ticks(lo_p, hi_p)))
+    y = alt.Y("std_coef:Q", title="standardised coefficient"
+              + (f" ({column_units(target)})" if target and column_units(target) else ""))
+    domain = lead + (["other terms"] if n_terms > len(lead) else [])
+    rng = (MODEL_COLOURS * 2)[:len(lead)] + (["#c9c6bd"] if n_terms > len(lead) else [])
+    colour = alt.Color("shown:N", title=None, scale=alt.Scale(domain=domain, range=rng),
+                       legend=alt.Legend(orient="right"))
+    tips = [alt.Tooltip("term:N"), alt.Tooltip("penalty:Q", format=".3g"),
+            alt.Tooltip("std_coef:Q", title="standardised", format=".4g")]
+    grey = alt.Chart(t[t["shown"] == "other terms"]).mark_line(strokeWidth=0.8, opacity=0.6).encode(
+        x=x, y=y, detail="term:N", color=colour, tooltip=tips)
+    lines = alt.Chart(t[t["shown"] != "other terms"]).mark_line(strokeWidth=2).encode(
+        x=x, y=y, detail="term:N", color=colour, tooltip=tips)
+    layers = [grey, lines]
+    rec = t[t["recommended"]]
+    if not rec.empty:
+        pen = float(rec["penalty"].iloc[0])
+        layers.append(alt.Chart(pd.DataFrame({"penalty": [pen], "label": ["recommended"]}))
+                      .mark_rule(color=PALETTE["recommended"], strokeDash=[5, 3], strokeWidth=2)
+                      .encode(x=x, tooltip=[alt.Tooltip("penalty:Q", format=".3g"), "label:N"]))
+        notes.append(f"Dashed line: the recommended penalty ({penalty_text(pen)}).")
+    chart = alt.layer(*layers).properties(
+        width=_WIDTH, height=_HEIGHT, title=_title(f"Coefficient paths: {setting}", notes))
+    return _finish(chart)
+
+
+def terms_kept_chart(validation: pd.DataFrame, *, order: int, family: str = "lasso",
+                     l1_ratio: float = 1.0, recommended: Cell | None = None,
+                     target: str = "y") -> alt.TopLevelMixin:
+    """Validation error against the number of non-zero terms, along the lasso penalties.
+
+    One point per penalty of ``order`` in ``family``: x is the mean number of
+    non-zero terms across the splits (effective degrees of freedom minus the
+    intercept), y the mean validation MSE with one standard error.
+    """
+    t = validation[(validation["order"] == order) & (validation["penalty"] > 0)]
+    if "family" in t:
+        t = t[(t["family"] == family) & np.isclose(t["l1_ratio"].astype(float), l1_ratio)]
+    t = t.assign(terms_kept=t["effective_df"] - 1.0,
+                 low=t["validation_mse"] - t["validation_mse_se"].fillna(0),
+                 high=t["validation_mse"] + t["validation_mse_se"].fillna(0))
+    tname = plain_name(target)
+    word = "inputs" if int(order) == 1 else "terms"
+    x = alt.X("terms_kept:Q", title=f"{word} kept (non-zero coefficients, mean over splits)")
+    y = alt.Y("validation_mse:Q", title=f"validation MSE of {tname}", scale=alt.Scale(zero=False))
+    tips = [alt.Tooltip("penalty:Q", format=".3g"), alt.Tooltip("terms_kept:Q", format=".1f"),
+            alt.Tooltip("validation_mse:Q", format=".4g"),
+            alt.Tooltip("validation_mse_se:Q", title="SE", format=".2g")]
+    bars = alt.Chart(t).mark_rule(color=PALETTE["band"]).encode(x=x, y="low:Q", y2="high:Q")
+    line = alt.Chart(t).mark_line(point=alt.OverlayMarkDef(color=PALETTE["validation"]),
+                                  color=PALETTE["validation"]).encode(
+        x=x, y=y, tooltip=tips)
+    layers = [bars, line]
+    notes = [f"Order {int(order)}, {family_text(family, l1_ratio)}; bars: ± one standard error."]
+    if recommended is not None and recommended.family == family and int(recommended.order) == int(order):
+        r = t[np.isclose(t["penalty"], recommended.penalty, rtol=1e-12, atol=0)]
+        if not r.empty:
+            layers.append(alt.Chart(r).mark_point(size=160, shape="diamond", filled=True,
+                                                  color=PALETTE["recommended"]).encode(
+                x=x, y=y, tooltip=tips))
+            notes.append(f"Diamond: the recommended cell, {float(r['terms_kept'].iloc[0]):.1f} "
+                         f"{word} kept (mean over splits).")
+    chart = alt.layer(*layers).properties(width=_WIDTH, height=_HEIGHT,
+                                          title=_title(f"How many {word} the data carry", notes))
+    return _finish(chart)
+
+
 def chart_to_png(chart: alt.TopLevelMixin, scale: float = 2) -> bytes:
     """Render a chart to PNG bytes (vl-convert; no browser needed)."""
     import vl_convert as vlc

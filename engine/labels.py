@@ -202,8 +202,17 @@ CHARTS = {
     "coefficient_magnitudes": "Coefficient magnitudes",
 }
 
+#: Charts of the coefficient paths (page tab; in the pack when lasso or elastic net is swept).
+PATH_CHARTS = {
+    "coefficient_paths": "Coefficient paths",
+    "terms_kept": "How many inputs",
+}
+
 #: Tables: file stem (CSV download and pack file) -> title.
 TABLES = {
+    "coefficient_paths": "Coefficient paths table",
+    "lasso_entry_order": "Order of entry along the lasso path",
+    "inputs_kept": "Inputs kept by the recommended cell",
     "validation_grid": "Validation table, every cell",
     "validation_per_split": "Errors per split",
     "learning_curve": "Learning-curve table",
@@ -355,6 +364,8 @@ OPTIONS.update({
     "target_lags": ("Deepest target lag to compare", "--target-lags"),
     "nested_inputs": ("Compare the first k inputs", "--rank-inputs"),
     "extra_targets": ("More targets", "--more-targets"),
+    "families": ("Penalty families", "--families"),
+    "l1_ratios": ("Elastic-net lasso shares (l1 ratio)", "--l1-ratios"),
 })
 
 

@@ -71,7 +71,11 @@ TARGETS_FILE = "targets.csv"
 PACK_NAMES = re.compile(r"target_\d+")
 
 #: Files a pack holds only when their results were computed (on the page, on request).
-OPTIONAL_FILES = ("nested_cv.csv", "selection_stability.csv")
+OPTIONAL_FILES = ("nested_cv.csv", "selection_stability.csv",
+                  # with lasso or elastic net in the sweep: paths, entry order, inputs kept
+                  "coefficient_paths.png", "coefficient_paths.svg", "terms_kept.png",
+                  "terms_kept.svg", "coefficient_paths.csv", "lasso_entry_order.csv",
+                  "inputs_kept.csv")
 
 #: Leading characters that make a spreadsheet run a cell as a formula
 #: (common practice, after the OWASP "CSV injection" advice).
@@ -741,6 +745,58 @@ def learning_cells(cells: list[tuple[int, float]]) -> list[tuple[int, float]]:
     return out
 
 
+def _coefficient_paths(data: DataLike, analysis: Analysis, full: Analysis):
+    """Coefficient paths of the recommended order, when lasso or elastic net was swept."""
+    spec = analysis.spec
+    if all(f == "ridge" for f in spec.families):
+        return None
+    from .paths import coefficient_paths
+    rec = analysis.recommendation.recommended
+    order = int(rec.order) if rec.order > 0 else max(spec.order_list())
+    if order == 0:
+        return None
+    return coefficient_paths(data, spec, order, rec)
+
+
+def _paths_dict(paths) -> dict:
+    kept = paths.survivors[paths.survivors["kept"]] if len(paths.survivors) else paths.survivors
+    return {"order": paths.order,
+            "entry_order": [{"rank": int(r["rank"]), "term": r["term"],
+                             "entry_penalty": float(r["entry_penalty"])}
+                            for _, r in paths.entry.head(30).iterrows()],
+            "inputs_kept": [str(v) for v in kept.get("input", [])],
+            "inputs_total": int(len(paths.survivors)),
+            "notes": list(paths.notes)}
+
+
+def _write_paths(folder: Path, paths, analysis: Analysis, full: Analysis) -> None:
+    """Coefficient-path charts and tables (lasso or elastic net swept)."""
+    from . import charts
+    for stem, chart in _paths_charts(paths, analysis, full).items():
+        (folder / f"{stem}.png").write_bytes(charts.chart_to_png(chart))
+        (folder / f"{stem}.svg").write_text(charts.chart_to_svg(chart), encoding="utf-8",
+                                             newline="\n")
+    write_csv(paths.table, folder / "coefficient_paths.csv")
+    write_csv(paths.entry, folder / "lasso_entry_order.csv")
+    write_csv(paths.survivors, folder / "inputs_kept.csv")
+
+
+def _paths_charts(paths, analysis: Analysis, full: Analysis) -> dict:
+    from . import charts
+    from .labels import family_text
+    rec = analysis.recommendation.recommended
+    target = analysis.spec.target
+    out = {"coefficient_paths": charts.coefficient_path_chart(
+        paths.table, family_text(rec.family, rec.l1_ratio) if rec.family != "ridge" else
+        ("lasso" if "lasso" in analysis.spec.families else paths.table["setting"].iloc[0]),
+        order=paths.order, entry=paths.entry, target=target)}
+    fam = "lasso" if "lasso" in analysis.spec.families else rec.family
+    ratio = 1.0 if fam == "lasso" else rec.l1_ratio
+    out["terms_kept"] = charts.terms_kept_chart(full.validation, order=paths.order, family=fam,
+                                                l1_ratio=ratio, recommended=rec, target=target)
+    return out
+
+
 def make_charts(analysis: Analysis, lc_table: pd.DataFrame, models: dict, data: DataLike,
                 cells: list[tuple[int, float]], lc_note: str = "",
                 band: pd.DataFrame | None = None) -> dict:
@@ -823,6 +879,12 @@ def _se_method_words(s: dict) -> str:
 
 def _headline(s: dict) -> str:
     r = s["recommended"]
+    fam = r.get("family", "ridge")
+    if fam != "ridge" and r["penalty"] != 0:
+        from .labels import family_text
+        return (f"order {r['order']}, {family_text(fam, r.get('l1_ratio', 1.0))} "
+                f"penalty {penalty_text(r['penalty'])}"
+                + rung_text(r.get("lags"), r.get("target_lags"), r.get("inputs_used")))
     return (f"order {r['order']}, {_penalty_words(r['penalty'])}"
             + rung_text(r.get("lags"), r.get("target_lags"), r.get("inputs_used")))
 
@@ -913,6 +975,20 @@ def render_markdown(s: dict) -> str:
         lines += [f"| {md_escape(t)} | {v!r} |" for t, v in zip(co["terms"], co["values"])]
     else:
         lines.append(f"{len(co['terms'])} coefficients: see model_coefficients.csv.")
+    cp = s.get("coefficient_paths")
+    if cp:
+        kept = cp.get("inputs_kept") or []
+        lines += ["", "## Which inputs the penalty keeps", "",
+                  f"- Inputs with a non-zero term in the recommended cell: {len(kept)} of "
+                  f"{cp.get('inputs_total', 0)}"
+                  + (": " + ", ".join(escape_name(v) for v in kept[:30]) if kept else "")
+                  + (" …" if len(kept) > 30 else "") + ".",
+                  "- First terms to enter the lasso path (order "
+                  f"{int(cp['order'])}, all rows): "
+                  + ", ".join(escape_name(e["term"]) for e in cp["entry_order"][:10]) + ".",
+                  "- " + md_escape(" ".join(cp.get("notes", []))),
+                  "- Files: coefficient_paths.png/.csv, terms_kept.png, lasso_entry_order.csv, "
+                  "inputs_kept.csv."]
     lines += [""] + _sureness_md(s)
     lines += ["## Warnings", ""]
     if s["warnings"]:
@@ -1453,7 +1529,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     # a grid over lag depths, input counts or targets: the recommended rung's columns
     # stand in for the inputs in every step that fits or checks one cell
     full = analysis
-    analysis = full.view()
+    analysis = full.view().at_family()    # per-cell charts: the recommended cell's family
     source_data = data
     data, _ = full.working(data, spec)
     cells = compare_cells(analysis, compare_orders)
@@ -1463,7 +1539,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     given = {_cell_key(*k): m for k, m in (models or {}).items()}
     missing = [c for c in cells if c not in given]
     if missing:
-        given.update(fit_candidates(data, analysis.spec, missing))
+        given.update(fit_candidates(data, analysis.spec, missing, family=rec.family,
+                                    l1_ratio=rec.l1_ratio))
     models = {c: given[c] for c in cells}
     model = models[_cell_key(rec.order, rec.penalty)]
     # the pack is made in a hidden sibling of `out` and moved into place when complete
@@ -1523,6 +1600,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         summary = summary_dict(analysis, model, facts, roles, findings, cells, candidates, lc.note,
                                full=full)
         summary["checks"] = plain(_check_facts(checks))
+        paths = _coefficient_paths(data, analysis, full)
+        if paths is not None:
+            summary["coefficient_paths"] = plain(_paths_dict(paths))
         if targets is not None:
             summary["targets"] = plain(targets.to_dict(orient="records"))
         nested, stability = (tuple(trust) + (None, None))[:2] if trust else (None, None)
@@ -1544,6 +1624,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                       work / "interval_coverage.csv")
             write_csv(outlook.table if outlook is not None else pd.DataFrame(),
                       work / "more_rows.csv")
+            if paths is not None:
+                _write_paths(work, paths, analysis, full)
             if nested is not None:
                 write_csv(nested.per_fold, work / "nested_cv.csv")
             if stability is not None:

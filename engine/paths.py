@@ -73,6 +73,7 @@ def path_penalties(summary: TermSummary, raw: RawMap, penalties, l1_ratio: float
         if top > 0:
             hi = top * 1.2
             lo = min(lo, top * 1e-4)
+            pen = pen[pen <= hi]
     grid = np.logspace(np.log10(lo), np.log10(hi), points)
     return np.unique(np.r_[grid, pen])[::-1]
 

@@ -123,6 +123,21 @@ class SweepResult:
             cols[name] = np.array([self.rung_keys[i].get(name) for i in oi], dtype=object)
         return cols
 
+    def at_settings(self, keep: list[int]) -> "SweepResult":
+        """The settings ``keep`` (family, l1_ratio, penalty) of every term set, as a sweep."""
+        pick = np.asarray([int(k) for k in keep], dtype=np.int64)
+        return SweepResult(
+            orders=list(self.orders), penalties=np.asarray(self.penalties)[pick],
+            parameters=self.parameters, term_names=self.term_names, n_train=self.n_train,
+            n_valid=self.n_valid, train_mse=self.train_mse[:, pick],
+            valid_mse=self.valid_mse[:, pick], valid_r2=self.valid_r2[:, pick],
+            edf=self.edf[:, pick], coef_std=[c[pick] for c in self.coef_std],
+            coef_raw=[c[pick] for c in self.coef_raw], intercept_raw=self.intercept_raw[:, pick],
+            loo=self.loo, loo_se=None if self.loo_se is None else self.loo_se[:, pick],
+            plan_description=self.plan_description, notes=list(self.notes),
+            families=[self.families[k] for k in pick], l1_ratios=np.asarray(self.l1_ratios)[pick],
+            rung_keys=self.rung_keys)
+
     def validation_errors(self) -> np.ndarray:
         """(cells, splits) validation MSE, rows aligned with `validation_table`."""
         O, K, S = self.valid_mse.shape

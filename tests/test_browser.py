@@ -342,5 +342,36 @@ def test_sidebar_walk_on_every_demo_and_an_upload_with_text(server, output_dir, 
             assert summary["validation"]["when_to_use"].startswith(name + ":")
             assert name in html
             assert summary["data"]["text_inputs"]["site"]["reference"] == "east"
+@pytest.mark.timeout(300)
+def test_wide_spectra_demo_shows_lasso_path_and_inputs_kept(server, output_dir):
+    # the spectra demo sweeps ridge and lasso: the coefficient-path tab draws the lasso
+    # path with the recommended penalty and says how many channels the lasso keeps
+    with sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=CHROMIUM, args=LAUNCH_ARGS)
+        try:
+            page = browser.new_page(viewport={"width": 1400, "height": 1000})
+            page.goto(server)
+            page.get_by_text("Recommended:").first.wait_for(timeout=90_000)
+            page.locator("[data-testid=stSidebar] [data-testid=stSelectbox]").first.click()
+            page.get_by_text("Demo: dye-bath spectra (60 rows, 150 channels)").click()
+            page.get_by_text("wide_spectra.csv ·").first.wait_for(timeout=90_000)
+            page.get_by_text("Recommended:").first.wait_for(timeout=120_000)
+            page.get_by_role("tab", name="Coefficient paths").click()
+            page.wait_for_function(
+                "() => [...document.querySelectorAll('[data-testid=stVegaLiteChart] svg')]"
+                ".some(s => s.textContent.includes('Coefficient paths: lasso'))",
+                timeout=120_000)
+            page.wait_for_function(
+                "() => [...document.querySelectorAll('[data-testid=stVegaLiteChart] svg')]"
+                ".some(s => s.textContent.includes('How many inputs the data carry'))",
+                timeout=60_000)
+            kept = page.locator("p", has_text="Inputs kept by the recommended cell").first
+            kept.wait_for(timeout=60_000)
+            import re
+            n_kept, n_all = [int(v) for v in
+                             re.search(r"(\d+) of (\d+)", kept.inner_text()).groups()]
+            assert n_all == 150 and 1 <= n_kept < 150
+            _full_screenshot(page, output_dir / "dashboard_wide_lasso_path.png")
+            assert not page.locator("[data-testid=stException]").count()
         finally:
             browser.close()

@@ -197,3 +197,48 @@ def test_final_lasso_fit_matches_scikit_learn(curve_data):
     pipe.fit(curve_data.X, curve_data.y)
     np.testing.assert_allclose(m.predict(curve_data.X), pipe.predict(curve_data.X), rtol=1e-7)
     assert m.family == "lasso" and m.effective_df == 1 + np.count_nonzero(pipe[-1].coef_)
+
+
+def test_path_charts_mark_the_recommended_penalty(curve_data):
+    from engine import charts as C
+    spec = SweepSpec("y", ("x",), max_order=3, families=("ridge", "lasso"),
+                     scheme=SchemeSpec("kfold", folds=4))
+    a = analyse(curve_data, spec)
+    rec = a.recommendation.recommended
+    paths = coefficient_paths(curve_data, spec, rec.order, rec)
+    assert set(paths.table["setting"]) == {"ridge", "lasso"}
+    # the recommended penalty of its family is on the path grid, marked once per term
+    marked = paths.table[paths.table["recommended"]]
+    assert len(marked) == (rec.order * 1 if rec.penalty > 0 else 0)
+    for setting in ("ridge", "lasso"):
+        spec_json = C.coefficient_path_chart(paths.table, setting, order=rec.order,
+                                             entry=paths.entry).to_dict()
+        assert spec_json["title"]["text"] == f"Coefficient paths: {setting}"
+    kept = C.terms_kept_chart(a.validation, order=3, recommended=rec).to_dict()
+    assert "How many terms" in kept["title"]["text"]
+    # entry order: ranks 1..k, entry penalties not increasing
+    e = paths.entry
+    assert list(e["rank"]) == list(range(1, len(e) + 1))
+    assert np.all(np.diff(e["entry_penalty"].to_numpy()) <= 0)
+
+
+def test_command_line_lasso_pack(tmp_path, repo_root):
+    import json
+    import subprocess
+    import sys
+    out = tmp_path / "pack"
+    cmd = [sys.executable, "-m", "engine", "run", str(repo_root / "demo_data" / "calibration_curve.csv"),
+           "--target", "bath_temp_C", "--scheme", "kfold", "--folds", "4", "--max-order", "3",
+           "--families", "ridge,lasso,elasticnet", "--l1-ratios", "0.5", "--out", str(out)]
+    env = {**__import__("os").environ, "PYTHONPATH": str(repo_root)}
+    run = subprocess.run(cmd, capture_output=True, text=True, env=env, timeout=300)
+    assert run.returncode == 0, run.stderr[-2000:]
+    s = json.loads((out / "summary.json").read_text())
+    assert {(g["family"], g["l1_ratio"]) for g in s["grid"]} == {
+        ("ridge", 0.0), ("lasso", 1.0), ("elasticnet", 0.5)}
+    assert s["recommended"]["family"] in ("ridge", "lasso", "elasticnet")
+    for name in ("coefficient_paths.png", "lasso_entry_order.csv", "inputs_kept.csv"):
+        assert (out / name).exists()
+    rec = json.loads((out / "record.json").read_text())
+    assert rec["spec"]["families"] == ["ridge", "lasso", "elasticnet"]
+    assert rec["spec"]["l1_ratios"] == [0.5]
