@@ -339,7 +339,9 @@ def test_every_number_shown_twice_agrees(repo_root, unit):
     pending = next(v for k, v in _jobs() if k[0] == "checks")
     table = pending.result().tables["samples_per_parameter"]
     heading = _recommended_heading(at)
-    row = table[[C.cell_text(int(q), float(a)) == heading
+    # the demo sweeps ridge and lasso; the heading names the family of a lasso cell
+    fam = "lasso" if " lasso penalty" in heading else "ridge"
+    row = table[[C.cell_text(int(q), float(a), fam, 1.0 if fam == "lasso" else 0.0) == heading
                  for q, a in zip(table["order"], table["penalty"])]]
     assert f"{float(row['rows_per_parameter'].iloc[0]):.1f}" == spp
 
@@ -367,7 +369,9 @@ def test_wide_demo_tile_and_warning_count_samples_per_parameter_alike(repo_root)
     pending = next(v for k, v in _jobs() if k[0] == "checks")
     report = pending.result()
     table = report.tables["samples_per_parameter"]
-    row = table[[C.cell_text(int(q), float(a)) == heading
+    # the demo sweeps ridge and lasso; the heading names the family of a lasso cell
+    fam = "lasso" if " lasso penalty" in heading else "ridge"
+    row = table[[C.cell_text(int(q), float(a), fam, 1.0 if fam == "lasso" else 0.0) == heading
                  for q, a in zip(table["order"], table["penalty"])]]
     assert f"{float(row['rows_per_parameter'].iloc[0]):.1f}" == spp
     finding = next(f for f in report.findings if f.code == "few_samples_per_parameter")
