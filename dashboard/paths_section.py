@@ -21,6 +21,12 @@ def render(key: str, data, full, analysis, target: str, chart_block, table_downl
     ``full``: the whole grid, whose validation table holds every family)."""
     spec = analysis.spec
     rec = analysis.recommendation.recommended
+    if all(f == "ridge" for f in spec.families):
+        st.caption("Ridge shrinks every coefficient but keeps them all. To see which inputs "
+                   "the data select and how many they carry, add lasso or elastic net under "
+                   "Models → Penalty families.")
+        if not st.toggle("Trace the ridge coefficient paths anyway", key="path_ridge"):
+            return
     orders = [o for o in spec.order_list() if o > 0]
     if not orders:
         st.info("Only order 0 was swept: there are no terms to trace.")
@@ -48,10 +54,6 @@ def render(key: str, data, full, analysis, target: str, chart_block, table_downl
                                   analysis.validation, order=int(order), family=fam,
                                   l1_ratio=ratio, recommended=rec, target=target)
         chart_block(kept, "terms_kept")
-    else:
-        st.caption("Ridge shrinks every coefficient but keeps them all. To see how many "
-                   "inputs the data carry, add lasso or elastic net under Models → "
-                   "Penalty families.")
     left, right = st.columns(2)
     with left:
         st.markdown("**Order of entry along the lasso path** (all rows)")
