@@ -390,7 +390,7 @@ def test_page_shows_how_sure_with_the_engine_numbers(repo_root, demo_dir):
     table = load_table(demo_dir / "calibration_curve.csv")
     data = prepare(table.frame, "bath_temp_C", ["probe_mV"])
     spec = SweepSpec("bath_temp_C", ("probe_mV",), max_order=10, scheme=SchemeSpec("loo"),
-                     penalties=default_penalties())
+                     penalties=())   # the page's default: a penalty range fitted to the data
     sure = how_sure(analyse(data, spec), data)
     shown = {m.label: m.value for m in at.metric}
     assert shown["Error on new rows (MSE, 90% interval)"] == \
