@@ -342,6 +342,10 @@ def test_sidebar_walk_on_every_demo_and_an_upload_with_text(server, output_dir, 
             assert summary["validation"]["when_to_use"].startswith(name + ":")
             assert name in html
             assert summary["data"]["text_inputs"]["site"]["reference"] == "east"
+        finally:
+            browser.close()
+
+
 @pytest.mark.timeout(300)
 def test_wide_spectra_demo_shows_lasso_path_and_inputs_kept(server, output_dir):
     # the spectra demo sweeps ridge and lasso: the coefficient-path tab draws the lasso
