@@ -349,8 +349,7 @@ def recommend(table: pd.DataFrame, split_errors: SplitErrors | np.ndarray | None
         if used == "paired":
             within = (f"Its validation error ({vm[r]:.4g}) exceeds the best cell's "
                       f"({vm[b]:.4g}) by {diff[r]:.3g} ± {_g(dse[r])} in MSE on the same "
-                      "validation rows (mean paired difference ± one standard error), within "
-                      "one standard error")
+                      "rows (paired difference ± one SE)")
         else:
             within = (f"Its validation error ({vm[r]:.4g}) is within one standard "
                       f"error of the best ({vm[b]:.4g} + {se_b:.2g})")
