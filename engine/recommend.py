@@ -347,9 +347,8 @@ def recommend(table: pd.DataFrame, split_errors: SplitErrors | np.ndarray | None
                       "one standard error of it.")
     else:
         if used == "paired":
-            within = (f"Its validation error ({vm[r]:.4g}) exceeds the best cell's "
-                      f"({vm[b]:.4g}) by {diff[r]:.3g} ± {_g(dse[r])} in MSE on the same "
-                      "rows (paired difference ± one SE)")
+            within = (f"Its validation error ({vm[r]:.4g}) is {diff[r]:.3g} ± {_g(dse[r])} "
+                      f"above the best ({vm[b]:.4g}) on the same rows (paired, ± 1 SE)")
         else:
             within = (f"Its validation error ({vm[r]:.4g}) is within one standard "
                       f"error of the best ({vm[b]:.4g} + {se_b:.2g})")
