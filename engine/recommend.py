@@ -348,7 +348,8 @@ def recommend(table: pd.DataFrame, split_errors: SplitErrors | np.ndarray | None
     else:
         if used == "paired":
             within = (f"Its validation error ({vm[r]:.4g}) is {diff[r]:.3g} ± {_g(dse[r])} "
-                      f"above the best ({vm[b]:.4g}) on the same rows (paired, ± 1 SE)")
+                      f"above the best ({vm[b]:.4g}) on the same rows, within one standard "
+                      "error")
         else:
             within = (f"Its validation error ({vm[r]:.4g}) is within one standard "
                       f"error of the best ({vm[b]:.4g} + {se_b:.2g})")
