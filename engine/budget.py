@@ -155,7 +155,9 @@ def estimate(spec: SweepSpec, rows: int, n_inputs: int | None = None) -> Budget:
     P = n_terms(d, q, spec.interactions)
     orders = len(spec.order_list())
     pairs = spec.family_pairs() if hasattr(spec, "family_pairs") else [("ridge", 0.0)]
-    settings = max(1, len(pairs)) * len(spec.penalties)
+    # no penalties given: a range fitted to the data, at most MAX_POINTS values and 0
+    from .penalty_range import MAX_POINTS
+    settings = max(1, len(pairs)) * (len(spec.penalties) or MAX_POINTS + 1)
     splits, pieces = _splits(spec, rows)
     targets = len(spec.targets)
     fits = orders * settings * splits * targets

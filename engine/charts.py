@@ -382,10 +382,7 @@ def heatmap_chart(validation: pd.DataFrame, best: Cell, recommended: Cell, targe
             layers.append(alt.Chart(near).mark_text(text=NEAR_BEST_GLYPH, fontSize=13,
                                                     fontWeight="bold", color=PALETTE["ink"]
                                                     ).encode(x=x, y=y))
-        notes.append(f"{NEAR_BEST_GLYPH} marks cells the data cannot tell from the best "
-                     "(within one standard error of the paired differences)."
-                     if recommended.rule == "paired" else
-                     f"{NEAR_BEST_GLYPH} marks cells within one standard error of the best.")
+        notes[0] = notes[0][:-1] + f"; {NEAR_BEST_GLYPH}: no different from the best."
     chart = alt.layer(*layers).properties(
         width=max(260, min(_WIDTH, 38 * len(orders))), height=max(200, 18 * len(labels)),
         title=_title("Validation error for every order and penalty", notes))
@@ -463,7 +460,7 @@ def grid_heatmap_chart(cells: pd.DataFrame, x: str, y: str, best: Cell, recommen
         layers.append(alt.Chart(t[t["near_best"].astype(bool)]).mark_text(
             text=NEAR_BEST_GLYPH, fontSize=13, fontWeight="bold", color=PALETTE["ink"],
             dy=9).encode(x=ex, y=ey))
-        notes.append(f"{NEAR_BEST_GLYPH} marks cells the data cannot tell from the best.")
+        notes[0] = notes[0][:-1] + f"; {NEAR_BEST_GLYPH}: no different from the best."
     if held:
         notes.append("Held fixed: " + held + ".")
     chart = alt.layer(*layers).properties(

@@ -1326,7 +1326,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
   <div>{_h(r['reason'])}</div>
   <div style="margin-top:.8mm">Best cell: order {b['order']}, {_h(_penalty_words(b['penalty']))}{_h(rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used')))}
    (MSE {_h(_mse_words(b))}).
-   Chosen by the {_h(s['rule'].split(':')[0])}{_h(_se_method_words(s))}.</div>
+   Chosen by the {_h(s['rule'].split(':')[0].replace('one-standard-error', 'one-SE'))}.</div>
  </div>
  <div>
   <h2>Data and request</h2>

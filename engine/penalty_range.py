@@ -25,9 +25,10 @@ from .families.base import standardise
 
 #: Grid points per decade of penalty (log-spaced) and the most points a derived
 #: range may hold (chosen here: fine enough that neighbouring cells differ by
-#: about a quarter of a degree of freedom at the steepest).
+#: about a quarter of a degree of freedom at the steepest; at most as many rows as the
+#: earlier fixed grid, so the heat map keeps its size).
 PER_DECADE = 3
-MAX_POINTS = 30
+MAX_POINTS = 15
 #: Decades added on one side when a pick lies on an edge, and how many times.
 EXTEND_DECADES = 2.0
 MAX_EXTENSIONS = 3

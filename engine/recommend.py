@@ -347,10 +347,9 @@ def recommend(table: pd.DataFrame, split_errors: SplitErrors | np.ndarray | None
                       "one standard error of it.")
     else:
         if used == "paired":
-            within = (f"Its validation error ({vm[r]:.4g}) exceeds the best cell's "
-                      f"({vm[b]:.4g}) by {diff[r]:.3g} ± {_g(dse[r])} in MSE on the same "
-                      "validation rows (mean paired difference ± one standard error), within "
-                      "one standard error")
+            within = (f"Its validation error ({vm[r]:.4g}) is {diff[r]:.3g} ± {_g(dse[r])} "
+                      f"above the best ({vm[b]:.4g}) on the same rows, within one standard "
+                      "error")
         else:
             within = (f"Its validation error ({vm[r]:.4g}) is within one standard "
                       f"error of the best ({vm[b]:.4g} + {se_b:.2g})")

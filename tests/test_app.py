@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 from streamlit.testing.v1 import AppTest
 
-from engine import SchemeSpec, SweepSpec, analyse
+from engine import SchemeSpec, SweepSpec, analyse, default_penalties
 from engine import charts as C
 from engine.labels import CHARTS, TABLES, samples_per_parameter
 from engine.pack import build_pack, pack_zip_bytes
@@ -389,8 +389,8 @@ def test_page_shows_how_sure_with_the_engine_numbers(repo_root, demo_dir):
     assert "More rows or a simpler model?" in text
     table = load_table(demo_dir / "calibration_curve.csv")
     data = prepare(table.frame, "bath_temp_C", ["probe_mV"])
-    spec = SweepSpec("bath_temp_C", ("probe_mV",), max_order=10, scheme=SchemeSpec("loo"),
-                     penalties=())   # the page's default: a penalty range fitted to the data
+    # the page's default: a penalty range fitted to the data
+    spec = SweepSpec("bath_temp_C", ("probe_mV",), max_order=10, scheme=SchemeSpec("loo"))
     sure = how_sure(analyse(data, spec), data)
     shown = {m.label: m.value for m in at.metric}
     assert shown["Error on new rows (MSE, 90% interval)"] == \
