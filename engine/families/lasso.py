@@ -32,6 +32,8 @@ from .base import (FamilyFit, RawMap, TermSummary, fill_from_standardised, fill_
 
 NAME = "lasso"
 TOL = 1e-12
+#: Grid points per decade of the internal warm-start path (chosen here).
+WARM_PER_DECADE = 8
 
 
 def _gap(G: np.ndarray, b: np.ndarray, yy: np.ndarray, w: np.ndarray, l1: float,
@@ -137,7 +139,7 @@ def _sweep(G: np.ndarray, diag: np.ndarray, g: np.ndarray, w: np.ndarray, coords
 
 def solve_path(G: np.ndarray, b: np.ndarray, yy: np.ndarray, penalties: np.ndarray,
                l1_ratio: float, tol: float = TOL, cd_sweeps: int = 4,
-               max_steps: int = 100_000) -> np.ndarray:
+               max_steps: int = 100_000, warm_path: bool = True) -> np.ndarray:
     """Elastic-net coefficients on standardised terms for every penalty.
 
     Parameters
@@ -150,6 +152,8 @@ def solve_path(G: np.ndarray, b: np.ndarray, yy: np.ndarray, penalties: np.ndarr
     tol : stop when the duality gap is at most ``tol * yy``.
     cd_sweeps : coordinate-descent passes per penalty before the exact finish.
     max_steps : limit on active-set steps of the finish.
+    warm_path : solve along a log grid from the largest useful penalty down to the
+        smallest asked for (warm starts), returning only the penalties asked for.
 
     Returns
     -------
@@ -160,6 +164,21 @@ def solve_path(G: np.ndarray, b: np.ndarray, yy: np.ndarray, penalties: np.ndarr
     out = np.zeros((S, p, K))
     if p == 0 or K == 0:
         return out
+    if warm_path and l1_ratio > 0:
+        # warm starts need a path: solve from where every coefficient is zero down to the
+        # smallest penalty asked for, on a log grid of WARM_PER_DECADE points per decade,
+        # and keep the penalties asked for (a cold start on strongly correlated terms can
+        # take the exact finish through very many supports)
+        top = float(np.abs(b).max()) / l1_ratio
+        low = float(penalties.min())
+        if top > low > 0:
+            n_pts = int(np.ceil(np.log10(top / low) * WARM_PER_DECADE)) + 1
+            grid = np.logspace(np.log10(top), np.log10(low), n_pts)
+            allp = np.unique(np.r_[grid, penalties])
+            full = solve_path(G, b, yy, allp, l1_ratio, tol=tol, cd_sweeps=cd_sweeps,
+                              max_steps=max_steps, warm_path=False)
+            pos = np.searchsorted(allp, penalties)
+            return full[:, :, pos]
     diag = np.diagonal(G, axis1=1, axis2=2).copy()
     w = np.zeros((S, p))
     g = b.copy()                                    # b - G w
@@ -195,7 +214,7 @@ def solve_path(G: np.ndarray, b: np.ndarray, yy: np.ndarray, penalties: np.ndarr
             # finish from the previous penalty's exact solution (its support is a
             # sound start; an unconverged coordinate-descent iterate may not be)
             start = prev[si] if np.abs(prev[si]).sum() else w[si]
-            cand = _finish(G[si], b[si], start, l1, l2, max_steps=max_steps)
+            cand = _finish(G[si], b[si], start, l1, l2, max_steps=min(max_steps, 50 * p + 500))
             gc = _gap(G[si:si + 1], b[si:si + 1], yy[si:si + 1], cand[None], l1, l2)[0]
             if gc < gap[si]:
                 w[si] = cand
