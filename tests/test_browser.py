@@ -261,6 +261,10 @@ def test_sidebar_walk_on_every_demo_and_an_upload_with_text(server, output_dir, 
             _no_frozen_bar_or_error(page)
             side.get_by_text("Products of inputs (interactions)").click()
             _idle(page)
+            # a range of the user's own: the count and "without a penalty" appear
+            side.get_by_text("Penalty range from the data").click()
+            _idle(page)
+            _no_frozen_bar_or_error(page)
             _set_number(page, "Penalties in the range (log-spaced)", 8)
             _idle(page)
             side.get_by_text("Also fit without a penalty").click()
