@@ -72,6 +72,18 @@ _WIDTH = 520
 _HEIGHT = 300
 
 
+def _cell_marks() -> dict:
+    """Shape and stroke encodings of the best (diamond) and recommended (circle) markers."""
+    domain = ["lowest validation error", "recommended"]
+    return {"shape": alt.Shape("mark:N", title=None,
+                               scale=alt.Scale(domain=domain, range=["diamond", "circle"]),
+                               legend=alt.Legend(orient="bottom")),
+            "stroke": alt.Stroke("mark:N", title=None,
+                                 scale=alt.Scale(domain=domain, range=[PALETTE["best"],
+                                                                       PALETTE["recommended"]]),
+                                 legend=alt.Legend(orient="bottom"))}
+
+
 def _finish(chart: alt.TopLevelMixin) -> alt.TopLevelMixin:
     """Apply the product look to a top-level chart.
 
@@ -362,14 +374,7 @@ def heatmap_chart(validation: pd.DataFrame, best: Cell, recommended: Cell, targe
         for c, m in ((best, "lowest validation error"), (recommended, "recommended"))])
     pts = alt.Chart(marks).mark_point(size=200, strokeWidth=2.5, filled=False).encode(
         x=x, y=y,
-        shape=alt.Shape("mark:N", title=None,
-                        scale=alt.Scale(domain=["lowest validation error", "recommended"],
-                                        range=["diamond", "circle"]),
-                        legend=alt.Legend(orient="bottom")),
-        stroke=alt.Stroke("mark:N", title=None,
-                          scale=alt.Scale(domain=["lowest validation error", "recommended"],
-                                          range=[PALETTE["best"], PALETTE["recommended"]]),
-                          legend=alt.Legend(orient="bottom")),
+        **_cell_marks(),
         tooltip=[alt.Tooltip("mark:N", title="marker"), alt.Tooltip("cell:N", title="cell"),
                  alt.Tooltip("error:Q", title=f"validation {short}", format=".4g")])
     notes = [title + (", logarithmic colour scale." if use_log else ".")]
@@ -445,14 +450,7 @@ def grid_heatmap_chart(cells: pd.DataFrame, x: str, y: str, best: Cell, recommen
         layers.append(alt.Chart(pd.DataFrame(marks)).mark_point(
             size=200, strokeWidth=2.5, filled=False).encode(
             x=ex, y=ey,
-            shape=alt.Shape("mark:N", title=None,
-                            scale=alt.Scale(domain=["lowest validation error", "recommended"],
-                                            range=["diamond", "circle"]),
-                            legend=alt.Legend(orient="bottom")),
-            stroke=alt.Stroke("mark:N", title=None,
-                              scale=alt.Scale(domain=["lowest validation error", "recommended"],
-                                              range=[PALETTE["best"], PALETTE["recommended"]]),
-                              legend=alt.Legend(orient="bottom")),
+            **_cell_marks(),
             tooltip=[alt.Tooltip("cell:N", title="cell"),
                      alt.Tooltip("error:Q", title=f"validation {short}", format=".4g")]))
     notes = [title + (", logarithmic colour scale." if use_log else ".")]
