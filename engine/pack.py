@@ -709,6 +709,15 @@ def _versions() -> dict:
             "numpy": np.__version__, "pandas": pd.__version__, "scikit-learn": sklearn.__version__}
 
 
+def _recorded_load_options(load_options: dict | None) -> dict:
+    """How the data were read, as a re-run needs it (streamed packs also say so)."""
+    opts = load_options or {}
+    out = {"decimal": opts.get("decimal"), "sheet": opts.get("sheet")}
+    if opts.get("stream"):
+        out.update(stream=True, sample_rows=opts.get("sample_rows"))
+    return out
+
+
 def record_dict(spec: SweepSpec, data_facts: dict, roles: dict, cells: list[tuple[int, float]],
                 load_options: dict | None, source_path: str | None) -> dict:
     """The content of ``record.json``: what is needed to run the pack again."""
@@ -721,8 +730,7 @@ def record_dict(spec: SweepSpec, data_facts: dict, roles: dict, cells: list[tupl
                  "size_bytes": data_facts["size_bytes"], "rows_in": data_facts["rows_in"],
                  "rows_used": data_facts["rows_used"],
                  "rows_dropped": data_facts["rows_dropped"]},
-        "load_options": {"decimal": (load_options or {}).get("decimal"),
-                         "sheet": (load_options or {}).get("sheet")},
+        "load_options": _recorded_load_options(load_options),
         "roles": roles,
         "compare_cells": [[q, a] for q, a in cells],
         "versions": _versions(),
