@@ -1005,10 +1005,9 @@ def chart_to_png(chart: alt.TopLevelMixin, scale: float = 2) -> bytes:
 
 def warm_renderer() -> None:
     """Start the chart renderer once (its first call pays a start-up cost)."""
-    import vl_convert as vlc
+    from .render import warm
 
-    vlc.vegalite_to_svg({"data": {"values": [{"a": 1}]}, "mark": "point",
-                         "encoding": {"x": {"field": "a", "type": "quantitative"}}})
+    warm()
 
 
 #: Font sizes of charts printed at about 90 mm wide (the meeting pack's summary):
@@ -1115,23 +1114,19 @@ def render_chart(chart: alt.TopLevelMixin, scale: float = 2) -> tuple[bytes, str
     -------
     ``(png_bytes, svg_text)``
     """
-    import vl_convert as vlc
+    from .render import render_spec
 
-    svg = vlc.vegalite_to_svg(chart.to_dict())
-    return vlc.svg_to_png(svg, scale=scale), svg
+    return render_spec(chart.to_dict(), scale)
 
 
 def render_charts(charts: dict[str, alt.TopLevelMixin], scale: float = 2):
-    """Start rendering charts in a background thread (vl-convert releases the GIL).
+    """Start rendering charts in a background thread (`engine.render.ChartRenderer`).
 
     Returns
     -------
-    concurrent.futures.Future whose result is ``{stem: (png_bytes, svg_text)}``.
-    The caller can do other work meanwhile and collect the result when needed.
+    A future whose result is ``{stem: (png_bytes, svg_text)}``. The caller can
+    do other work meanwhile and collect the result when needed.
     """
-    from concurrent.futures import ThreadPoolExecutor
+    from .render import ChartRenderer
 
-    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fitladder-charts")
-    future = pool.submit(lambda: {stem: render_chart(ch, scale) for stem, ch in charts.items()})
-    pool.shutdown(wait=False)
-    return future
+    return ChartRenderer().submit(charts, scale)

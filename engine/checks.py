@@ -28,30 +28,24 @@ from .design import PolynomialBasis
 from .errors import InputProblem
 from .final_fit import FinalModel, fit_final
 from .spec import SchemeSpec
+from .threads import one_thread
 from .summaries import (LARGE_ROWS, SAMPLE_ROWS, SHIFT_SAMPLE_ROWS, fold_summaries,
                         out_of_fold_from_summaries, seeded_sample, split_leverage)
 
 Progress = Callable[[float, str], None]
 
-try:  # scikit-learn depends on threadpoolctl
-    from threadpoolctl import threadpool_limits as _threadpool_limits
-except ImportError:  # pragma: no cover
-    _threadpool_limits = None
-
 
 @contextmanager
 def single_threaded_blas():
-    """Run linear algebra on one thread inside the block.
+    """Run linear algebra on one thread inside the block (`engine.threads.one_thread`).
 
     The checks factor many small matrices; on a busy machine a threaded BLAS
     spends far longer coordinating threads than computing (measured: a QR of
     2,400 x 18 took 0.12 s on two threads under load against 0.003 s on one).
     """
-    if _threadpool_limits is None:  # pragma: no cover
+    with one_thread():
         yield
-        return
-    with _threadpool_limits(limits=1, user_api="blas"):
-        yield
+
 
 # ---------------------------------------------------------------------------
 # thresholds

@@ -28,7 +28,6 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats as _stats
 
 #: Leave-one-out R² from one or two inputs at or above which an input counts as
 #: reproducing the target (chosen here; calibration against a reference can
@@ -126,6 +125,8 @@ def correlations(X: np.ndarray, y: np.ndarray, between_inputs: bool = True
 
 def rank_correlations(X: np.ndarray, y: np.ndarray) -> np.ndarray:
     """Spearman rank correlation of every input with the target (average ranks for ties)."""
+    from scipy import stats as _stats   # imported when first needed (about a second)
+
     X = np.asarray(X, float)
     if X.shape[0] < 3:
         return np.full(X.shape[1], np.nan)

@@ -44,6 +44,7 @@ from .markup import escape_name, escape_text
 from .packdir import PackFolder, write_problem
 from .record import RECORD_FORMAT, request_fingerprint
 from .recommend import Cell
+from .render import ChartRenderer
 from .labels import (CHARTS, number_text, penalty_text, penalty_words, rung_text, scheme_name,
                      severity_rank)
 from .spec import SCHEME_HELP, SweepSpec
@@ -777,13 +778,19 @@ def _paths_dict(paths) -> dict:
             "notes": list(paths.notes)}
 
 
-def _write_paths(folder: Path, paths, analysis: Analysis, full: Analysis) -> None:
-    """Coefficient-path charts and tables (lasso or elastic net swept)."""
+def _write_paths(folder: Path, paths, analysis: Analysis, full: Analysis,
+                 drawn: dict | None = None) -> None:
+    """Coefficient-path charts and tables (lasso or elastic net swept).
+
+    ``drawn``: the charts of `_paths_charts` already rendered (``{stem: (png, svg)}``).
+    """
     from . import charts
-    for stem, chart in _paths_charts(paths, analysis, full).items():
-        (folder / f"{stem}.png").write_bytes(charts.chart_to_png(chart))
-        (folder / f"{stem}.svg").write_text(charts.chart_to_svg(chart), encoding="utf-8",
-                                             newline="\n")
+    if drawn is None:
+        drawn = {stem: charts.render_chart(chart)
+                 for stem, chart in _paths_charts(paths, analysis, full).items()}
+    for stem, (png, svg) in drawn.items():
+        (folder / f"{stem}.png").write_bytes(png)
+        (folder / f"{stem}.svg").write_text(svg, encoding="utf-8", newline="\n")
     write_csv(paths.table, folder / "coefficient_paths.csv")
     write_csv(paths.entry, folder / "lasso_entry_order.csv")
     write_csv(paths.survivors, folder / "inputs_kept.csv")
@@ -1492,9 +1499,10 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     progress : called as ``progress(fraction_done, message)``.
     load_options : how the file was read (``decimal``, ``sheet``), for re-runs.
     source_path : where the file was read from, for re-runs.
-    model_file_in_background : write ``model.skops`` in a forked child process
-        while the rest of the pack is computed (for the command line; a
-        server with threads writes it in-process).
+    model_file_in_background : write ``model.skops`` and draw the charts in forked
+        child processes while the rest of the pack is computed (for the command
+        line; a server with threads writes the file in-process and draws in a
+        thread).
     models : ``{(order, penalty): FinalModel}`` fits on all rows already made
         (`engine.compare.fit_candidates`); cells missing from it are fitted.
     learning : a `LearningCurve` already made; used when it covers the orders
@@ -1565,6 +1573,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                 pack_folder(out, overwrite))
             work = folder.work
         model_writer = _ModelFileWriter(model, work / "model.skops", model_file_in_background)
+        # a forked child starts the chart renderer now and draws while this process computes
+        renderer = stack.enter_context(ChartRenderer(fork=model_file_in_background))
         if progress:
             progress(0.62, "Learning curve")
         lc_orders = sorted({q for q, _ in learning_cells(cells)})
@@ -1590,8 +1600,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         from . import charts as _charts
         chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note,
                                  band=band)
-        rendering = _charts.render_charts({stem: _charts.for_print(ch, 75)
-                                           for stem, ch in chart_objs.items()})
+        rendering = renderer.submit({stem: _charts.for_print(ch, 75)
+                                     for stem, ch in chart_objs.items()})
         if checks is None:
             if progress:
                 progress(0.72, "Checks")
@@ -1609,6 +1619,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                                full=full)
         summary["checks"] = plain(_check_facts(checks))
         paths = _coefficient_paths(data, analysis, full)
+        paths_drawing = (renderer.submit(_paths_charts(paths, analysis, full))
+                         if paths is not None else None)
         if paths is not None:
             summary["coefficient_paths"] = plain(_paths_dict(paths))
         if targets is not None:
@@ -1633,7 +1645,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             write_csv(outlook.table if outlook is not None else pd.DataFrame(),
                       work / "more_rows.csv")
             if paths is not None:
-                _write_paths(work, paths, analysis, full)
+                _write_paths(work, paths, analysis, full, paths_drawing.result())
             if nested is not None:
                 write_csv(nested.per_fold, work / "nested_cv.csv")
             if stability is not None:

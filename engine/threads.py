@@ -15,12 +15,29 @@ from __future__ import annotations
 
 import os
 from contextlib import contextmanager
+from functools import lru_cache
 from typing import Iterator
 
-try:  # scikit-learn depends on threadpoolctl; it is also a direct requirement
-    from threadpoolctl import threadpool_limits as _threadpool_limits
-except ImportError:  # pragma: no cover
-    _threadpool_limits = None
+
+@lru_cache(maxsize=None)
+def blas_controller():
+    """The process's one `threadpoolctl.ThreadpoolController` (None without threadpoolctl).
+
+    Making a controller scans every shared library the process has loaded
+    (tens of milliseconds once scientific libraries are loaded), which
+    ``threadpool_limits`` does on every call; this one is made on first use
+    and kept. numpy and ``scipy.linalg`` are imported first so that the BLAS
+    libraries the engine's linear algebra runs on (scipy ships its own) are
+    both in it.
+    """
+    try:  # scikit-learn depends on threadpoolctl; it is also a direct requirement
+        from threadpoolctl import ThreadpoolController
+    except ImportError:  # pragma: no cover
+        return None
+    import numpy  # noqa: F401
+    import scipy.linalg  # noqa: F401
+
+    return ThreadpoolController()
 
 
 def available_cores() -> int:
@@ -51,10 +68,11 @@ def product_threads() -> int:
 @contextmanager
 def blas_threads(n: int) -> Iterator[None]:
     """Limit BLAS to ``n`` threads inside the block (process-wide; restored after)."""
-    if _threadpool_limits is None:  # pragma: no cover
+    controller = blas_controller()
+    if controller is None:  # pragma: no cover
         yield
         return
-    with _threadpool_limits(limits=max(1, int(n)), user_api="blas"):
+    with controller.limit(limits=max(1, int(n)), user_api="blas"):
         yield
 
 

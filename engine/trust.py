@@ -14,7 +14,6 @@ from typing import Callable
 
 import numpy as np
 import pandas as pd
-from sklearn.model_selection import GroupKFold, KFold
 
 from .analysis import Analysis, ArrayData, DataLike, analyse, data_grid
 from .checks import single_threaded_blas
@@ -70,6 +69,8 @@ def outer_splits(data: DataLike, spec: SweepSpec, outer_folds: int
     -------
     (list of (train rows, test rows), one plain sentence describing them)
     """
+    from sklearn.model_selection import GroupKFold, KFold   # imported when first needed
+
     n = int(np.asarray(data.y).size)
     k = int(outer_folds)
     kind = spec.scheme.kind

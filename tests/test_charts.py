@@ -147,3 +147,19 @@ def test_units_and_names():
     assert C.plain_name("x", "kg") == "x (kg)"
     assert C.penalty_text(0) == "none"
     assert C.penalty_text(0.1) == "0.1"
+
+
+def test_printed_pack_charts_are_valid_vega_lite(calibration):
+    """The pack draws its printed copies without validating them again; this does
+    (Altair checks the specification against the Vega-Lite JSON schema)."""
+    from engine import pack
+
+    data, spec, a = calibration
+    cells = pack.compare_cells(a, None)
+    models = fit_candidates(data, spec, cells)
+    lc = learning_curve(data, spec, orders=sorted({q for q, _ in pack.learning_cells(cells)}))
+    charts = pack.make_charts(a, lc.table, models, data, cells, lc.note)
+    assert set(charts) == set(pack.CHART_FILES)
+    for stem, chart in charts.items():
+        printed = C.for_print(chart, 75)
+        assert printed.to_dict(validate=True) == printed.to_dict(validate=False), stem
