@@ -89,3 +89,27 @@ def test_candidate_fits_from_summaries_match_qr(penalty, large_route):
         np.testing.assert_allclose(b.condition_number, a.condition_number, rtol=1e-6)
         np.testing.assert_allclose(b.effective_df, a.effective_df, rtol=1e-9)
         np.testing.assert_allclose(b.train_mse, a.train_mse, rtol=1e-9)
+
+
+def test_indicator_columns_found_from_the_first_rows_match_the_full_definition():
+    # Reference: the definition checked on every row with numpy (a column of only 0 and 1,
+    # neither constant; two such columns never 1 together); the quick route screens the
+    # first rows and checks only the columns that pass there.
+    from engine.design import indicator_structure
+    rng = np.random.default_rng(4)
+    n = 2000
+    level = rng.integers(0, 3, n)
+    X = np.column_stack([
+        rng.normal(size=n),                          # continuous
+        (level == 0).astype(float),                  # two levels of one text column
+        (level == 1).astype(float),
+        np.r_[np.ones(300), np.zeros(n - 300)],      # 0/1 but all ones in the first rows
+        np.r_[np.zeros(n - 1), 2.0],                 # 0 everywhere but one late 2
+        rng.integers(0, 2, n).astype(float),         # independent 0/1
+    ])
+    binary = [j for j in range(X.shape[1])
+              if np.all((X[:, j] == 0) | (X[:, j] == 1)) and X[:, j].any() and not X[:, j].all()]
+    pairs = [(a, b) for i, a in enumerate(binary) for b in binary[i + 1:]
+             if not np.any((X[:, a] == 1) & (X[:, b] == 1))]
+    assert indicator_structure(X) == (tuple(binary), tuple(pairs))
+    assert binary == [1, 2, 3, 5] and (1, 2) in pairs
