@@ -103,6 +103,39 @@ class Analysis:
     rankings: np.ndarray | None = None
     request: SweepSpec | None = None
     penalty_edges: list = field(default_factory=list)
+    pieces: list | None = field(default=None, repr=False)
+
+    def all_rows_summary(self):
+        """Summaries of every row at the sweep's full design, merged from the sweep's
+        piece summaries (no pass over the rows); None when they do not cover every row
+        or the analysis has rung axes.
+
+        Returns
+        -------
+        `engine.summaries.RowSummary` or None
+        """
+        if not self.pieces or self.model_spec is not None or not self.plan.rounds:
+            return None
+        from .summaries import RowSummary
+        if np.any(self.plan.rounds[0].pieces < 0):
+            return None
+        st = self.pieces[0]
+        n, m, M = combine_batch(st, np.ones((1, st.n_sets), dtype=np.int8))
+        return RowSummary(self.basis, float(n[0]), m[0], M[0])
+
+    def fold_summaries(self):
+        """Training summaries of the first round's splits at the sweep's full design, from
+        the sweep's piece summaries (as `engine.summaries.fold_summaries` forms them in a
+        pass over the rows); None without them."""
+        if not self.pieces or self.model_spec is not None or not self.plan.rounds:
+            return None
+        from .summaries import FoldSummaries
+        plan = self.plan
+        js = [j for r, j in plan.split_round if r == 0]
+        splits = [(np.asarray(plan.train_sets[i]), np.asarray(plan.valid_sets[i]))
+                  for i, (r, _) in enumerate(plan.split_round) if r == 0]
+        n_t, m_t, M_t = combine_batch(self.pieces[0], plan.rounds[0].train[js])
+        return FoldSummaries(self.basis, splits, n_t, m_t, M_t)
 
     @property
     def target(self) -> str:
@@ -280,6 +313,7 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
         with one_thread():   # many small factorisations; the row pass picks its own
             res = run_sweep(data.X, data.y, basis, plan, spec.order_list(), spec.penalties,
                             progress, families=spec.family_pairs())
+            pieces = res.pieces
             table, rec = _table_and_pick(res, spec)
             notes: list[str] = []
             edges = _edges(res, rec)
@@ -308,7 +342,8 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
         ran = replace(spec, penalties=_grid(res))
     return Analysis(spec=ran, sweep=res, validation=table, recommendation=rec, basis=basis,
                     plan=plan, n_rows=int(len(data.y)), notes=list(res.notes) + notes,
-                    request=spec if ran != spec else None, penalty_edges=edges)
+                    request=spec if ran != spec else None, penalty_edges=edges,
+                    pieces=pieces)
 
 
 def _grid(res: SweepResult) -> tuple[float, ...]:

@@ -1522,9 +1522,11 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
         # large tables: one pass gives every split's training summaries, shared by the
         # residual and leverage checks (no refits on the rows)
         top = max([q for q, _ in cells] + [int(rec.order)])
-        design = PolynomialBasis.fit(np.asarray(data.X, float), spec.inputs, top,
-                                     spec.interactions)
-        fold_stats = fold_summaries(data.X, data.y, design, analysis.plan)
+        fold_stats = analysis.fold_summaries()      # the sweep's pieces, when it kept them
+        if fold_stats is None or fold_stats.basis.max_order < top:
+            design = PolynomialBasis.fit(np.asarray(data.X, float), spec.inputs, top,
+                                         spec.interactions)
+            fold_stats = fold_summaries(data.X, data.y, design, analysis.plan)
     rec_model = models.get(rec_key) or fit_candidates(data, spec, [rec_key], **fam)[rec_key]
     report = CheckReport()
     summary = []

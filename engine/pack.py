@@ -1540,7 +1540,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     missing = [c for c in cells if c not in given]
     if missing:
         given.update(fit_candidates(data, analysis.spec, missing, family=rec.family,
-                                    l1_ratio=rec.l1_ratio))
+                                    l1_ratio=rec.l1_ratio, summary=analysis.all_rows_summary()))
     models = {c: given[c] for c in cells}
     model = models[_cell_key(rec.order, rec.penalty)]
     # the pack is made in a hidden sibling of `out` and moved into place when complete

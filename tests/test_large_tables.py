@@ -113,3 +113,44 @@ def test_indicator_columns_found_from_the_first_rows_match_the_full_definition()
              if not np.any((X[:, a] == 1) & (X[:, b] == 1))]
     assert indicator_structure(X) == (tuple(binary), tuple(pairs))
     assert binary == [1, 2, 3, 5] and (1, 2) in pairs
+
+
+@pytest.mark.parametrize("scheme", [SchemeSpec("kfold", folds=5), SchemeSpec("repeated", folds=3, repeats=2)])
+def test_all_rows_and_fold_summaries_from_the_sweep_pieces_match_numpy(scheme):
+    # Reference: numpy mean and centred cross-products of the expanded design rows
+    # (terms then target), for all rows and for each first-round training set.
+    data = _data(1500, seed=5)
+    spec = SweepSpec("y", ("a", "b", "c"), max_order=3, interactions=True, scheme=scheme)
+    analysis = analyse(data, spec)
+    R = np.column_stack([analysis.basis.expand(data.X), data.y])
+
+    def direct(rows):
+        Z = R[rows]
+        m = Z.mean(axis=0)
+        return m, (Z - m).T @ (Z - m)
+    s = analysis.all_rows_summary()
+    m, M = direct(np.arange(len(data.y)))
+    assert s.n == len(data.y)
+    np.testing.assert_allclose(s.mean, m, rtol=1e-11, atol=1e-12)
+    np.testing.assert_allclose(s.comoment, M, rtol=1e-10, atol=1e-9)
+    fs = analysis.fold_summaries()
+    assert len(fs.splits) == scheme.folds
+    for i, (tr, _) in enumerate(fs.splits):
+        m, M = direct(tr)
+        assert fs.n_t[i] == tr.size
+        np.testing.assert_allclose(fs.mean_t[i], m, rtol=1e-11, atol=1e-12)
+        np.testing.assert_allclose(fs.comoment_t[i], M, rtol=1e-10, atol=1e-9)
+
+
+def test_candidate_fits_from_the_sweep_summary_match_their_own_pass(large_route):
+    data = _data(3000, seed=6)
+    spec = SweepSpec("y", ("a", "b", "c"), max_order=3)
+    analysis = analyse(data, spec)
+    large_route()
+    own = compare.fit_candidates(data, spec, [(3, 0.5), (2, 0.0)])
+    shared = compare.fit_candidates(data, spec, [(3, 0.5), (2, 0.0)],
+                                    summary=analysis.all_rows_summary())
+    for key in own:
+        np.testing.assert_allclose(shared[key].coefficients, own[key].coefficients, rtol=1e-9,
+                                   atol=1e-12 * np.abs(own[key].coefficients).max())
+        np.testing.assert_allclose(shared[key].train_mse, own[key].train_mse, rtol=1e-9)
