@@ -422,6 +422,27 @@ class LearningCurve:
     table: pd.DataFrame
     note: str = ""
 
+    def covers(self, orders, penalties) -> bool:
+        """True when every order and every penalty given has rows here."""
+        have = np.asarray(sorted(set(self.table["penalty"].astype(float))), float)
+        pens = np.asarray(list(penalties), float)
+        return (set(int(q) for q in orders) <= set(int(q) for q in self.table["order"])
+                and all(np.isclose(have, a, rtol=1e-12, atol=0).any() for a in pens))
+
+    def restrict(self, orders=None, penalties=None) -> "LearningCurve":
+        """The rows of some orders and penalties (each row is computed on its own, so
+        the values are those of a curve run for just these)."""
+        def keep(t: pd.DataFrame) -> pd.DataFrame:
+            sel = np.ones(len(t), dtype=bool)
+            if orders is not None:
+                sel &= t["order"].isin([int(q) for q in orders]).to_numpy()
+            if penalties is not None:
+                pv = t["penalty"].to_numpy(float)
+                sel &= np.isclose(pv[:, None], np.asarray(list(penalties), float)[None, :],
+                                  rtol=1e-12, atol=0).any(axis=1)
+            return t[sel].reset_index(drop=True)
+        return LearningCurve(folds=keep(self.folds), table=keep(self.table), note=self.note)
+
 
 def learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None = None,
                    plan: FoldPlan | None = None) -> LearningCurve:

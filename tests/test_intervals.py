@@ -351,3 +351,19 @@ def test_large_table_prediction_intervals_match_row_by_row_fits(monkeypatch):
                           Ridge(alpha=a)).fit(x[tr, None], y[tr])
         want = np.sort(np.abs(y[va] - m.predict(x[va, None])))
         np.testing.assert_allclose(pi.radii[s], want, rtol=1e-8, atol=1e-10)
+
+
+def test_outlook_from_a_shared_learning_curve_equals_its_own_run():
+    # The pack runs one learning curve of every order and every penalty and the outlook
+    # reads its rows; each row is computed on its own, so the outlook must equal the one
+    # that runs its own curve at just the penalties it needs.
+    from engine.extrapolation import more_rows
+    x, y = _cubic(600, 12)
+    spec = SweepSpec("y", ("x",), orders=(1, 2, 3, 4), penalties=(0.0, 0.1, 1.0),
+                     scheme=SchemeSpec("kfold", folds=4))
+    data = ArrayData(x, y)
+    an = analyse(data, spec)
+    own = more_rows(an, data)
+    shared = more_rows(an, data, learning=learning_curve(data, an.spec))
+    pd.testing.assert_frame_equal(shared.table, own.table, check_exact=False, rtol=1e-9)
+    assert shared.verdict == own.verdict
