@@ -1567,7 +1567,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         if lc is None or not set(lc_orders) <= {int(q) for q in lc.table["order"]}:
             # every order at once (one pass): the larger-table outlook reads the same curve
             lc_all = learning_curve(data, analysis.spec,
-                                    orders=sorted(set(analysis.spec.order_list()) | set(lc_orders)))
+                                    orders=sorted(set(analysis.spec.order_list()) | set(lc_orders)),
+                                    pieces=analysis.learning_pieces)
             lc = lc_all.restrict(orders=lc_orders)
         if progress:
             progress(0.66, "Intervals and the larger-table outlook")

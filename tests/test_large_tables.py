@@ -154,3 +154,39 @@ def test_candidate_fits_from_the_sweep_summary_match_their_own_pass(large_route)
         np.testing.assert_allclose(shared[key].coefficients, own[key].coefficients, rtol=1e-9,
                                    atol=1e-12 * np.abs(own[key].coefficients).max())
         np.testing.assert_allclose(shared[key].train_mse, own[key].train_mse, rtol=1e-9)
+
+
+def test_sweep_and_learning_curve_from_one_shared_pass(monkeypatch):
+    # Large tables summarise (fold piece, row block) once for both the sweep and the
+    # learning curve. Reference for the curve: scikit-learn StandardScaler -> Ridge on the
+    # per-input powers fitted to the first `size` training rows of a split (row order, as
+    # sklearn.model_selection.learning_curve takes them); the sweep must equal its own pass.
+    from sklearn.linear_model import Ridge
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    import engine.analysis as A
+    data = _data(2500, seed=7)
+    spec = SweepSpec("y", ("a", "b", "c"), max_order=3, penalties=(0.0, 0.5),
+                     scheme=SchemeSpec("kfold", folds=4), seed=2)
+    own = analyse(data, spec)
+    assert own.learning_pieces is None
+    monkeypatch.setattr(A, "LARGE_ROWS", 100)
+    shared = analyse(data, spec)
+    assert shared.learning_pieces is not None
+    np.testing.assert_allclose(shared.validation["validation_mse"],
+                               own.validation["validation_mse"], rtol=1e-9)
+    lc_own = A.learning_curve(data, spec, orders=[1, 3])
+    lc = A.learning_curve(data, spec, orders=[1, 3], pieces=shared.learning_pieces)
+    np.testing.assert_allclose(lc.folds["validation_mse"], lc_own.folds["validation_mse"],
+                               rtol=1e-9)
+    np.testing.assert_allclose(lc.table["train_mse"], lc_own.table["train_mse"], rtol=1e-9)
+    tr, va = shared.plan.train_sets[1], shared.plan.valid_sets[1]
+    size = int(lc.folds["train_size"].unique()[1])
+    first = tr[:size]
+    powers = np.column_stack([data.X ** k for k in (1, 2, 3)])   # no interaction terms
+    m = make_pipeline(StandardScaler(), Ridge(alpha=0.5)).fit(powers[first], data.y[first])
+    want = np.mean((data.y[va] - m.predict(powers[va])) ** 2)
+    row = lc.folds[(lc.folds["order"] == 3) & (lc.folds["penalty"] == 0.5)
+                   & (lc.folds["train_size"] == size) & (lc.folds["fold"] == 2)]
+    assert float(row["validation_mse"].iloc[0]) == pytest.approx(want, rel=1e-7)
