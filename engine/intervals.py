@@ -749,11 +749,60 @@ def _sample(idx: np.ndarray, limit: int, rng: np.random.Generator) -> np.ndarray
     return idx if idx.size <= limit else np.sort(rng.choice(idx, size=limit, replace=False))
 
 
+def _from_pieces(plan: FoldPlan, pieces: list, basis: PolynomialBasis | None,
+                 design: CellDesign):
+    """Inner splits and the summaries `prediction_intervals` needs, merged from piece summaries.
+
+    Returns ``(inner_all, summary)`` in the order splits, all rows, inner
+    training sets, or None when the pieces cannot give them (another design,
+    rows outside round 0's pieces, or a split with fewer than two inner folds).
+    """
+    b = design.basis
+    if (basis is None or b.max_order > basis.max_order or b.interactions != basis.interactions
+            or b.centre.shape != basis.centre.shape
+            or not np.array_equal(b.centre, basis.centre)
+            or not np.array_equal(b.half_range, basis.half_range)
+            or not np.array_equal(b.terms, basis.terms[:b.n_terms])
+            or len(pieces) != len(plan.rounds) or np.any(plan.rounds[0].pieces < 0)):
+        return None
+    idx = np.r_[np.arange(design.p), basis.n_terms]
+    picks: list[tuple[int, np.ndarray]] = []
+    for r, j in plan.split_round:
+        picks.append((r, plan.rounds[r].train[j] > 0))
+    picks.append((0, np.ones(plan.rounds[0].n_pieces, dtype=bool)))
+    inner_all = []
+    for r, j in plan.split_round:
+        rnd = plan.rounds[r]
+        tr = rnd.train[j] > 0
+        inner = []
+        for j2 in range(rnd.train.shape[0]):
+            va_sel = (rnd.valid[j2] > 0) & tr
+            if j2 == j or pieces[r].n[va_sel].sum() == 0:
+                continue
+            lut = np.r_[va_sel, False]            # piece -1 (unused rows) -> False
+            inner.append(((tr & (rnd.train[j2] > 0)), np.flatnonzero(lut[rnd.pieces])))
+        if len(inner) < 2:
+            return None
+        picks += [(r, sel) for sel, _ in inner]
+        inner_all.append([(None, iva) for _, iva in inner])
+    n_out = np.zeros(len(picks))
+    m_out = np.zeros((len(picks), idx.size))
+    M_out = np.zeros((len(picks), idx.size, idx.size))
+    for r in range(len(plan.rounds)):
+        at = [i for i, (rr, _) in enumerate(picks) if rr == r]
+        if not at:
+            continue
+        n_r, m_r, M_r = combine_batch(pieces[r], np.stack([picks[i][1] for i in at]))
+        n_out[at], m_out[at], M_out[at] = n_r, m_r[:, idx], M_r[:, idx][:, :, idx]
+    return inner_all, TermSummary(n_out, m_out, M_out)
+
+
 def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
                          level: float = LEVEL, plan: FoldPlan | None = None,
                          family: str = "ridge", l1_ratio: float = 0.0,
                          max_checked_rows: int = _MAX_COVERAGE_ROWS,
-                         design: CellDesign | None = None) -> PredictionIntervals:
+                         design: CellDesign | None = None, pieces: list | None = None,
+                         pieces_basis: PolynomialBasis | None = None) -> PredictionIntervals:
     """Analytic and CV+ prediction intervals of one cell, with their coverage on unseen rows.
 
     Parameters
@@ -768,6 +817,11 @@ def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
     max_checked_rows : at most this many validation rows (a seeded sample) are
         checked for coverage.
     design : the cell's `CellDesign` when the caller already has it.
+    pieces, pieces_basis : per round of ``plan``, the piece summaries of the
+        design ``pieces_basis`` (target last) that the sweep formed
+        (`engine.analysis.Analysis.pieces`); every training set is then merged
+        from them instead of summarised in a pass over the rows (used when the
+        cell's design is a leading block of ``pieces_basis``).
 
     Returns
     -------
@@ -799,11 +853,16 @@ def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
     trains = [tr for rnd in rounds for tr, _ in rnd]
     valids = [va for rnd in rounds for _, va in rnd]
     S = len(trains)
-    inner_all = [_inner_splits(rnd, kk) for rnd in rounds for kk in range(len(rnd))]
+    shared = _from_pieces(plan, pieces, pieces_basis, design) if pieces is not None else None
+    if shared is not None:
+        # every training set is a union of the sweep's pieces: no pass over the rows
+        inner_all, summ = shared
+    else:
+        inner_all = [_inner_splits(rnd, kk) for rnd in rounds for kk in range(len(rnd))]
+        # every training set (splits, all rows, folds inside each split) from one pass
+        summ = design.summaries(trains + [np.arange(n)]
+                                + [itr for inner in inner_all for itr, _ in inner])
     inner_first = np.cumsum([0] + [len(inner) for inner in inner_all])
-    # every training set (splits, all rows, folds inside each split) from one pass
-    summ = design.summaries(trains + [np.arange(n)]
-                            + [itr for inner in inner_all for itr, _ in inner])
     split_fits = design.fit_summary(TermSummary(summ.n[:S + 1], summ.mean[:S + 1],
                                                 summ.M[:S + 1]), keep_leverage=analytic)
     rest = np.arange(S + 1, summ.n.shape[0])
@@ -954,8 +1013,12 @@ def how_sure(analysis, data, spec: SweepSpec | None = None, level: float = LEVEL
             design = CellDesign.make(data_w, spec_w, rec.order, rec.penalty, family, l1)
             err = error_interval(data_w, spec_w, rec.order, rec.penalty, level, family=family,
                                  l1_ratio=l1, progress=progress, design=design)
+            # the sweep's piece summaries give every training set (plain analyses)
+            shared = analysis.pieces if analysis.model_data is None else None
             pred = prediction_intervals(data_w, spec_w, rec.order, rec.penalty, level,
-                                        family=family, l1_ratio=l1, design=design)
+                                        plan=analysis.plan if shared else None,
+                                        family=family, l1_ratio=l1, design=design,
+                                        pieces=shared, pieces_basis=analysis.basis)
     except InputProblem:
         raise
     except (ValueError, np.linalg.LinAlgError) as exc:

@@ -367,3 +367,29 @@ def test_outlook_from_a_shared_learning_curve_equals_its_own_run():
     shared = more_rows(an, data, learning=learning_curve(data, an.spec))
     pd.testing.assert_frame_equal(shared.table, own.table, check_exact=False, rtol=1e-9)
     assert shared.verdict == own.verdict
+
+
+@pytest.mark.parametrize("scheme", [SchemeSpec("kfold", folds=5), SchemeSpec("blocked", folds=4, gap=5)])
+def test_prediction_intervals_from_the_sweep_pieces_match_row_by_row_fits(scheme):
+    # Every training set of the intervals is a union of the sweep's pieces. Reference:
+    # scikit-learn StandardScaler -> Ridge on the raw powers, fitted row by row on each
+    # split's training rows (CV+ radii) and on the folds inside them (coverage).
+    x, y = _cubic(500, 23)
+    a = 0.2
+    spec = SweepSpec("y", ("x",), orders=(1, 2, 3, 4), penalties=(0.0, a), scheme=scheme, seed=3)
+    data = ArrayData(x, y)
+    an = analyse(data, spec)
+    from engine.intervals import CellDesign, _from_pieces
+    assert _from_pieces(an.plan, an.sweep.pieces, an.basis,
+                        CellDesign.make(data, spec, 3, a)) is not None   # the pieces route runs
+    rows = prediction_intervals(data, spec, 3, a)
+    shared = prediction_intervals(data, spec, 3, a, plan=an.plan, pieces=an.sweep.pieces,
+                                  pieces_basis=an.basis)
+    P = np.column_stack([x ** k for k in (1, 2, 3)])
+    for s, (tr, va) in enumerate(zip(an.plan.train_sets, an.plan.valid_sets)):
+        m = make_pipeline(StandardScaler(), Ridge(alpha=a)).fit(P[tr], y[tr])
+        want = np.sort(np.abs(y[va] - m.predict(P[va])))
+        np.testing.assert_allclose(shared.radii[s], want, rtol=1e-8, atol=1e-10)
+    pd.testing.assert_frame_equal(shared.per_split, rows.per_split, check_exact=False, rtol=1e-9)
+    assert shared.cvplus_width == pytest.approx(rows.cvplus_width, rel=1e-9)
+    assert shared.analytic_width == pytest.approx(rows.analytic_width, rel=1e-9)
