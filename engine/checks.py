@@ -585,10 +585,21 @@ def sorted_by_input(data: DataLike, analysis: Analysis) -> str | None:
     if X.shape[0] < 3:
         return None
     for j, name in enumerate(analysis.spec.inputs):
-        d = np.diff(X[:, j])
-        if np.ptp(X[:, j]) > 0 and (np.all(d >= 0) or np.all(d <= 0)):
+        if not _monotone(X[:, j]):
+            continue
+        if np.ptp(X[:, j]) > 0:
             return str(name)
     return None
+
+
+def _monotone(v: np.ndarray) -> bool:
+    """True when ``v`` never falls or never rises. Its first rows are screened first: a
+    column that goes both ways there goes both ways over all rows."""
+    head = np.diff(v[:257])
+    if not (np.all(head >= 0) or np.all(head <= 0)):
+        return False
+    d = np.diff(v)
+    return bool(np.all(d >= 0) or np.all(d <= 0))
 
 
 _TIME_SCHEMES = ("blocked", "holdout")
@@ -690,10 +701,9 @@ def sorted_by_target(data: DataLike, analysis: Analysis) -> str | None:
     if _has_order(data, analysis):
         return None
     y = np.asarray(data.y, float).ravel()
-    if y.size < 3 or not np.ptp(y) > 0:
+    if y.size < 3 or not _monotone(y) or not np.ptp(y) > 0:
         return None
-    d = np.diff(y)
-    return str(analysis.spec.target) if (np.all(d >= 0) or np.all(d <= 0)) else None
+    return str(analysis.spec.target)
 
 
 def suggested_gap(r: float, n: int, folds: int) -> int:
@@ -1018,8 +1028,8 @@ def probe_points(X: np.ndarray) -> pd.DataFrame:
     """
     X = np.asarray(X, float)
     lo, hi = X.min(axis=0), X.max(axis=0)
-    med = np.median(X, axis=0)
-    p1, p99 = np.percentile(X, 1, axis=0), np.percentile(X, 99, axis=0)
+    # one partial sort per column gives the median and both percentiles
+    med, p1, p99 = (np.median(X, axis=0), *np.percentile(X, [1, 99], axis=0))
     rows = []
     for j in range(X.shape[1]):
         span = hi[j] - lo[j] if hi[j] > lo[j] else max(abs(lo[j]), 1.0)

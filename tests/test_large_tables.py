@@ -190,3 +190,18 @@ def test_sweep_and_learning_curve_from_one_shared_pass(monkeypatch):
     row = lc.folds[(lc.folds["order"] == 3) & (lc.folds["penalty"] == 0.5)
                    & (lc.folds["train_size"] == size) & (lc.folds["fold"] == 2)]
     assert float(row["validation_mse"].iloc[0]) == pytest.approx(want, rel=1e-7)
+
+
+def test_monotone_screen_matches_the_definition_on_every_row():
+    # Reference: numpy.diff over all rows (never falls, or never rises); the quick route
+    # screens the first rows before looking at the rest.
+    from engine.checks import _monotone
+    rng = np.random.default_rng(8)
+    up = np.sort(rng.normal(size=3000))
+    late_dip = up.copy()
+    late_dip[2500] = up[2400]
+    cases = [up, up[::-1], late_dip, rng.normal(size=3000), np.ones(3000), up[:10]]
+    for v in cases:
+        d = np.diff(v)
+        assert _monotone(v) == bool(np.all(d >= 0) or np.all(d <= 0))
+    assert _monotone(up) and not _monotone(late_dip)
