@@ -721,7 +721,7 @@ def suggested_gap(r: float, n: int, folds: int) -> int:
 # ---------------------------------------------------------------------------
 def check_serial_dependence(data: DataLike, analysis: Analysis,
                             final_model: FinalModel | None = None,
-                            basis: RowOrder | None = None, fold_stats=None
+                            basis: RowOrder | None = None, fold_stats=None, oof=None
                             ) -> tuple[Finding | None, pd.DataFrame, pd.DataFrame | None]:
     """Are neighbouring rows dependent, and does the scheme account for it?
 
@@ -752,8 +752,8 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
         final_model = fit_final(X, y, spec.inputs, rec.order, rec.penalty, spec.interactions,
                                 target=spec.target, family=rec.family, l1_ratio=rec.l1_ratio)
     r_target = lag1_autocorrelation(y)
-    rows, oof = out_of_fold_residuals(data, analysis, rec.order, rec.penalty,
-                                      fold_stats=fold_stats)
+    rows, oof = oof if oof is not None else out_of_fold_residuals(
+        data, analysis, rec.order, rec.penalty, fold_stats=fold_stats)
     contiguous = rows.size > 2 and np.all(np.diff(rows) == 1)
     # residual autocorrelation over consecutive validated rows only
     if contiguous or rows.size == n:
@@ -1483,7 +1483,8 @@ def default_candidates(analysis: Analysis) -> list[tuple[int, float]]:
 def run_checks(data: DataLike, analysis: Analysis,
                candidates: list[tuple[int, float]] | None = None,
                progress: Progress | None = None,
-               models: dict[tuple[int, float], FinalModel] | None = None) -> CheckReport:
+               models: dict[tuple[int, float], FinalModel] | None = None,
+               oof: tuple | None = None) -> CheckReport:
     """Run every warning-sign check on a finished analysis.
 
     Parameters
@@ -1497,6 +1498,9 @@ def run_checks(data: DataLike, analysis: Analysis,
     progress : called as ``progress(fraction_done, message)``.
     models : the candidates already fitted on all rows (`engine.compare.fit_candidates`),
         so that they are fitted once; missing ones are fitted here.
+    oof : ``(rows, residuals)``, the recommended cell's (ridge) out-of-fold residuals on
+        the first round of splits already formed (`engine.intervals.PredictionIntervals.oof`);
+        used for a large table instead of a pass of its own.
 
     Returns
     -------
@@ -1506,11 +1510,11 @@ def run_checks(data: DataLike, analysis: Analysis,
         train/validation gap; tables for each.
     """
     with single_threaded_blas():
-        return _run_checks(data, analysis, candidates, progress, models)
+        return _run_checks(data, analysis, candidates, progress, models, oof)
 
 
 def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
-                fitted=None) -> CheckReport:
+                fitted=None, oof=None) -> CheckReport:
     def tick(f: float, msg: str) -> None:
         if progress:
             progress(f, msg)
@@ -1556,8 +1560,9 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
                     "monotone function)"))
 
     tick(0.15, "Checking for dependence between neighbouring rows")
-    f, t_serial, comparison = check_serial_dependence(data, analysis, rec_model, basis,
-                                                      fold_stats=fold_stats)
+    f, t_serial, comparison = check_serial_dependence(
+        data, analysis, rec_model, basis, fold_stats=fold_stats,
+        oof=oof if fold_stats is not None and rec.family == "ridge" else None)
     report.tables["serial"] = t_serial
     if comparison is not None:
         report.tables["scheme_comparison"] = comparison

@@ -696,6 +696,8 @@ class PredictionIntervals:
     checked_on : ``'validation rows'`` or ``'later period'``.
     per_split : one row per split: rows, coverage of each interval.
     notes : plain sentences.
+    oof : ridge and least squares: ``(rows, residuals)`` of the first round's
+        validation rows (ascending) under their split models.
     """
 
     level: float
@@ -711,6 +713,7 @@ class PredictionIntervals:
     final: SetFits | None = field(default=None, repr=False)
     split_fits: SetFits | None = field(default=None, repr=False)
     radii: list[np.ndarray] = field(default_factory=list, repr=False)
+    oof: tuple | None = field(default=None, repr=False)
 
     def bounds(self, X_new) -> pd.DataFrame:
         """Intervals at new input rows ``X_new`` (raw units).
@@ -882,6 +885,9 @@ def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
                    np.r_[split_fits.edf, inner_fits.edf], np.r_[split_fits.sse, inner_fits.sse])
     res = design.residuals(both, assign)
     round_of = [r for r, rnd in enumerate(rounds) for _ in rnd]
+    # out-of-fold residuals of the first round in row order (ridge: the checks' fits too)
+    rows0 = np.flatnonzero(assign[0] >= 0)
+    oof = (rows0, res[0, rows0]) if family == "ridge" else None
     radii = [np.sort(np.abs(res[round_of[s], va])) for s, va in enumerate(valids)]
     # coverage on unseen rows: rebuild each interval from a split's training rows alone
     per_split = []
@@ -937,7 +943,7 @@ def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
         analytic_width=a_w, cvplus_width=float(np.median(np.concatenate(wid_c))),
         checked_rows=checked, checked_on="later period" if later else "validation rows",
         per_split=pd.DataFrame(per_split), notes=notes, design=design, final=final,
-        split_fits=split_only, radii=radii)
+        split_fits=split_only, radii=radii, oof=oof)
 
 
 # ---------------------------------------------------------------------------

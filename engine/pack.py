@@ -1595,8 +1595,10 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             if progress:
                 progress(0.72, "Checks")
             from .checks import run_checks
+            shared = (sure.prediction.oof if sure is not None and (sure.order, sure.penalty)
+                      == _cell_key(rec.order, rec.penalty) else None)
             checks = run_checks(data, analysis, cells, progress=_stage(progress, 0.72, 0.76),
-                                models=models)
+                                models=models, oof=shared)
         findings = _finding_dicts(checks)
         facts = _data_facts(source_data, loaded, source_name)
         if full.rows_left_out:

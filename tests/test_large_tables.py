@@ -205,3 +205,34 @@ def test_monotone_screen_matches_the_definition_on_every_row():
         d = np.diff(v)
         assert _monotone(v) == bool(np.all(d >= 0) or np.all(d <= 0))
     assert _monotone(up) and not _monotone(late_dip)
+
+
+@pytest.mark.parametrize("scheme", [SchemeSpec("kfold", folds=5), SchemeSpec("blocked", folds=4, gap=10)])
+def test_serial_check_from_the_intervals_residuals_matches_its_own_pass(scheme, large_route):
+    # The intervals form every first-round validation residual of the recommended (ridge)
+    # cell; the serial-dependence check reads them instead of its own pass. Reference for
+    # the residuals: scikit-learn StandardScaler -> Ridge per split on the raw powers.
+    from sklearn.linear_model import Ridge
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    from engine.intervals import prediction_intervals
+    data = _data()
+    spec = SweepSpec("y", ("a", "b", "c"), max_order=2, penalties=(0.0, 0.3), scheme=scheme,
+                     seed=3)
+    analysis = analyse(data, spec)
+    rec = analysis.recommendation.recommended
+    large_route()
+    pi = prediction_intervals(data, spec, rec.order, rec.penalty)
+    rows, res = pi.oof
+    P = np.column_stack([data.X ** k for k in range(1, rec.order + 1)])
+    for tr, va in zip(analysis.plan.train_sets, analysis.plan.valid_sets):
+        if np.isin(va, rows).all() and va.size:
+            m = make_pipeline(StandardScaler(), Ridge(alpha=rec.penalty)).fit(P[tr], data.y[tr])
+            got = res[np.searchsorted(rows, va)]
+            np.testing.assert_allclose(got, data.y[va] - m.predict(P[va]), rtol=1e-7, atol=1e-9)
+    own = C.run_checks(data, analysis)
+    shared = C.run_checks(data, analysis, oof=pi.oof)
+    np.testing.assert_allclose(shared.tables["serial"]["value"].to_numpy(float),
+                               own.tables["serial"]["value"].to_numpy(float), rtol=1e-9)
+    assert shared.codes() == own.codes()
