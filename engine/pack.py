@@ -1024,10 +1024,12 @@ def render_markdown(s: dict) -> str:
     return "\n".join(lines)
 
 
-def sureness(analysis: Analysis, data: DataLike, spec: SweepSpec) -> tuple[Any, Any, list[str]]:
+def sureness(analysis: Analysis, data: DataLike, spec: SweepSpec,
+             learning: Any | None = None) -> tuple[Any, Any, list[str]]:
     """Intervals (`engine.intervals.how_sure`) and the larger-table outlook
     (`engine.extrapolation.more_rows`) of the recommended cell; a part that cannot be
-    computed is None, with the reason in the returned notes."""
+    computed is None, with the reason in the returned notes. ``learning``: a learning
+    curve of every order already made, reused by the outlook."""
     from .extrapolation import more_rows
     from .intervals import how_sure
     notes: list[str] = []
@@ -1037,7 +1039,7 @@ def sureness(analysis: Analysis, data: DataLike, spec: SweepSpec) -> tuple[Any, 
     except InputProblem as exc:
         notes.append(f"Intervals not computed: {exc.message}")
     try:
-        outlook = more_rows(analysis, data, spec)
+        outlook = more_rows(analysis, data, spec, learning=learning)
     except InputProblem as exc:
         notes.append(f"Larger-table outlook not computed: {exc.message}")
     return sure, outlook, notes
@@ -1556,7 +1558,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     missing = [c for c in cells if c not in given]
     if missing:
         given.update(fit_candidates(data, analysis.spec, missing, family=rec.family,
-                                    l1_ratio=rec.l1_ratio))
+                                    l1_ratio=rec.l1_ratio, summary=analysis.all_rows_summary()))
     models = {c: given[c] for c in cells}
     model = models[_cell_key(rec.order, rec.penalty)]
     # the pack is made in a hidden sibling of `out` and moved into place when complete
@@ -1579,8 +1581,13 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             progress(0.62, "Learning curve")
         lc_orders = sorted({q for q, _ in learning_cells(cells)})
         lc = learning
+        lc_all = None
         if lc is None or not set(lc_orders) <= {int(q) for q in lc.table["order"]}:
-            lc = learning_curve(data, analysis.spec, orders=lc_orders)
+            # every order at once (one pass): the larger-table outlook reads the same curve
+            lc_all = learning_curve(data, analysis.spec,
+                                    orders=sorted(set(analysis.spec.order_list()) | set(lc_orders)),
+                                    pieces=analysis.learning_pieces)
+            lc = lc_all.restrict(orders=lc_orders)
         if progress:
             progress(0.66, "Intervals and the larger-table outlook")
         if sure is not None and hasattr(sure, "result"):  # the page's background job
@@ -1589,7 +1596,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             except Exception:  # noqa: BLE001 - computed here instead
                 sure = None
         sure, outlook, sure_notes = sure if sure is not None else sureness(analysis, data,
-                                                                            analysis.spec)
+                                                                            analysis.spec, lc_all)
         band = None
         if sure is not None and (sure.order, sure.penalty) in {_cell_key(q, a) for q, a in cells}:
             from .intervals import band_table
@@ -1606,8 +1613,10 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             if progress:
                 progress(0.72, "Checks")
             from .checks import run_checks
+            shared = (sure.prediction.oof if sure is not None and (sure.order, sure.penalty)
+                      == _cell_key(rec.order, rec.penalty) else None)
             checks = run_checks(data, analysis, cells, progress=_stage(progress, 0.72, 0.76),
-                                models=models)
+                                models=models, oof=shared)
         findings = _finding_dicts(checks)
         facts = _data_facts(source_data, loaded, source_name)
         if full.rows_left_out:

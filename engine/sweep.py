@@ -98,6 +98,7 @@ class SweepResult:
     row_comoment: np.ndarray | None = None   # (O*K, O*K) centred co-moment of squared errors
     statistics: tuple | None = field(default=None, repr=False)   # split summaries
     row_fits: list | None = field(default=None, repr=False)      # one split: fits for the row pass
+    pieces: list | None = field(default=None, repr=False)        # per-round piece summaries
 
     def __post_init__(self) -> None:
         K = int(np.asarray(self.penalties).size)
@@ -330,6 +331,7 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     if plan.loo:
         return _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress,
                           plan.description)
+    stats = None
     if statistics is None:
         stats = []
         for r, rnd in enumerate(plan.rounds):
@@ -347,6 +349,7 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     res = sweep_summaries(statistics, term_sets, A, a0, pen, families,
                           plan.description, progress)
     res.repeats = len(plan.rounds) if plan.kind == "repeated" else 1
+    res.pieces = stats
     add_row_errors(res, X, y, basis, plan)
     return res
 
