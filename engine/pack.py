@@ -60,8 +60,8 @@ CHART_FILES = dict(CHARTS)
 PACK_FILES = (
     "summary.html", "summary.md", "summary.json", "record.json",
     *[f"{stem}.{ext}" for stem in CHART_FILES for ext in ("png", "svg")],
-    "validation_grid.csv", "learning_curve.csv", "coefficients.csv", "warnings.csv",
-    "model_coefficients.csv", "interval_coverage.csv", "more_rows.csv", "model.skops",
+    "validation_grid.csv", "validation_per_split.csv", "learning_curve.csv", "coefficients.csv",
+    "warnings.csv", "model_coefficients.csv", "interval_coverage.csv", "more_rows.csv", "model.skops",
 )
 
 #: several targets: the side-by-side table at the top of the pack
@@ -1003,8 +1003,8 @@ def render_markdown(s: dict) -> str:
         lines += ["", md_escape(line)]
     lines += ["", "## Caution", "", CAUTION, "",
               "Charts: " + ", ".join(f"{stem}.png" for stem in CHART_FILES) + ". Tables: "
-              "validation_grid.csv, learning_curve.csv, coefficients.csv, warnings.csv, "
-              "model_coefficients.csv, interval_coverage.csv, more_rows.csv. Model: "
+              "validation_grid.csv, validation_per_split.csv, learning_curve.csv, coefficients.csv, "
+              "warnings.csv, model_coefficients.csv, interval_coverage.csv, more_rows.csv. Model: "
               "model.skops (scikit-learn pipeline).", ""]
     return "\n".join(lines)
 
@@ -1438,6 +1438,8 @@ def _write_files(work: Path, summary: dict, record: dict, pngs: dict[str, bytes]
         (work / f"{stem}.png").write_bytes(pngs[stem])
         put_text(f"{stem}.svg", svgs[stem])
     write_csv(full.validation, work / "validation_grid.csv")
+    # one row per (cell, split); leave-one-out: one row per (cell, held-out row)
+    write_csv(full.sweep.fold_table(), work / "validation_per_split.csv")
     write_csv(lc.table, work / "learning_curve.csv")
     write_csv(full.sweep.coefficient_table(), work / "coefficients.csv")
     write_csv(pd.DataFrame(findings, columns=["number", "code", "severity", "message", "value",
