@@ -44,8 +44,9 @@ from .markup import escape_name, escape_text
 from .packdir import PackFolder, write_problem
 from .record import RECORD_FORMAT, request_fingerprint
 from .recommend import Cell
-from .labels import (CHARTS, number_text, penalty_text, penalty_words, rung_text, scheme_name,
-                     severity_rank)
+from .labels import (CHARTS, DEFAULT_ERROR_UNIT, ERROR_UNITS, error_in_unit, number_text,
+                     penalty_text, penalty_words, reason_in_unit, rung_text, scheme_name,
+                     se_in_unit, severity_rank)
 from .spec import SCHEME_HELP, SweepSpec
 
 Progress = Callable[[float, str], None]
@@ -710,7 +711,8 @@ def _versions() -> dict:
 
 
 def record_dict(spec: SweepSpec, data_facts: dict, roles: dict, cells: list[tuple[int, float]],
-                load_options: dict | None, source_path: str | None) -> dict:
+                load_options: dict | None, source_path: str | None,
+                error_unit: str = DEFAULT_ERROR_UNIT) -> dict:
     """The content of ``record.json``: what is needed to run the pack again."""
     rec = plain({
         "format": RECORD_FORMAT,
@@ -725,6 +727,7 @@ def record_dict(spec: SweepSpec, data_facts: dict, roles: dict, cells: list[tupl
                          "sheet": (load_options or {}).get("sheet")},
         "roles": roles,
         "compare_cells": [[q, a] for q, a in cells],
+        "error_unit": error_unit,
         "versions": _versions(),
     })
     rec["request_sha256"] = request_fingerprint(rec)  # lets a re-run notice hand edits
@@ -871,6 +874,49 @@ def _mse_words(c: dict, se_name: str = "") -> str:
     return f"{_num(c['validation_mse'])} ± {_num(c['validation_mse_se'], 2)}{tail}"
 
 
+def _error_words(c: dict, unit: str, se_name: str = "") -> str:
+    """`_mse_words` in ``unit``: ``0.9397 ± 0.12 (1 SE)`` for RMSE (delta-method SE)."""
+    v = error_in_unit(c["validation_mse"], unit)
+    if c.get("validation_mse_se") is None:
+        return f"{_num(v)}, one split so no standard error"
+    se = se_in_unit(c["validation_mse"], c["validation_mse_se"], unit)
+    tail = f" ({se_name})" if se_name else ""
+    return f"{_num(v)} ± {_num(se, 2)}{tail}"
+
+
+def headline_dict(s: dict, unit: str = DEFAULT_ERROR_UNIT) -> dict:
+    """The headline of the summary with every error in one unit (``'mse'`` or ``'rmse'``).
+
+    ``summary.json`` carries it as ``headline``; ``summary.md`` and ``summary.html``
+    write their headline sentence and figures from it, so all three agree.
+    """
+    if unit not in ERROR_UNITS:
+        raise InputProblem(f"Unknown error unit '{unit}'; choose one of "
+                           f"{', '.join(ERROR_UNITS)}.", code="bad_error_unit")
+    r, b = s["recommended"], s["best"]
+    name = ERROR_UNITS[unit]
+    se = r.get("validation_mse_se")
+    b_se = b.get("validation_mse_se")
+    reason = reason_in_unit(r["reason"], r["validation_mse"], b["validation_mse"],
+                            b_se if b_se is not None else float("nan"), unit,
+                            diff_se=r.get("paired_difference_se"))
+    figures = (f"Validation {name} {_error_words(r, unit, 'one standard error')}; "
+               f"validation R² {_num(r['validation_r2'])}; "
+               f"{_num(r['effective_df'], 3)} effective parameters")
+    best = (f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}"
+            f"{rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used'))}: "
+            f"validation {name} {_error_words(b, unit)}")
+    return {"unit": unit, "unit_name": name,
+            "validation_error": error_in_unit(r["validation_mse"], unit),
+            "validation_error_se": None if se is None else
+            se_in_unit(r["validation_mse"], se, unit),
+            "best_error": error_in_unit(b["validation_mse"], unit),
+            "best_error_se": None if b_se is None else
+            se_in_unit(b["validation_mse"], b_se, unit),
+            "sentence": f"Recommended: {_headline(s)}. {figures}.",
+            "figures": figures, "reason": reason, "best": best}
+
+
 def _se_method_words(s: dict) -> str:
     """``; standard errors from ...`` for the paired rule, else nothing."""
     m = s.get("rule_se_method")
@@ -922,14 +968,10 @@ def render_markdown(s: dict) -> str:
     d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
     tgt = escape_name(roles["target"])
     lines = [f"# Model choice for {tgt}", ""]
-    lines += [f"**Recommended: {_headline(s)}.** Validation RMSE {_num(r['validation_rmse'])}; "
-              f"MSE {_mse_words(r, 'one standard error')}; validation R² "
-              f"{_num(r['validation_r2'])}; "
-              f"{_num(r['effective_df'], 3)} effective parameters.", "",
-              f"Why: {md_escape(r['reason'])}", "",
-              f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}"
-              f"{rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used'))}: validation MSE "
-              f"{_mse_words(b)}. "
+    h = s.get("headline") or headline_dict(s)
+    lines += [f"**Recommended: {_headline(s)}.** {h['figures']}.", "",
+              f"Why: {md_escape(h['reason'])}", "",
+              f"{h['best']}. "
               f"Rule: {md_escape(s['rule'])}{_se_method_words(s)}.", ""]
     lines += ["## Data", "",
               f"- File: {escape_name(d['file'])}",
@@ -1265,6 +1307,9 @@ def _use_html(s: dict) -> str:
 def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
     """``summary.html``: one printed page; charts embedded as base64 PNG; user text escaped."""
     d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
+    hd = s.get("headline") or headline_dict(s)
+    hd_se = (", one split so no standard error" if hd["validation_error_se"] is None
+             else f" ± {_num(hd['validation_error_se'], 2)} (1 SE)")
     tgt = _h(roles["target"])
     inputs = ", ".join(_h(c) for c in roles["inputs"])
     if len(roles["inputs"]) > 8:
@@ -1320,12 +1365,10 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
 <div class="top">
  <div class="verdict">
   <div class="big">Recommended: {_h(_headline(s))}</div>
-  <div class="fig">Validation RMSE <b>{_num(r['validation_rmse'])}</b> ·
-   MSE {_h(_mse_words(r, '1 SE'))} · R² {_num(r['validation_r2'])} ·
-   {_num(r['effective_df'], 3)} effective parameters</div>
-  <div>{_h(r['reason'])}</div>
-  <div style="margin-top:.8mm">Best cell: order {b['order']}, {_h(_penalty_words(b['penalty']))}{_h(rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used')))}
-   (MSE {_h(_mse_words(b))}).
+  <div class="fig">Validation {_h(hd['unit_name'])} <b>{_num(hd['validation_error'])}</b>{hd_se} ·
+   R² {_num(r['validation_r2'])} · {_num(r['effective_df'], 3)} effective parameters</div>
+  <div>{_h(hd['reason'])}</div>
+  <div style="margin-top:.8mm">{_h(hd['best'])}.
    Chosen by the {_h(s['rule'].split(':')[0].replace('one-standard-error', 'one-SE'))}.</div>
  </div>
  <div>
@@ -1460,7 +1503,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                model_file_in_background: bool = False, analyses: list[Analysis] | None = None,
                targets: pd.DataFrame | None = None, models: dict | None = None,
                learning: Any | None = None, trust: tuple | None = None,
-               overwrite: bool = False, sure: tuple | None = None) -> PackResult:
+               overwrite: bool = False, sure: tuple | None = None,
+               error_unit: str = DEFAULT_ERROR_UNIT) -> PackResult:
     """Write the meeting pack for one request into ``out_dir``.
 
     Whatever the caller already computed (the dashboard: its sweep, checks,
@@ -1500,6 +1544,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     sure : ``(HowSure or None, RowsOutlook or None, notes)`` as `sureness`
         returns it (or a future of it), already computed for this analysis;
         computed when None.
+    error_unit : ``'mse'`` or ``'rmse'`` (`engine.labels.ERROR_UNITS`): the one unit
+        of every error in the headline of ``summary.md``, ``summary.html`` and
+        ``summary.json`` (``headline``); the page's choice or ``--errors``.
 
     Returns
     -------
@@ -1511,6 +1558,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         For a request or data that cannot be analysed, or a compare order
         outside the sweep.
     """
+    if error_unit not in ERROR_UNITS:
+        raise InputProblem(f"Unknown error unit '{error_unit}'; choose one of "
+                           f"{', '.join(ERROR_UNITS)}.", code="bad_error_unit")
     direct = isinstance(out_dir, _Direct)
     opened = out_dir if isinstance(out_dir, PackFolder) else None
     out = out_dir.path if direct else opened.out if opened is not None else Path(out_dir)
@@ -1522,7 +1572,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                                    checks=checks, compare_orders=compare_orders,
                                    load_options=load_options, source_path=source_path,
                                    model_file_in_background=model_file_in_background,
-                                   overwrite=overwrite)
+                                   overwrite=overwrite, error_unit=error_unit)
     if analysis is None:
         analysis = analyse(data, spec, progress=_stage(progress, 0.0, 0.55))
     elif (getattr(analysis, "request", None) or analysis.spec) != spec:
@@ -1612,7 +1662,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                               "selection_stability": _stability_dict(stability, analysis),
                               "use": usage(model)}))
         summary.update(sureness_dict(sure, outlook, sure_notes))
-        record = record_dict(spec, facts, roles, cells, load_options, source_path)
+        summary["headline"] = plain(headline_dict(summary, error_unit))
+        record = record_dict(spec, facts, roles, cells, load_options, source_path, error_unit)
         if progress:
             progress(0.90, "Writing files")
         try:

@@ -2,13 +2,17 @@
 the headline, a saved model that takes the raw table, and a snippet that runs."""
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
 
 from engine import SchemeSpec, SweepSpec, analyse
+from engine.cli import build_parser
+from engine.labels import ERROR_UNITS, error_in_unit, se_in_unit
 from engine.loading import load_table, prepare
-from engine.pack import build_pack
+from engine.pack import build_pack, headline_dict, render_html, render_markdown
 
 
 @pytest.fixture(scope="module")
@@ -24,11 +28,14 @@ def loo_case(demo_dir):
 
 @pytest.fixture(scope="module")
 def loo_packs(loo_case, tmp_path_factory):
-    """The leave-one-out request packed."""
+    """The same leave-one-out request packed once per error unit."""
     loaded, data, spec, analysis = loo_case
-    folder = tmp_path_factory.mktemp("loo_mse") / "pack"
-    return {"mse": build_pack(folder, loaded=loaded, source_name="calibration_curve.csv",
-                              data=data, spec=spec, analysis=analysis)}
+    out = {}
+    for unit in ERROR_UNITS:
+        folder = tmp_path_factory.mktemp(f"loo_{unit}") / "pack"
+        out[unit] = build_pack(folder, loaded=loaded, source_name="calibration_curve.csv",
+                               data=data, spec=spec, analysis=analysis, error_unit=unit)
+    return out
 
 
 # ---------------------------------------------------------------------------
@@ -85,3 +92,89 @@ def test_k_fold_per_split_table_keeps_one_row_per_fold(demo_dir):
     per = a.sweep.fold_table()
     assert len(per) == len(a.validation) * 4 and (a.validation["folds"] == 4).all()
     assert per["n_validation"].sum() == data.n_rows * len(a.validation)
+
+
+# ---------------------------------------------------------------------------
+# one error unit in the headline
+# ---------------------------------------------------------------------------
+def _headline_md(md: str) -> str:
+    return md.split("## Data")[0]
+
+
+def _forbidden_numbers(s: dict, unit: str) -> set[str]:
+    """The headline's error figures written in the other unit (as the pack writes them)."""
+    other = "mse" if unit == "rmse" else "rmse"
+    out = set()
+    for c in (s["recommended"], s["best"]):
+        out.add(f"{error_in_unit(c['validation_mse'], other):.4g}")
+        if c.get("validation_mse_se") is not None:
+            out.add(f"{se_in_unit(c['validation_mse'], c['validation_mse_se'], other):.2g}")
+    if unit == "rmse" and s["recommended"].get("paired_difference"):
+        out.add(f"{s['recommended']['paired_difference']:.3g}")   # a difference in MSE
+    return out
+
+
+@pytest.mark.parametrize("unit", list(ERROR_UNITS))
+def test_every_error_in_the_headline_is_in_the_chosen_unit(loo_packs, unit):
+    res = loo_packs[unit]
+    s = res.summary
+    assert s["headline"]["unit"] == unit
+    r, b = s["recommended"], s["best"]
+    assert s["headline"]["validation_error"] == pytest.approx(
+        error_in_unit(r["validation_mse"], unit), rel=1e-12)
+    assert s["headline"]["best_error"] == pytest.approx(
+        error_in_unit(b["validation_mse"], unit), rel=1e-12)
+    md = (res.out_dir / "summary.md").read_text(encoding="utf-8")
+    head = _headline_md(md)
+    # the figures in the chosen unit are there ...
+    assert f"{error_in_unit(r['validation_mse'], unit):.4g}" in head
+    assert f"{error_in_unit(b['validation_mse'], unit):.4g}" in head
+    # ... and no error is named or written in the other unit
+    name = ERROR_UNITS[unit]
+    words = re.findall(r"\bR?MSE\b", head)
+    assert words and set(words) == {name}, words
+    numbers = set(re.findall(r"\d+(?:\.\d+)?(?:e[-+]?\d+)?", head))
+    clash = _forbidden_numbers(s, unit) & numbers
+    assert not clash, (clash, head)
+    # summary.html's verdict box says the same
+    html = (res.out_dir / "summary.html").read_text(encoding="utf-8")
+    verdict = html.split('<div class="verdict">')[1].split("</div>\n </div>")[0]
+    assert f"Validation {name} <b>{error_in_unit(r['validation_mse'], unit):.4g}</b>" in verdict
+    assert set(re.findall(r"\bR?MSE\b", verdict)) == {name}
+    assert not (_forbidden_numbers(s, unit) & set(re.findall(r"\d+(?:\.\d+)?", verdict)))
+
+
+def test_headline_renders_the_same_from_the_summary_for_both_units(loo_packs):
+    s = dict(loo_packs["mse"].summary)
+    for unit in ERROR_UNITS:
+        s["headline"] = headline_dict(s, unit)
+        md = render_markdown(s)
+        assert s["headline"]["figures"] in md
+        assert s["headline"]["reason"] in md.replace("\\", "")
+        assert f"Validation {ERROR_UNITS[unit]}" in render_html(s, {})
+
+
+def test_command_line_errors_option_reaches_the_pack(monkeypatch, demo_dir, tmp_path, capsys):
+    import engine.pack
+    from engine.cli import main
+
+    args = build_parser().parse_args(["run", "x.csv", "--target", "y", "--out", "o"])
+    assert args.errors == "mse"      # the page's default ("Errors shown as")
+    seen = []
+    real = engine.pack.build_pack
+
+    def spy(*a, **kw):
+        seen.append(kw.get("error_unit"))
+        return real(*a, **kw)
+
+    monkeypatch.setattr(engine.pack, "build_pack", spy)
+    out = tmp_path / "pack"
+    code = main(["run", str(demo_dir / "calibration_curve.csv"), "--target", "bath_temp_C",
+                 "--max-order", "2", "--penalties", "none", "--errors", "rmse",
+                 "--out", str(out)])
+    assert code == 0 and seen == ["rmse"]
+    printed = capsys.readouterr().out
+    import json
+    s = json.loads((out / "summary.json").read_text())
+    assert f"validation RMSE {s['headline']['validation_error']:.4g}" in printed
+    assert json.loads((out / "record.json").read_text())["error_unit"] == "rmse"
