@@ -39,7 +39,7 @@ from .jsonable import json_ready
 from .analysis import Analysis, DataLike, analyse, learning_curve
 from .compare import cell_label, fit_candidates
 from .errors import InputProblem
-from .final_fit import FinalModel
+from .final_fit import FinalModel, attach_text_inputs
 from .markup import escape_name, escape_text
 from .packdir import PackFolder, write_problem
 from .record import RECORD_FORMAT, request_fingerprint
@@ -88,6 +88,7 @@ EXPECTED_MODEL_TYPES = frozenset({
     "sklearn.preprocessing._polynomial.PolynomialFeatures",
     "sklearn.compose._column_transformer.ColumnTransformer",
     "sklearn.linear_model._base.LinearRegression",
+    "sklearn.preprocessing._encoders.OneHotEncoder",
 })
 
 _NUMPY_TYPES = frozenset({"numpy.float64", "numpy.int64", "numpy.int32", "numpy.bool_",
@@ -189,7 +190,9 @@ _penalty_short = penalty_text
 def sklearn_pipeline(model: FinalModel):
     """The fitted model as a scikit-learn `Pipeline` that predicts as ``model.predict``.
 
-    Steps: ``scale`` (a `StandardScaler` holding the model's centre and
+    Steps: ``encode`` only with text inputs (`text_encoder`: the raw text
+    column one-hot encoded, so the pipeline takes the table as the user has it),
+    ``scale`` (a `StandardScaler` holding the model's centre and
     half-range), ``terms`` (`PolynomialFeatures`; one per input in a
     `ColumnTransformer` when the model has no products of inputs) and ``fit``
     (`LinearRegression` with the coefficients on scaled-input powers). Terms the
@@ -217,9 +220,12 @@ def sklearn_pipeline(model: FinalModel):
     scaler.scale_ = np.asarray(model.half_range, float).copy()
     scaler.var_ = scaler.scale_ ** 2
     scaler.n_features_in_ = d
-    # predicting from a DataFrame with these columns raises no feature-name warning
-    scaler.feature_names_in_ = np.asarray([str(c) for c in model.input_names], dtype=object)
-    steps: list[tuple[str, Any]] = [("scale", scaler)]
+    encode = text_encoder(model)
+    if encode is None:
+        # predicting from a DataFrame with these columns raises no feature-name warning
+        scaler.feature_names_in_ = np.asarray([str(c) for c in model.input_names], dtype=object)
+    steps: list[tuple[str, Any]] = ([("encode", encode)] if encode is not None else []) + [
+        ("scale", scaler)]
     exps = np.asarray(model.exponents, dtype=np.int64).reshape(-1, d)
     interactions = bool(np.any((exps > 0).sum(axis=1) > 1)) if exps.size else False
     if q == 0:
@@ -256,6 +262,63 @@ def sklearn_pipeline(model: FinalModel):
     reg.n_features_in_ = n_out
     steps.append(("fit", reg))
     return Pipeline(steps)
+
+
+def text_encoder(model: FinalModel):
+    """The pipeline's first step for a model with text inputs, else None.
+
+    A `ColumnTransformer` that takes the table as the user has it (a DataFrame
+    with the raw text column, e.g. ``site`` = ``'north'``) and gives the model's
+    input columns in order: each text column through a `OneHotEncoder` whose
+    categories are the reference level and the levels with a term, dropping the
+    reference (treatment coding, as the fit), other columns passed through. A
+    level the model never saw raises scikit-learn's error (``handle_unknown=
+    'error'``): the model has no term for it. Text is compared as written
+    (the engine strips spaces at the ends of cells before choosing levels).
+    """
+    from sklearn.compose import ColumnTransformer
+    from sklearn.preprocessing import OneHotEncoder
+
+    text = dict(getattr(model, "text_inputs", None) or {})
+    if not text:
+        return None
+    owner = {}
+    for col, (_, levels) in text.items():
+        for lv in levels:
+            owner[f"{col}[{lv}]"] = col
+    parts: list[tuple[str, Any, list[str]]] = []
+    columns: list[str] = []
+    for name in (str(c) for c in model.input_names):
+        col = owner.get(name)
+        if col is None:
+            if parts and parts[-1][1] == "passthrough":
+                parts[-1][2].append(name)
+            else:
+                parts.append((f"numbers_{len(parts) + 1}", "passthrough", [name]))
+            columns.append(name)
+        elif not (parts and parts[-1][2] == [col] and parts[-1][1] != "passthrough"):
+            ref, levels = text[col]
+            if col in columns:  # pragma: no cover - a factor's terms are always adjacent
+                raise InputProblem(f"The terms of text input '{col}' are not adjacent.",
+                                   code="export_failed")
+            parts.append((f"text_{len(parts) + 1}",
+                          OneHotEncoder(categories=[[ref, *levels]], drop=[ref],
+                                        handle_unknown="error", sparse_output=False,
+                                        dtype=np.float64), [col]))
+            columns.append(col)
+    # fitted on a table of the levels (the encoder learns nothing else from it)
+    rows = max(len(levels) + 1 for _, levels in text.values())
+    frame = {}
+    for c in columns:
+        if c in text:
+            cycle = [text[c][0], *text[c][1]]
+            frame[c] = [cycle[i % len(cycle)] for i in range(rows)]
+        else:
+            frame[c] = np.zeros(rows)
+    encode = ColumnTransformer(parts, remainder="drop", sparse_threshold=0.0,
+                               verbose_feature_names_out=False)
+    encode.fit(pd.DataFrame(frame))
+    return encode
 
 
 def warm() -> None:
@@ -347,7 +410,8 @@ def load_pipeline(path: str | Path):
             for _, inner, _ in getattr(step, "transformers", []) or []:
                 parts.append(inner)
     if not isinstance(pipe, Pipeline) or any(
-            kind(p) not in EXPECTED_MODEL_TYPES and p != "drop" for p in parts):
+            kind(p) not in EXPECTED_MODEL_TYPES and p not in ("drop", "passthrough")
+            for p in parts):
         raise InputProblem(f"'{name}' is not a Fitladder model pipeline; it was not used.",
                            code="untrusted_model")
     return pipe
@@ -684,10 +748,17 @@ def model_formula(model: FinalModel, digits: int = 7, max_terms: int = 12) -> st
 def usage(model: FinalModel, file: str = "model.skops") -> dict:
     """How to use the recommended model elsewhere: three lines of Python, the
     formula and the input range it was fitted on."""
-    # the middle of each input's range; indicator terms of a text input (column[level]) at 0
-    example = {name: [0.0 if (str(name).endswith("]") and "[" in str(name) and lo == 0
-                              and hi == 1) else float(np.round((lo + hi) / 2, 6))]
-               for name, lo, hi in zip(model.input_names, model.x_min, model.x_max)}
+    # the middle of each input's range; a text input (column[level] terms) at its
+    # reference level, as the column is written in the table
+    text = dict(getattr(model, "text_inputs", None) or {})
+    owner = {f"{c}[{lv}]": c for c, (_, levels) in text.items() for lv in levels}
+    example: dict[str, list] = {}
+    for name, lo, hi in zip(model.input_names, model.x_min, model.x_max):
+        col = owner.get(str(name))
+        if col is not None:
+            example.setdefault(col, [text[col][0]])
+        else:
+            example[name] = [float(np.round((lo + hi) / 2, 6))]
     frame = ", ".join(f"{name!r}: {vals!r}" for name, vals in list(example.items())[:4])
     if len(example) > 4:
         frame += ", ..."
@@ -699,7 +770,13 @@ def usage(model: FinalModel, file: str = "model.skops") -> dict:
                           "types the file names. engine.pack.load_pipeline checks them first.",
             "formula": model_formula(model),
             "input_range": {name: [float(lo), float(hi)] for name, lo, hi in
-                            zip(model.input_names, model.x_min, model.x_max)}}
+                            zip(model.input_names, model.x_min, model.x_max)},
+            "text_inputs": {c: {"reference": ref, "levels": [ref, *levels]}
+                            for c, (ref, levels) in text.items()},
+            "text_note": " ".join(
+                f"Text input {c} takes the values {', '.join([ref, *levels])} as written; "
+                "any other value stops predict with an error (the model has no term for it)."
+                for c, (ref, levels) in text.items())}
 
 
 def _versions() -> dict:
@@ -1301,7 +1378,8 @@ def _use_html(s: dict) -> str:
     return (f"<div class=\"use\"><b>Use this model.</b> In Python, with pandas, scikit-learn "
             f"and skops:<pre>{code}</pre><b>Formula</b> (7 significant digits; full precision "
             f"in model_coefficients.csv): {_h(u['formula'])}. <b>Valid for</b> inputs inside "
-            f"the range it was fitted on: {ranges}. Predictions outside it were not checked.</div>")
+            f"the range it was fitted on: {ranges}. Predictions outside it were not checked."
+            + (f" {_h(u['text_note'])}" if u.get("text_note") else "") + "</div>")
 
 
 def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
@@ -1594,6 +1672,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         given.update(fit_candidates(data, analysis.spec, missing, family=rec.family,
                                     l1_ratio=rec.l1_ratio))
     models = {c: given[c] for c in cells}
+    for m in models.values():   # fits made elsewhere: the text inputs for the saved pipeline
+        if not m.text_inputs:
+            attach_text_inputs(m, getattr(source_data, "factors", None))
     model = models[_cell_key(rec.order, rec.penalty)]
     # the pack is made in a hidden sibling of `out` and moved into place when complete
     with ExitStack() as stack:

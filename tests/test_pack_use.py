@@ -178,3 +178,67 @@ def test_command_line_errors_option_reaches_the_pack(monkeypatch, demo_dir, tmp_
     s = json.loads((out / "summary.json").read_text())
     assert f"validation RMSE {s['headline']['validation_error']:.4g}" in printed
     assert json.loads((out / "record.json").read_text())["error_unit"] == "rmse"
+
+
+# ---------------------------------------------------------------------------
+# a saved model with a text input takes the raw text column
+# ---------------------------------------------------------------------------
+@pytest.fixture(scope="module")
+def text_pack(tmp_path_factory):
+    """A table with a text column (three sites) used as an input; pack of order <= 2."""
+    rng = np.random.default_rng(5)
+    n = 90
+    site = np.array(["north", "south", "east"])[rng.integers(0, 3, n)]
+    temp = rng.uniform(10, 30, n)
+    y = 3 + 0.5 * temp + 0.01 * temp ** 2 + np.select([site == "north", site == "south"],
+                                                      [1.0, -2.0], 0.0) + rng.normal(0, 0.3, n)
+    frame = pd.DataFrame({"temp_C": temp, "site": site, "yield_pct": y})
+    folder = tmp_path_factory.mktemp("text_src")
+    path = folder / "kiln_sites.csv"
+    frame.to_csv(path, index=False)
+    loaded = load_table(path)
+    data = prepare(loaded.frame, "yield_pct", ["temp_C", "site"])
+    spec = SweepSpec("yield_pct", tuple(data.inputs), max_order=2, penalties=(0.0, 0.1),
+                     scheme=SchemeSpec("kfold", folds=5))
+    res = build_pack(folder / "pack", loaded=loaded, source_name=path.name, data=data, spec=spec)
+    return res, data, frame
+
+
+def _run_snippet(lines: list[str], folder, scope: dict) -> tuple:
+    """Run the pack's own lines in the pack folder with warnings as errors: the first
+    two (imports, loading) as statements, the last (a prediction) as an expression;
+    then ``scope['_after']`` (a callable of the scope), still in the folder."""
+    import os
+    import warnings
+
+    here = os.getcwd()
+    try:
+        os.chdir(folder)
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            exec("\n".join(lines[:-1]), scope)
+            example = eval(lines[-1], scope)
+            after = scope["_after"](scope) if "_after" in scope else None
+    finally:
+        os.chdir(here)
+    return example, after
+
+
+def test_saved_model_with_a_text_input_predicts_from_the_raw_table(text_pack):
+    res, data, frame = text_pack
+    assert res.model.text_inputs == {"site": ("east", ("north", "south"))}
+    assert "site[north]" in res.model.input_names
+    use = res.summary["use"]["python"]
+    # the snippet's own lines load the file; then predict from the table as the user has it
+    example, got = _run_snippet(use, res.out_dir, {
+        "_after": lambda sc: sc["model"].predict(frame[["site", "temp_C"]])})
+    np.testing.assert_allclose(got, res.model.predict(data.X), rtol=1e-10,
+                               atol=1e-10 * np.ptp(data.y))
+    assert np.shape(example) == (1,) and np.isfinite(example).all()
+    assert "'site': ['east']" in use[2]      # the snippet writes the text as text
+    # the checked loader accepts the same file; a level never seen is refused
+    from engine.pack import load_pipeline
+    pipe = load_pipeline(res.out_dir / "model.skops")
+    with pytest.raises(ValueError, match="unknown categor"):
+        pipe.predict(pd.DataFrame({"temp_C": [20.0], "site": ["west"]}))
+    assert "north" in res.summary["use"]["text_note"]
