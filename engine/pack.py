@@ -271,13 +271,13 @@ def text_encoder(model: FinalModel):
     with the raw text column, e.g. ``site`` = ``'north'``) and gives the model's
     input columns in order: each text column through a `OneHotEncoder` whose
     categories are the reference level and the levels with a term, dropping the
-    reference (treatment coding, as the fit), other columns passed through. A
+    reference (treatment coding, as the fit), other columns unchanged. A
     level the model never saw raises scikit-learn's error (``handle_unknown=
     'error'``): the model has no term for it. Text is compared as written
     (the engine strips spaces at the ends of cells before choosing levels).
     """
     from sklearn.compose import ColumnTransformer
-    from sklearn.preprocessing import OneHotEncoder
+    from sklearn.preprocessing import OneHotEncoder, StandardScaler
 
     text = dict(getattr(model, "text_inputs", None) or {})
     if not text:
@@ -291,12 +291,14 @@ def text_encoder(model: FinalModel):
     for name in (str(c) for c in model.input_names):
         col = owner.get(name)
         if col is None:
-            if parts and parts[-1][1] == "passthrough":
+            if parts and parts[-1][0].startswith("numbers"):
                 parts[-1][2].append(name)
-            else:
-                parts.append((f"numbers_{len(parts) + 1}", "passthrough", [name]))
+            else:   # unchanged: an identity scaler (a "passthrough" would be saved as a
+                    # FunctionTransformer, a type that can carry any function)
+                parts.append((f"numbers_{len(parts) + 1}",
+                              StandardScaler(with_mean=False, with_std=False), [name]))
             columns.append(name)
-        elif not (parts and parts[-1][2] == [col] and parts[-1][1] != "passthrough"):
+        elif not (parts and parts[-1][2] == [col] and parts[-1][0].startswith("text")):
             ref, levels = text[col]
             if col in columns:  # pragma: no cover - a factor's terms are always adjacent
                 raise InputProblem(f"The terms of text input '{col}' are not adjacent.",
@@ -319,6 +321,26 @@ def text_encoder(model: FinalModel):
                                verbose_feature_names_out=False)
     encode.fit(pd.DataFrame(frame))
     return encode
+
+
+def _type_name(obj: Any) -> str:
+    return f"{type(obj).__module__}.{type(obj).__qualname__}"
+
+
+def pipeline_types(model: FinalModel) -> list[str]:
+    """The scikit-learn types the saved pipeline of ``model`` holds, in step order.
+
+    The "Use this model" snippet passes them to ``skops.io.load(trusted=...)`` as an
+    explicit allow-list (each is one of `EXPECTED_MODEL_TYPES`, which
+    `load_pipeline` checks).
+    """
+    pipe = sklearn_pipeline(model)
+    out = [_type_name(pipe)]
+    for _, step in pipe.steps:
+        for obj in [step] + [t for _, t, _ in getattr(step, "transformers", []) or []]:
+            if not isinstance(obj, str) and _type_name(obj) not in out:
+                out.append(_type_name(obj))
+    return out
 
 
 def warm() -> None:
@@ -410,8 +432,7 @@ def load_pipeline(path: str | Path):
             for _, inner, _ in getattr(step, "transformers", []) or []:
                 parts.append(inner)
     if not isinstance(pipe, Pipeline) or any(
-            kind(p) not in EXPECTED_MODEL_TYPES and p not in ("drop", "passthrough")
-            for p in parts):
+            kind(p) not in EXPECTED_MODEL_TYPES and p != "drop" for p in parts):
         raise InputProblem(f"'{name}' is not a Fitladder model pipeline; it was not used.",
                            code="untrusted_model")
     return pipe
@@ -759,15 +780,20 @@ def usage(model: FinalModel, file: str = "model.skops") -> dict:
             example.setdefault(col, [text[col][0]])
         else:
             example[name] = [float(np.round((lo + hi) / 2, 6))]
-    frame = ", ".join(f"{name!r}: {vals!r}" for name, vals in list(example.items())[:4])
-    if len(example) > 4:
-        frame += ", ..."
+    if len(example) <= 4 or text:
+        frame = ", ".join(f"{name!r}: {vals!r}" for name, vals in list(example.items())[:4])
+        if len(example) > 4:
+            frame += ", ..."
+        predict = f"model.predict(pd.DataFrame({{{frame}}}))"
+    else:   # many inputs: one row at the middle of every input's range (the scaler's centre)
+        predict = "model.predict(pd.DataFrame([model[0].mean_], columns=model.feature_names_in_))"
     python = ["import pandas as pd, skops.io as sio",
-              f"model = sio.load({file!r}, trusted=sio.get_untrusted_types(file={file!r}))",
-              f"model.predict(pd.DataFrame({{{frame}}}))"]
+              f"model = sio.load({file!r}, trusted={pipeline_types(model)!r})",
+              predict]
     return {"python": python,
-            "trust_note": f"Load only the {file} of this pack: loading trusts the scikit-learn "
-                          "types the file names. engine.pack.load_pipeline checks them first.",
+            "trust_note": f"Load only the {file} of this pack. The list names the scikit-learn "
+                          "types this model is made of; loading refuses any other type the "
+                          "file might hold. engine.pack.load_pipeline checks the same.",
             "formula": model_formula(model),
             "input_range": {name: [float(lo), float(hi)] for name, lo, hi in
                             zip(model.input_names, model.x_min, model.x_max)},

@@ -242,3 +242,87 @@ def test_saved_model_with_a_text_input_predicts_from_the_raw_table(text_pack):
     with pytest.raises(ValueError, match="unknown categor"):
         pipe.predict(pd.DataFrame({"temp_C": [20.0], "site": ["west"]}))
     assert "north" in res.summary["use"]["text_note"]
+
+
+# ---------------------------------------------------------------------------
+# the "Use this model" snippet: an explicit allow-list, and it runs
+# ---------------------------------------------------------------------------
+def _schema_types(path) -> set[str]:
+    """scikit-learn types named in a .skops file's schema.json (the skops file format:
+    a zip archive whose schema.json gives each object's __module__ and __class__)."""
+    import json
+    import zipfile
+
+    found: set[str] = set()
+
+    def walk(o):
+        if isinstance(o, dict):
+            if "__class__" in o and str(o.get("__module__", "")).startswith("sklearn"):
+                found.add(f"{o['__module__']}.{o['__class__']}")
+            for v in o.values():
+                walk(v)
+        elif isinstance(o, list):
+            for v in o:
+                walk(v)
+
+    with zipfile.ZipFile(path) as z:
+        walk(json.loads(z.read("schema.json")))
+    return found
+
+
+def _models_of_every_shape(text_pack):
+    from engine import ArrayData, fit_cell
+
+    rng = np.random.default_rng(3)
+    X = rng.uniform(0.0, 5.0, size=(60, 6))
+    y = 1 + X[:, 0] ** 2 - X[:, 1] + X[:, 2] * X[:, 3] + rng.normal(0, 0.1, 60)
+    names = tuple(f"ch_{j}" for j in range(6))
+    data = ArrayData(X, y, inputs=names)
+    out = {"text input": text_pack[0].model}
+    for label, inputs, inter, order in (("one input", names[:1], False, 3),
+                                        ("three inputs", names[:3], False, 2),
+                                        ("products", names[:2], True, 2),
+                                        ("six inputs", names, False, 1),
+                                        ("intercept only", names[:2], False, 0)):
+        d = ArrayData(X[:, :len(inputs)], y, inputs=inputs)
+        out[label] = fit_cell(d, SweepSpec("y", inputs, interactions=inter), order, 0.0)
+    del data
+    return out
+
+
+def test_snippet_trusts_an_explicit_list_of_the_pipeline_types_and_runs(text_pack, tmp_path):
+    import skops.io as sio
+
+    from engine.pack import EXPECTED_MODEL_TYPES, pipeline_types, save_pipeline, usage
+
+    for label, model in _models_of_every_shape(text_pack).items():
+        folder = tmp_path / label.replace(" ", "_")
+        folder.mkdir()
+        save_pipeline(model, folder / "model.skops")
+        use = usage(model)
+        lines = use["python"]
+        assert len(lines) == 3 and "get_untrusted_types" not in "\n".join(lines)
+        listed = pipeline_types(model)
+        assert f"trusted={listed!r}" in lines[1]
+        assert set(listed) <= EXPECTED_MODEL_TYPES
+        # the list is exactly the scikit-learn types the file holds (skops's own schema)
+        assert set(listed) == _schema_types(folder / "model.skops"), label
+        example, _ = _run_snippet(lines, folder, {})
+        assert np.shape(example) == (1,) and np.isfinite(example).all(), label
+        if "..." not in lines[2]:
+            # the example row is the middle of every range (text at its reference level)
+            mid = (np.asarray(model.x_min) + np.asarray(model.x_max)) / 2
+            if model.text_inputs:
+                mid[[i for i, n in enumerate(model.input_names) if "[" in n]] = 0.0
+            assert example[0] == pytest.approx(float(model.predict(mid[None, :])[0]),
+                                               rel=1e-6, abs=1e-9)
+    # a file holding a type outside the list is refused by the snippet's own load line
+    import operator
+
+    from sklearn.pipeline import Pipeline
+    from sklearn.preprocessing import FunctionTransformer
+    bad = tmp_path / "foreign"
+    bad.mkdir()
+    sio.dump(Pipeline([("f", FunctionTransformer(operator.neg))]), str(bad / "model.skops"))
+    with pytest.raises(sio.exceptions.UntrustedTypesFoundException):
+        _run_snippet(usage(text_pack[0].model)["python"], bad, {})
