@@ -933,6 +933,7 @@ def pack_request(loaded, source_name: str, data, analysis, spec: SweepSpec,
                 analysis=analysis, checks=pending, compare_orders=list(cells),
                 models=fits, learning=lc, trust=(nested, stab),
                 sure=run_once(("sureness", analysis_key), sureness, work_data, view),
+                error_unit=ss.get("metric", "mse"),
                 load_options={"decimal": "," if getattr(loaded.report, "decimal", ".") == ","
                               else None, "sheet": None})
 
@@ -956,7 +957,7 @@ def pack_zip(request: dict) -> bytes:
 
     key = ("pack", repr(request["spec"].to_dict()), request["source_name"],
            tuple(request["compare_orders"]), getattr(request["loaded"].report, "sha256", ""),
-           tuple(id(t) for t in request["trust"]))
+           tuple(id(t) for t in request["trust"]), request.get("error_unit"))
     try:
         return run_here(key, build).result()
     except InputProblem as exc:

@@ -23,6 +23,7 @@ from typing import Sequence
 
 from .errors import InputProblem
 from .lagged import LagSpec
+from .labels import DEFAULT_ERROR_UNIT, ERROR_UNITS
 from .spec import (DEFAULT_FOLDS, DEFAULT_GAP, DEFAULT_HOLDOUT_FRACTION, DEFAULT_MAX_ORDER,
                    DEFAULT_PENALTY_COUNT, DEFAULT_PENALTY_HIGH, DEFAULT_PENALTY_LOW,
                    DEFAULT_REPEATS, DEFAULT_SEED, SCHEME_HELP, SCHEMES, SELECTION_RULES, SchemeSpec, SweepSpec,
@@ -278,6 +279,10 @@ def build_parser() -> argparse.ArgumentParser:
                           "from the best cell on the same validation rows, within one standard "
                           "error of those differences) or unpaired (the classic "
                           "one-standard-error rule on each cell's own spread)")
+    run.add_argument("--errors", choices=tuple(ERROR_UNITS), default=DEFAULT_ERROR_UNIT,
+                     help="unit of every error in the pack's headline and in the line printed "
+                          "at the end: mse (mean squared error) or rmse (its root, in the "
+                          "target's units); the page's 'Errors shown as'")
     run.add_argument("--seed", type=int, default=DEFAULT_SEED, metavar="S",
                      help="seed for every shuffle")
     run.add_argument("--decimal-comma", action="store_true",
@@ -434,11 +439,14 @@ def _report(result, stream=None) -> None:
     r = s["recommended"]
     fam = {"elasticnet": "elastic-net"}.get(r.get("family", "ridge"), r.get("family", "ridge"))
     pen = "no penalty" if r["penalty"] == 0 else f"{fam} penalty {r['penalty']:.3g}"
-    rmse = r.get("validation_rmse")
     from .labels import rung_text
     more = rung_text(r.get("lags"), r.get("target_lags"), r.get("inputs_used"))
-    print(f"Recommended: order {r['order']}, {pen}{more} (validation RMSE "
-          f"{rmse:.4g} in units of {s['roles']['target']}; "
+    h = s.get("headline") or {"unit": "rmse", "validation_error": r.get("validation_rmse")}
+    err = (f"validation RMSE {h['validation_error']:.4g} in units of {s['roles']['target']}"
+           if h["unit"] == "rmse" else
+           f"validation MSE {h['validation_error']:.4g} in squared units of "
+           f"{s['roles']['target']}")
+    print(f"Recommended: order {r['order']}, {pen}{more} ({err}; "
           f"{len(s['warnings'])} warning{'s' if len(s['warnings']) != 1 else ''}).",
           file=stream)
     for t in s.get("targets") or []:
@@ -493,7 +501,8 @@ def command_stream(args: argparse.Namespace, folder=None) -> int:
     spec.validate()
     result = _stream_pack(folder if folder is not None else args.out, str(args.data), spec,
                           sample_rows=args.sample_rows, cluster=args.cluster,
-                          compare=args.compare, progress=progress)
+                          compare=args.compare, progress=progress,
+                          error_unit=args.errors)
     _report(result)
     return EXIT_OK
 
@@ -512,7 +521,8 @@ class _StreamedSource:
 
 
 def _stream_pack(out, source: str, spec: SweepSpec, *, sample_rows: int, cluster: str | None,
-                 compare, progress, expect_sha256: str | None = None):
+                 compare, progress, expect_sha256: str | None = None,
+                 error_unit: str | None = None):
     """Stream (or map over a Dask cluster) ``source`` and write the pack of ``spec``.
 
     A local file or folder is fingerprinted (SHA-256) in a background thread
@@ -564,7 +574,8 @@ def _stream_pack(out, source: str, spec: SweepSpec, *, sample_rows: int, cluster
                         progress=progress,
                         load_options={"stream": True, "cluster": cluster,
                                       "sample_rows": sample_rows},
-                        source_path=where, model_file_in_background=not cluster)
+                        source_path=where, model_file_in_background=not cluster,
+                        **({"error_unit": error_unit} if error_unit else {}))
     return result
 
 
@@ -652,7 +663,7 @@ def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,
                         load_options={"decimal": decimal, "sheet": args.sheet},
                         source_path=str(Path(args.data).resolve()),
-                        model_file_in_background=True)
+                        model_file_in_background=True, error_unit=args.errors)
     _report(result)
     return EXIT_OK
 
@@ -802,7 +813,8 @@ def _rerun_streamed(folder, rec: dict, spec, path: Path) -> int:
     cells = [(int(q), float(a)) for q, a in rec.get("compare_cells") or []] or None
     result = _stream_pack(folder, str(path), spec,
                           sample_rows=int(opts.get("sample_rows") or SAMPLE_ROWS), cluster=None,
-                          compare=cells, progress=progress, expect_sha256=rec["data"]["sha256"])
+                          compare=cells, progress=progress, expect_sha256=rec["data"]["sha256"],
+                          error_unit=rec.get("error_unit"))
     _report(result)
     return EXIT_OK
 
@@ -832,7 +844,8 @@ def _rerun_into(args: argparse.Namespace, folder, rec: dict, spec, path: Path) -
                         [(int(q), float(a)) for q, a in cells] if cells else None,
                         progress=progress, load_options=opts,
                         source_path=str(Path(path).resolve()),
-                        model_file_in_background=True)
+                        model_file_in_background=True,
+                        error_unit=rec.get("error_unit") or DEFAULT_ERROR_UNIT)
     _report(result)
     return EXIT_OK
 

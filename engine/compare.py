@@ -7,7 +7,7 @@ import pandas as pd
 from .analysis import DataLike, fit_cell
 from .design import PolynomialBasis
 from .summaries import LARGE_ROWS, summarise_rows
-from .final_fit import FinalModel
+from .final_fit import FinalModel, attach_text_inputs
 from .labels import penalty_text
 from .spec import SweepSpec
 from .threads import one_thread
@@ -41,8 +41,9 @@ def fit_candidates(data: DataLike, spec: SweepSpec, cells: list[tuple[int, float
                                         max(q for q, _ in keys), spec.interactions)
             summary = summarise_rows(data.X, data.y, basis)
         for key in keys:
-            out[key] = fit_cell(data, spec, key[0], key[1], summary=summary, family=family,
-                                    l1_ratio=l1_ratio)
+            out[key] = attach_text_inputs(
+                fit_cell(data, spec, key[0], key[1], summary=summary, family=family,
+                         l1_ratio=l1_ratio), getattr(data, "factors", None))
     return out
 
 

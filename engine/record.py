@@ -130,6 +130,7 @@ RECORD_SCHEMA: dict = {
             "type": "array", "maxItems": 50,
             "items": {"type": "array", "prefixItems": [_ORDER, _PENALTY],
                       "minItems": 2, "maxItems": 2}},
+        "error_unit": {"enum": ["mse", "rmse"]},
         "versions": {"type": "object",
                      "additionalProperties": {"type": ["string", "null"], "maxLength": 200}},
     },
