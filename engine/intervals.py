@@ -464,6 +464,29 @@ def _grouped_outer_folds(design: CellDesign, k: int, R: int, seed: int):
     G = k * GROUPS_PER_FOLD
     group = _shuffle_groups(n, G, seed)
     st = design.moments(group, G)
+    return _deal_groups(st, group, G, k, R, seed)
+
+
+def _shared_groups(groups, design: CellDesign, k: int):
+    """The sweep's random row groups (`engine.analysis.RowGroups`) on this cell's design,
+    or None when they cannot serve ``k`` outer folds."""
+    from .moments import Moments
+    b, full = design.basis, groups.basis
+    G = groups.n_groups
+    if (G % k or G < 2 * k or groups.label.size != design.y.size or np.any(groups.label < 0)
+            or b.max_order > full.max_order or b.interactions != full.interactions
+            or b.centre.shape != full.centre.shape or not np.array_equal(b.centre, full.centre)
+            or not np.array_equal(b.half_range, full.half_range)
+            or not np.array_equal(b.terms, full.terms[:b.n_terms])):
+        return None
+    idx = np.r_[np.arange(design.p), full.n_terms]
+    st = groups.stats
+    return Moments(st.n, st.mean[:, idx], st.comoment[:, idx][:, :, idx]), groups.label, G
+
+
+def _deal_groups(st, group: np.ndarray, G: int, k: int, R: int, seed: int):
+    """Each repetition deals the ``G`` groups afresh into ``k`` folds (seed ``seed + r``)."""
+    n = group.size
     folds = np.empty((R, n), dtype=np.int64)
     fold_sum = []
     for r in range(R):
@@ -515,7 +538,7 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
                    repeats: int | None = None, folds: int | None = None,
                    family: str = "ridge", l1_ratio: float = 0.0,
                    progress: Progress | None = None,
-                   design: CellDesign | None = None) -> ErrorInterval:
+                   design: CellDesign | None = None, groups=None) -> ErrorInterval:
     """Interval for the error of the cell ``(order, penalty)`` fitted on all rows.
 
     Parameters
@@ -530,6 +553,9 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
     family, l1_ratio : the cell's penalty family.
     progress : called as ``progress(fraction_done, message)``.
     design : the cell's `CellDesign` when the caller already has it.
+    groups : `engine.analysis.RowGroups`, random row groups the sweep already
+        summarised (large tables, shuffled schemes); the repetitions reshuffle
+        them instead of groups summarised here in a pass of their own.
 
     Returns
     -------
@@ -576,13 +602,22 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
     grouped = shuffled and n >= LARGE_ROWS and n >= 2 * k * GROUPS_PER_FOLD
     notes: list[str] = []
     if grouped:
-        fold_of, fold_sum = _grouped_outer_folds(design, k, R, int(spec.seed))
+        shared = _shared_groups(groups, design, k) if groups is not None else None
+        if shared is not None:   # the sweep's pass summarised them: no pass here
+            st, label, G = shared
+            fold_of, fold_sum = _deal_groups(st, label, G, k, R, int(spec.seed))
+            how = (f"the rows of each of the sweep's {G // groups.per_piece} folds were dealt "
+                   f"once at random into {groups.per_piece} groups (seed {groups.seed}), "
+                   f"{G} groups of about {n // G:,} rows")
+        else:
+            fold_of, fold_sum = _grouped_outer_folds(design, k, R, int(spec.seed))
+            G = k * GROUPS_PER_FOLD
+            how = (f"the rows were dealt once at random into {G} groups of about "
+                   f"{n // G:,} rows (seed {int(spec.seed)})")
         outer_fits, s_in, n_in = _nested_cv_parts(design, fold_sum, k)
-        G = k * GROUPS_PER_FOLD
-        notes.append(f"With {n:,} rows the repetitions reshuffle groups, not single rows: the "
-                     f"rows were dealt once at random into {G} groups of about {n // G:,} rows "
-                     f"(seed {int(spec.seed)}), and each repetition deals the groups afresh "
-                     f"into {k} folds (seeds {int(spec.seed)} to {int(spec.seed) + R - 1}).")
+        notes.append(f"With {n:,} rows the repetitions reshuffle groups, not single rows: "
+                     f"{how}, and each repetition deals the groups afresh into {k} folds "
+                     f"(seeds {int(spec.seed)} to {int(spec.seed) + R - 1}).")
     else:
         fold_of, fold_sum, outer_fits, s_in, n_in = _exact_nested(data, spec, design, k, R)
     # outer errors of single rows: every outer fit predicted in one pass over the rows
@@ -1017,10 +1052,12 @@ def how_sure(analysis, data, spec: SweepSpec | None = None, level: float = LEVEL
         # small solves, the row passes pick their own
         with one_thread():
             design = CellDesign.make(data_w, spec_w, rec.order, rec.penalty, family, l1)
+            plain = analysis.model_data is None
             err = error_interval(data_w, spec_w, rec.order, rec.penalty, level, family=family,
-                                 l1_ratio=l1, progress=progress, design=design)
+                                 l1_ratio=l1, progress=progress, design=design,
+                                 groups=analysis.row_groups if plain else None)
             # the sweep's piece summaries give every training set (plain analyses)
-            shared = analysis.pieces if analysis.model_data is None else None
+            shared = analysis.pieces if plain else None
             pred = prediction_intervals(data_w, spec_w, rec.order, rec.penalty, level,
                                         plan=analysis.plan if shared else None,
                                         family=family, l1_ratio=l1, design=design,

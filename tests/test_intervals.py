@@ -284,21 +284,34 @@ def test_row_sets_split_into_atoms_like_numpy_unique_on_membership_rows():
     np.testing.assert_array_equal(member[:, labels[used]].T.astype(bool), B[used])
 
 
-def test_grouped_nested_cv_of_a_large_table_matches_scikit_learn_on_the_same_folds(monkeypatch):
+@pytest.mark.parametrize("from_sweep", [False, True])
+def test_grouped_nested_cv_of_a_large_table_matches_scikit_learn_on_the_same_folds(
+        monkeypatch, from_sweep):
     # Reference: Bates, Hastie, Tibshirani (JASA 2023), Algorithm 1, with scikit-learn
     # LinearRegression fitted row by row on exactly the folds the large-table route uses
-    # (rows dealt once into seeded groups, groups dealt afresh into folds per repetition).
+    # (rows dealt once into seeded groups, groups dealt afresh into folds per repetition);
+    # the groups are summarised by the intervals' own pass or by the sweep's pass.
+    import engine.analysis as A
     import engine.intervals as iv
     monkeypatch.setattr(iv, "LARGE_ROWS", 100)
+    monkeypatch.setattr(A, "LARGE_ROWS", 100)
     n, K, R, seed = 600, 3, 2, 11
     x, y = _cubic(n, 21)
-    spec = _spec(seed=seed)
-    ei = error_interval(ArrayData(x, y), spec, 3, 0.0, repeats=R, folds=K, level=0.9)
+    spec = SweepSpec("y", ("x",), orders=(1, 2, 3, 4), penalties=(0.0,),
+                     scheme=SchemeSpec("kfold", folds=K), seed=seed)
+    groups = analyse(ArrayData(x, y), spec).row_groups if from_sweep else None
+    assert (groups is not None) == from_sweep
+    ei = error_interval(ArrayData(x, y), spec, 3, 0.0, repeats=R, folds=K, level=0.9,
+                        groups=groups)
     assert "groups" in ei.notes[-1] and f"seed {seed}" in ei.notes[-1]
     X = np.column_stack([x ** k for k in (1, 2, 3)])
-    G = K * iv.GROUPS_PER_FOLD
-    group = np.empty(n, dtype=np.int64)
-    group[np.random.default_rng(seed).permutation(n)] = np.arange(n) % G
+    if from_sweep:
+        group, G = groups.label, groups.n_groups
+        assert f"{G} groups" in ei.notes[-1]
+    else:
+        G = K * iv.GROUPS_PER_FOLD
+        group = np.empty(n, dtype=np.int64)
+        group[np.random.default_rng(seed).permutation(n)] = np.arange(n) % G
     a_list, b_list, e_in_all, e_out_all = [], [], [], []
     for r in range(R):
         of = np.empty(G, dtype=np.int64)
