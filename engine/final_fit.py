@@ -84,16 +84,17 @@ class FinalModel:
         if X.shape[0] > _PREDICT_CHUNK:   # bounded memory: the powers of one chunk at a time
             return np.concatenate([self.predict(X[i:i + _PREDICT_CHUNK])
                                    for i in range(0, X.shape[0], _PREDICT_CHUNK)])
-        U = (X - self.centre) / self.half_range
+        # one contiguous row per input (the same values as the columns of the scaled rows)
+        U = np.ascontiguousarray(((X - self.centre) / self.half_range).T)
         out = np.full(X.shape[0], self.scaled_intercept)
         if not len(self.exponents):
             return out
         top = self.exponents.max(axis=0)
         powers = []
-        for j in range(U.shape[1]):      # u_j^0 .. u_j^top_j, built once
-            col = [None, U[:, j]]
+        for j in range(U.shape[0]):      # u_j^0 .. u_j^top_j, built once
+            col = [None, U[j]]
             for _ in range(2, int(top[j]) + 1):
-                col.append(col[-1] * U[:, j])
+                col.append(col[-1] * U[j])
             powers.append(col)
         for e, b in zip(self.exponents, self.scaled_coefficients):
             term = None

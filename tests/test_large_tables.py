@@ -236,3 +236,19 @@ def test_serial_check_from_the_intervals_residuals_matches_its_own_pass(scheme, 
     np.testing.assert_allclose(shared.tables["serial"]["value"].to_numpy(float),
                                own.tables["serial"]["value"].to_numpy(float), rtol=1e-9)
     assert shared.codes() == own.codes()
+
+
+def test_final_model_predictions_match_its_raw_power_coefficients():
+    # Reference: numpy evaluation of the reported raw-power polynomial (intercept plus
+    # coefficient times each term's product of powers) on rows spanning more than one
+    # prediction chunk.
+    from engine.final_fit import _PREDICT_CHUNK, fit_final
+    rng = np.random.default_rng(9)
+    n = _PREDICT_CHUNK + 1000
+    X = rng.uniform(-2, 3, size=(n, 3)) + [10, 0, 1]
+    y = 1 + 0.5 * X[:, 0] - 0.2 * X[:, 1] ** 2 + X[:, 1] * X[:, 2] + rng.normal(0, 0.1, n)
+    m = fit_final(X[:3000], y[:3000], ("a", "b", "c"), 2, 0.0, interactions=True)
+    want = np.full(n, m.coefficients[0])
+    for e, c in zip(m.exponents, m.coefficients[1:]):
+        want += c * np.prod(X ** e, axis=1)
+    np.testing.assert_allclose(m.predict(X), want, rtol=1e-9, atol=1e-9 * np.abs(want).max())
