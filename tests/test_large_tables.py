@@ -252,3 +252,22 @@ def test_final_model_predictions_match_its_raw_power_coefficients():
     for e, c in zip(m.exponents, m.coefficients[1:]):
         want += c * np.prod(X ** e, axis=1)
     np.testing.assert_allclose(m.predict(X), want, rtol=1e-9, atol=1e-9 * np.abs(want).max())
+
+
+@pytest.mark.parametrize("interactions", [False, True])
+def test_expanded_terms_match_numpy_chebyshev_values(interactions):
+    # Reference: numpy.polynomial.chebyshev.chebval for T_k(u_j), multiplied across inputs
+    # for each term's exponents.
+    from numpy.polynomial import chebyshev
+
+    from engine.design import PolynomialBasis
+    rng = np.random.default_rng(10)
+    X = rng.uniform(-3, 5, size=(700, 4))
+    b = PolynomialBasis.fit(X, ("a", "b", "c", "d"), 3, interactions)
+    U = b.scale(X)
+    F = b.expand_scaled(U)
+    for t, e in enumerate(b.terms):
+        want = np.ones(len(X))
+        for j, k in enumerate(e):
+            want *= chebyshev.chebval(U[:, j], np.eye(k + 1)[k])
+        np.testing.assert_allclose(F[:, t], want, rtol=1e-12, atol=1e-12)
