@@ -143,7 +143,9 @@ class PolynomialBasis:
         return [term_name(t, self.input_names) for t in self.terms[:p]]
 
     def scale(self, X: np.ndarray) -> np.ndarray:
-        return (np.asarray(X, dtype=float) - self.centre) / self.half_range
+        U = np.subtract(np.asarray(X, dtype=float), self.centre)   # one new array, then in place
+        U /= self.half_range
+        return U
 
     def expand_scaled(self, U: np.ndarray, out: np.ndarray | None = None,
                       order: int | None = None) -> np.ndarray:
