@@ -135,7 +135,7 @@ class CellDesign:
     def U(self) -> np.ndarray:
         """Scaled inputs of every row (formed once)."""
         if self._U is None:
-            self._U = np.ascontiguousarray(self.basis.scale(self.X))
+            self._U = self.basis.scale(self.X)
         return self._U
 
     def rows(self, idx: np.ndarray | None = None) -> np.ndarray:
@@ -457,8 +457,9 @@ def _grouped_outer_folds(design: CellDesign, k: int, R: int, seed: int):
     ``k`` folds (seed ``seed + r``), so every fold is a random set of rows, as
     with a row-level shuffle, and every set's summary is a merge of groups.
 
-    Returns ``(fold_of (R, n), fold summaries)``: the outer fold of every row in
-    each repetition, and per repetition the ``(n, mean, comoment)`` of its folds.
+    Returns ``((group (n,), of (R, G)), fold summaries)``: each row's group, the
+    outer fold of every group in each repetition, and per repetition the
+    ``(n, mean, comoment)`` of its folds.
     """
     n = design.y.size
     G = k * GROUPS_PER_FOLD
@@ -486,16 +487,67 @@ def _shared_groups(groups, design: CellDesign, k: int):
 
 def _deal_groups(st, group: np.ndarray, G: int, k: int, R: int, seed: int):
     """Each repetition deals the ``G`` groups afresh into ``k`` folds (seed ``seed + r``)."""
-    n = group.size
-    folds = np.empty((R, n), dtype=np.int64)
     fold_sum = []
+    of_all = np.empty((R, G), dtype=np.int64)
     for r in range(R):
         of = np.empty(G, dtype=np.int64)
         of[np.random.default_rng(int(seed) + r).permutation(G)] = np.arange(G) % k
-        folds[r] = of[group]
+        of_all[r] = of
         W = (of[None, :] == np.arange(k)[:, None]).astype(np.int8)
         fold_sum.append(combine_batch(st, W))
-    return folds, fold_sum
+    return (group, of_all), fold_sum
+
+
+def _fold_error_stats(design: CellDesign, fits: "SetFits", fold_of, k: int,
+                      shift: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Count, sum and sum of squares of the outer squared errors of every (repetition, fold).
+
+    ``fits`` are the outer fits, repetition-major (``r * k + fold``). ``fold_of``
+    is either ``(R, n)`` (each row's outer fold per repetition, -1: none) or
+    ``(group (n,), of (R, G))`` when folds are unions of row groups; then the
+    rows are taken group by group and only the ``R`` fits each row needs are
+    evaluated. Sums are of ``e - shift`` (``e`` the squared error), against
+    cancellation. One pass over the rows either way.
+    """
+    if isinstance(fold_of, tuple):
+        group, of = fold_of
+        R, G = of.shape
+        cnt, s1, s2 = np.zeros((R, k)), np.zeros((R, k)), np.zeros((R, k))
+        order = np.argsort(group, kind="stable")
+        bounds = np.r_[0, np.cumsum(np.bincount(group, minlength=G))]
+        p = design.p
+        m = fits.summary.mean
+        c = m[:, -1] - np.einsum("sp,sp->s", m[:, :p], fits.beta_u)
+        step = int(max(256, min(CHUNK_ROWS, (8 << 20) // max(p, 1))))
+        buf = np.empty((step, p), order="F")
+        ar = np.arange(R)
+        for g in range(G):
+            cols = ar * k + of[:, g]
+            B = np.ascontiguousarray(fits.beta_u[cols].T)
+            for c0 in range(bounds[g], bounds[g + 1], step):
+                rows = order[c0:min(c0 + step, bounds[g + 1])]
+                if p:
+                    P = design.basis.expand_scaled(design.U[rows], out=buf[:rows.size]) @ B
+                    P += c[cols]
+                else:
+                    P = np.broadcast_to(c[cols], (rows.size, R))
+                e = (design.y[rows][:, None] - P) ** 2 - shift
+                cnt[ar, of[:, g]] += rows.size
+                s1[ar, of[:, g]] += e.sum(axis=0)
+                s2[ar, of[:, g]] += (e * e).sum(axis=0)
+        return cnt, s1, s2
+    R = fold_of.shape[0]
+    assign = np.where(fold_of >= 0, fold_of + k * np.arange(R)[:, None], -1)
+    res = design.residuals(fits, assign)
+    cnt, s1, s2 = np.zeros((R, k)), np.zeros((R, k)), np.zeros((R, k))
+    for r in range(R):
+        ok = fold_of[r] >= 0
+        f = fold_of[r, ok]
+        e = res[r, ok] ** 2 - shift
+        cnt[r] = np.bincount(f, minlength=k)[:k]
+        s1[r] = np.bincount(f, weights=e, minlength=k)[:k]
+        s2[r] = np.bincount(f, weights=e * e, minlength=k)[:k]
+    return cnt, s1, s2
 
 
 def _nested_cv_parts(design: CellDesign, fold_sum: list, k: int):
@@ -621,24 +673,21 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
     else:
         fold_of, fold_sum, outer_fits, s_in, n_in = _exact_nested(data, spec, design, k, R)
     # outer errors of single rows: every outer fit predicted in one pass over the rows
-    assign = np.where(fold_of >= 0, fold_of + k * np.arange(R)[:, None], -1)
-    res = design.residuals(outer_fits, assign)
-    a_list, b_list, out_errors = [], [], []
-    for r in range(R):
-        e_r = res[r] ** 2
-        for kk in range(k):
-            e_out = e_r[fold_of[r] == kk]
-            if not e_out.size:
-                continue
-            out_errors.append(e_out)
-            a_list.append((s_in[r, kk] / n_in[r, kk] - e_out.mean()) ** 2)
-            b_list.append(e_out.var(ddof=1) / e_out.size if e_out.size > 1 else 0.0)
     inner_sse = float(s_in.sum())
     inner_n = float(n_in.sum())
-    e_all = np.concatenate(out_errors)
-    err_cv = float(e_all.mean())
     err_ncv = inner_sse / inner_n
-    naive_se = float(e_all.std(ddof=1) / math.sqrt(n)) if e_all.size > 1 else float("nan")
+    cnt, s1, s2 = _fold_error_stats(design, outer_fits, fold_of, k, err_ncv)
+    used = cnt > 0
+    mean_out = np.where(used, s1 / np.where(used, cnt, 1.0), 0.0) + err_ncv
+    var_out = np.where(cnt > 1, (s2 - np.where(used, s1 * s1 / np.where(used, cnt, 1.0), 0.0))
+                       / np.where(cnt > 1, cnt - 1, 1.0), 0.0)
+    a_list = ((s_in / np.where(n_in > 0, n_in, 1.0) - mean_out) ** 2)[used]
+    b_list = np.where(cnt > 1, var_out / np.where(used, cnt, 1.0), 0.0)[used]
+    N = float(cnt.sum())
+    S1, S2 = float(s1.sum()), float(s2.sum())
+    err_cv = S1 / N + err_ncv
+    naive_se = (math.sqrt(max((S2 - S1 * S1 / N) / (N - 1), 0.0)) / math.sqrt(n) if N > 1
+                else float("nan"))
     mse_hat = float(np.mean(a_list) - np.mean(b_list))
     se = math.sqrt(max(mse_hat, 0.0) * (k - 1) / k)
     # the width stays between the naive one and sqrt(K) times it (Bates et al., section 4)
