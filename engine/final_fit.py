@@ -244,12 +244,11 @@ def _solve_from_summary(summary, X: np.ndarray, y: np.ndarray, order: int, penal
             return (Q @ (inv * (Q.T @ (v / du)))) / du
 
         b = solve(Mfy)
-        U = basis.scale(X)
         mf = m[:p]
         for _ in range(refine):
             g = np.zeros(p)
-            for c0 in range(0, y.size, _PREDICT_CHUNK):
-                F = basis.expand_scaled(U[c0:c0 + _PREDICT_CHUNK], order=order) - mf
+            for c0 in range(0, y.size, _PREDICT_CHUNK):   # scaled chunk by chunk (no n x d copy)
+                F = basis.expand_scaled(basis.scale(X[c0:c0 + _PREDICT_CHUNK]), order=order) - mf
                 res = (y[c0:c0 + _PREDICT_CHUNK] - ybar) - F @ b
                 g += F.T @ res
             b = b + solve(g)
@@ -309,7 +308,6 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         basis = PolynomialBasis.fit(X, input_names, order, interactions)
     p = basis.n_terms_at(order)
     E = basis.terms[:p]
-    U = basis.scale(X)
     scale_u = [Fraction(1) / Fraction(float(s)) for s in basis.half_range]
     shift_u = [-Fraction(float(c)) / Fraction(float(s)) for c, s in zip(basis.centre, basis.half_range)]
     notes: list[str] = []
@@ -333,6 +331,7 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
                                          [Fraction(float(v)) for v in g])
         return _finish(basis, X, y, order, penalty, input_names, target, E, poly_u,
                        scale_u, shift_u, dsd, cond, edf, notes, sv)
+    U = basis.scale(X)          # the row route (small tables) only
     Fu = basis.expand_scaled(U, order=order) if p else np.zeros((n, 0))
     raw_s = Fu @ As.T + a0 / r if p else Fu
     raw_mean_s = raw_s.mean(axis=0) if p else np.zeros(0)
