@@ -1102,6 +1102,11 @@ def how_sure(analysis, data, spec: SweepSpec | None = None, level: float = LEVEL
         with one_thread():
             design = CellDesign.make(data_w, spec_w, rec.order, rec.penalty, family, l1)
             plain = analysis.model_data is None
+            scaled = getattr(analysis, "scaled", None)
+            if (plain and scaled is not None and scaled.shape == design.X.shape
+                    and np.array_equal(design.basis.centre, analysis.basis.centre)
+                    and np.array_equal(design.basis.half_range, analysis.basis.half_range)):
+                design._U = scaled          # the sweep's scaled inputs: the same values
             err = error_interval(data_w, spec_w, rec.order, rec.penalty, level, family=family,
                                  l1_ratio=l1, progress=progress, design=design,
                                  groups=analysis.row_groups if plain else None)
