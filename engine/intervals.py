@@ -163,10 +163,22 @@ class CellDesign:
         n, mean, M = combine_batch(self.moments(labels, n_atoms), member)
         return TermSummary(n, mean, M)
 
-    def fit_summary(self, summary: TermSummary, keep_leverage: bool = False) -> "SetFits":
-        """Fit the cell on each summarised row set (no pass over the rows)."""
+    def fit_summary(self, summary: TermSummary, keep_leverage: bool = False,
+                    coefficients_only: bool = False) -> "SetFits":
+        """Fit the cell on each summarised row set (no pass over the rows).
+
+        ``coefficients_only``: a positive ridge penalty is solved by one linear
+        solve per set instead of an eigen-decomposition (the same solution; the
+        effective degrees of freedom are then not formed, NaN).
+        """
         A, a0 = self.basis.raw_map()
         raw = RawMap.select(A, a0, np.arange(self.p), summary.n_sets)
+        if (coefficients_only and self.family == "ridge" and self.penalty > 0 and self.p
+                and not keep_leverage):
+            fast = _ridge_by_solve(summary, raw, self.penalty)
+            if fast is not None:
+                return SetFits(self, summary, fast.beta_u[:, :, 0], fast.edf[:, 0],
+                               sse(summary, summary.mean, fast.beta_u)[:, 0])
         fit = fit_family(self.family, summary, raw, np.array([self.penalty]),
                          l1_ratio=self.l1_ratio, keep_leverage=keep_leverage)
         return SetFits(self, summary, fit.beta_u[:, :, 0], fit.edf[:, 0],
@@ -211,6 +223,25 @@ class CellDesign:
                 at = np.flatnonzero(s >= 0)
                 out[a, c0 + at] = yc[at] - P[at, s[at]]
         return out
+
+
+def _ridge_by_solve(summary: TermSummary, raw: RawMap, penalty: float):
+    """Ridge at one positive penalty by ``(G + alpha I) w = c`` on the standardised raw terms
+    (`engine.families.ridge` solves the same system through an eigen-decomposition);
+    None when a system is not positive definite."""
+    from .families.base import FamilyFit, fill_from_standardised, finish_intercepts, standardise
+    st = standardise(summary, raw)
+    Gs = st.G + penalty * np.eye(summary.p)[None, :, :]
+    try:
+        np.linalg.cholesky(Gs)          # positive definite, as the penalty makes it
+    except np.linalg.LinAlgError:
+        return None
+    fit = FamilyFit.empty(summary, 1)
+    W = np.linalg.solve(Gs, st.c[:, :, None])
+    fill_from_standardised(fit, summary, raw, st, W, np.array([True]))
+    fit.edf[:, 0] = np.nan
+    finish_intercepts(fit, summary, raw)
+    return fit
 
 
 @dataclass
@@ -568,7 +599,7 @@ def _nested_cv_parts(design: CellDesign, fold_sum: list, k: int):
     n_t = np.concatenate([p_[0] for p_ in parts])
     m_t = np.concatenate([p_[1] for p_ in parts])
     M_t = np.concatenate([p_[2] for p_ in parts])
-    fits = design.fit_summary(TermSummary(n_t, m_t, M_t))
+    fits = design.fit_summary(TermSummary(n_t, m_t, M_t), coefficients_only=True)
     R = len(fold_sum)
     per = sel.shape[0]
     j_idx = np.array([j for _, j in pairs])
@@ -746,7 +777,7 @@ def _exact_nested(data, spec: SweepSpec, design: CellDesign, k: int, R: int):
     n_t = np.concatenate([t.n for t in train_parts])
     m_t = np.concatenate([t.mean for t in train_parts])
     M_t = np.concatenate([t.M for t in train_parts])
-    fits = design.fit_summary(TermSummary(n_t, m_t, M_t))
+    fits = design.fit_summary(TermSummary(n_t, m_t, M_t), coefficients_only=True)
     s_in = np.zeros((R, k))
     n_in = np.zeros((R, k))
     outer_idx = []
