@@ -330,7 +330,8 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         poly_u = _chebyshev_to_monomials(np.vstack([np.zeros((1, d), int), E]),
                                          [Fraction(float(v)) for v in g])
         return _finish(basis, X, y, order, penalty, input_names, target, E, poly_u,
-                       scale_u, shift_u, dsd, cond, edf, notes, sv)
+                       scale_u, shift_u, dsd, cond, edf, notes, sv,
+                       sse=_summary_sse(summary, order, np.asarray(g, float)))
     U = basis.scale(X)          # the row route (small tables) only
     Fu = basis.expand_scaled(U, order=order) if p else np.zeros((n, 0))
     raw_s = Fu @ As.T + a0 / r if p else Fu
@@ -387,9 +388,21 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
     return model
 
 
+def _summary_sse(summary, order: int, g: np.ndarray) -> float | None:
+    """Training sum of squared errors of working-basis coefficients ``g`` (intercept first)
+    from all-rows summaries; None when it is so small against the target's own sum of
+    squares that rounding would show (then the rows are read instead)."""
+    p, m, M = summary.block(order)
+    b = g[1:]
+    d = float(m[p] - g[0] - m[:p] @ b)          # mean residual (0 up to rounding)
+    sse = float(M[p, p] - 2.0 * b @ M[:p, p] + b @ M[:p, :p] @ b) + summary.n * d * d
+    return sse if sse > 1e-6 * float(M[p, p]) else None
+
+
 def _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u, shift_u,
-            dsd, cond, edf, notes, sv) -> FinalModel:
-    """Exact map to raw powers, the model, and its fit summaries."""
+            dsd, cond, edf, notes, sv, sse: float | None = None) -> FinalModel:
+    """Exact map to raw powers, the model, and its fit summaries (``sse``: the training
+    sum of squared errors when already known from summaries; else from the rows)."""
     n, d = X.shape
     ybar = float(np.mean(y))
     poly_x = _substitute(poly_u, scale_u, shift_u)
@@ -410,8 +423,9 @@ def _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u
         r2=float("nan"), residual_sd=float("nan"), train_mse=float("nan"), effective_df=edf,
         x_min=X.min(axis=0), x_max=X.max(axis=0), notes=notes,
         design_singular_values=None if sv is None else np.asarray(sv, float))
-    resid = y - model.predict(X)
-    sse = float(resid @ resid)
+    if sse is None:
+        resid = y - model.predict(X)
+        sse = float(resid @ resid)
     sst = float(np.sum((y - ybar) ** 2))
     model.train_mse = sse / n
     model.r2 = 1.0 - sse / sst if sst > 0 else float("nan")

@@ -271,3 +271,17 @@ def test_expanded_terms_match_numpy_chebyshev_values(interactions):
         for j, k in enumerate(e):
             want *= chebyshev.chebval(U[:, j], np.eye(k + 1)[k])
         np.testing.assert_allclose(F[:, t], want, rtol=1e-12, atol=1e-12)
+
+
+@pytest.mark.parametrize("penalty", [0.0, 0.5])
+def test_training_error_from_summaries_matches_the_rows(penalty, large_route):
+    # Reference: numpy mean of the squared residuals of the model's own predictions on
+    # every row; the summary route forms it from the all-rows cross-products.
+    data = _data(3000, seed=11)
+    spec = SweepSpec("y", ("a", "b", "c"), max_order=3)
+    large_route()
+    m = compare.fit_candidates(data, spec, [(3, penalty)])[(3, penalty)]
+    resid = data.y - m.predict(data.X)
+    assert m.train_mse == pytest.approx(float(np.mean(resid ** 2)), rel=1e-9)
+    assert m.r2 == pytest.approx(1 - np.sum(resid ** 2) / np.sum((data.y - data.y.mean()) ** 2),
+                                 rel=1e-9)
