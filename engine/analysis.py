@@ -106,6 +106,8 @@ class Analysis:
     penalty_edges: list = field(default_factory=list)
     pieces: list | None = field(default=None, repr=False)
     learning_pieces: "LearningPieces | None" = field(default=None, repr=False)
+    row_groups: "RowGroups | None" = field(default=None, repr=False)
+    scaled: np.ndarray | None = field(default=None, repr=False)   # basis.scale(X), large tables
 
     def all_rows_summary(self):
         """Summaries of every row at the sweep's full design, merged from the sweep's
@@ -248,7 +250,8 @@ def _check_data(data: DataLike, spec: SweepSpec) -> None:
     if X.shape[1] != len(spec.inputs):
         raise InputProblem(f"The request names {len(spec.inputs)} inputs but the data have "
                            f"{X.shape[1]} input columns.", code="shape_mismatch")
-    for j, name in enumerate(spec.inputs):
+    # one pass over the whole array; the columns are looked at one by one only to name a bad one
+    for j, name in enumerate(spec.inputs if not np.isfinite(X).all() else ()):
         if not np.all(np.isfinite(X[:, j])):
             bad = int(np.flatnonzero(~np.isfinite(X[:, j]))[0])
             raise InputProblem(f"Column '{name}' has a missing or infinite value in row {bad + 1}; "
@@ -355,7 +358,9 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
     return Analysis(spec=ran, sweep=res, validation=table, recommendation=rec, basis=basis,
                     plan=plan, n_rows=int(len(data.y)), notes=list(res.notes) + notes,
                     request=spec if ran != spec else None, penalty_edges=edges,
-                    pieces=pieces, learning_pieces=shared[1] if shared else None)
+                    pieces=pieces, learning_pieces=shared[1] if shared else None,
+                    row_groups=shared[2] if shared else None,
+                    scaled=shared[3] if shared else None)
 
 
 def _grid(res: SweepResult) -> tuple[float, ...]:
@@ -572,6 +577,38 @@ def _learning_statistics(basis: PolynomialBasis, data: DataLike, plan: FoldPlan,
             yield i, cuts, combine_batch(st, sel), combine_batch(st, valid)
 
 
+#: Shuffled schemes, large tables: random subgroups of each fold piece summarised by the
+#: sweep's pass, so that the nested cross-validation's repetitions can reshuffle groups.
+SUBGROUPS = 8
+
+
+@dataclass
+class RowGroups:
+    """Summaries of random groups of rows at the sweep's full design (target last).
+
+    Group ``g`` of fold piece ``p`` is ``p * per_piece + g``; rows were dealt
+    into the ``per_piece`` subgroups of every piece at random with ``seed``.
+    ``label`` is each row's group (-1: none).
+    """
+
+    stats: Moments
+    label: np.ndarray
+    per_piece: int
+    seed: int
+    basis: PolynomialBasis
+
+    @property
+    def n_groups(self) -> int:
+        return int(self.stats.n_sets)
+
+
+def deal_rows(n: int, n_groups: int, seed) -> np.ndarray:
+    """Rows dealt at random (``seed``) into ``n_groups`` groups of equal size (one row apart)."""
+    group = np.empty(n, dtype=np.int64)
+    group[np.random.default_rng(seed).permutation(n)] = np.arange(n) % n_groups
+    return group
+
+
 def sweep_learning_pieces(basis: PolynomialBasis, data: DataLike, plan: FoldPlan,
                           spec: SweepSpec, progress=None):
     """One pass per round giving both the sweep's piece summaries and the learning curve's.
@@ -580,25 +617,50 @@ def sweep_learning_pieces(basis: PolynomialBasis, data: DataLike, plan: FoldPlan
     cuts them; merging the blocks of each piece gives the sweep's per-piece
     summaries exactly as its own pass would (up to rounding).
 
-    Returns ``(sweep pieces per round, LearningPieces)``; None when a round
-    would need more than `LEARNING_PIECE_BYTES` of summaries.
+    For shuffled k-fold schemes the first round's rows are also dealt at random
+    (seed ``spec.seed``) into `SUBGROUPS` subgroups per fold piece, summarised in
+    the same pass: the nested cross-validation of the intervals reshuffles
+    those groups (`engine.intervals.error_interval`).
+
+    Returns ``(sweep pieces per round, LearningPieces, RowGroups or None, scaled
+    inputs)``;
+    None when a round would need more than `LEARNING_PIECE_BYTES` of summaries.
     """
     n = len(data.y)
     q = basis.n_terms + 1
     sizes = train_sizes(spec.learning_sizes, len(plan.train_sets[0]))
     fine, coarse = [], []
+    groups = None
+    U = basis.scale(data.X)     # once for every round (kept for the intervals)
     for r, rnd in enumerate(plan.rounds):
         _, _, B, nb = _learning_blocks(plan, r, sizes, n)
-        L = rnd.n_pieces * nb
+        P = rnd.n_pieces
+        L = P * nb
         if L * q * q * 8 > LEARNING_PIECE_BYTES:
             return None
-        st = piece_statistics(basis, data.X, data.y, _learning_labels(plan, r, B, n), L)
-        sel = np.kron(np.eye(rnd.n_pieces, dtype=np.int8), np.ones((1, nb), dtype=np.int8))
+        labels = _learning_labels(plan, r, B, n)
+        m = SUBGROUPS if (r == 0 and plan.kind in ("kfold", "repeated")
+                          and L * SUBGROUPS * q * q * 8 <= LEARNING_PIECE_BYTES
+                          and np.all(rnd.pieces >= 0)) else 1
+        if m > 1:
+            sub = deal_rows(n, m, int(spec.seed))
+            st = piece_statistics(basis, data.X, data.y, labels * m + sub, L * m, U=U)
+            grp = np.zeros((P * m, L * m), dtype=np.int8)   # (piece, subgroup), every block
+            for p_ in range(P):
+                for g in range(m):
+                    grp[p_ * m + g, (p_ * nb + np.arange(nb)) * m + g] = 1
+            groups = RowGroups(Moments(*combine_batch(st, grp)), rnd.pieces * m + sub, m,
+                               int(spec.seed), basis)
+            st = Moments(*combine_batch(st, np.kron(np.eye(L, dtype=np.int8),
+                                                    np.ones((1, m), dtype=np.int8))))
+        else:
+            st = piece_statistics(basis, data.X, data.y, labels, L, U=U)
+        sel = np.kron(np.eye(P, dtype=np.int8), np.ones((1, nb), dtype=np.int8))
         coarse.append(Moments(*combine_batch(st, sel)))
         fine.append(st)
         if progress:
             progress(0.8 * (r + 1) / len(plan.rounds), "Summarising rows")
-    return coarse, LearningPieces(learning_key(spec, n, basis), fine, basis, plan)
+    return coarse, LearningPieces(learning_key(spec, n, basis), fine, basis, plan), groups, U
 
 
 def _split_learning_statistics(basis, data, plan, i, sizes):

@@ -143,7 +143,9 @@ class PolynomialBasis:
         return [term_name(t, self.input_names) for t in self.terms[:p]]
 
     def scale(self, X: np.ndarray) -> np.ndarray:
-        return (np.asarray(X, dtype=float) - self.centre) / self.half_range
+        U = np.subtract(np.asarray(X, dtype=float), self.centre)   # one new array, then in place
+        U /= self.half_range
+        return U
 
     def expand_scaled(self, U: np.ndarray, out: np.ndarray | None = None,
                       order: int | None = None) -> np.ndarray:
@@ -163,7 +165,7 @@ class PolynomialBasis:
             out[:, :d] = U
             kmax = p // d
             if kmax >= 2:
-                U2 = U + U
+                U2 = out[:, :d] + out[:, :d]    # laid out like `out` (same values as U + U)
                 for k in range(2, kmax + 1):
                     dst = out[:, (k - 1) * d:k * d]
                     np.multiply(out[:, (k - 2) * d:(k - 1) * d], U2, out=dst)
@@ -173,7 +175,8 @@ class PolynomialBasis:
                         dst -= out[:, (k - 3) * d:(k - 2) * d]
             return out
         top = int(self.terms[:p].sum(axis=1).max())
-        cheb = [chebyshev_columns(U[:, j], top) for j in range(d)]
+        Ut = np.ascontiguousarray(U.T)      # each input one contiguous row
+        cheb = [chebyshev_columns(Ut[j], top) for j in range(d)]
         for t in range(p):
             col = None
             for j, e in enumerate(self.terms[t]):

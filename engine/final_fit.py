@@ -87,16 +87,17 @@ class FinalModel:
         if X.shape[0] > _PREDICT_CHUNK:   # bounded memory: the powers of one chunk at a time
             return np.concatenate([self.predict(X[i:i + _PREDICT_CHUNK])
                                    for i in range(0, X.shape[0], _PREDICT_CHUNK)])
-        U = (X - self.centre) / self.half_range
+        # one contiguous row per input (the same values as the columns of the scaled rows)
+        U = np.ascontiguousarray(((X - self.centre) / self.half_range).T)
         out = np.full(X.shape[0], self.scaled_intercept)
         if not len(self.exponents):
             return out
         top = self.exponents.max(axis=0)
         powers = []
-        for j in range(U.shape[1]):      # u_j^0 .. u_j^top_j, built once
-            col = [None, U[:, j]]
+        for j in range(U.shape[0]):      # u_j^0 .. u_j^top_j, built once
+            col = [None, U[j]]
             for _ in range(2, int(top[j]) + 1):
-                col.append(col[-1] * U[:, j])
+                col.append(col[-1] * U[j])
             powers.append(col)
         for e, b in zip(self.exponents, self.scaled_coefficients):
             term = None
@@ -262,12 +263,11 @@ def _solve_from_summary(summary, X: np.ndarray, y: np.ndarray, order: int, penal
             return (Q @ (inv * (Q.T @ (v / du)))) / du
 
         b = solve(Mfy)
-        U = basis.scale(X)
         mf = m[:p]
         for _ in range(refine):
             g = np.zeros(p)
-            for c0 in range(0, y.size, _PREDICT_CHUNK):
-                F = basis.expand_scaled(U[c0:c0 + _PREDICT_CHUNK], order=order) - mf
+            for c0 in range(0, y.size, _PREDICT_CHUNK):   # scaled chunk by chunk (no n x d copy)
+                F = basis.expand_scaled(basis.scale(X[c0:c0 + _PREDICT_CHUNK]), order=order) - mf
                 res = (y[c0:c0 + _PREDICT_CHUNK] - ybar) - F @ b
                 g += F.T @ res
             b = b + solve(g)
@@ -327,7 +327,6 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         basis = PolynomialBasis.fit(X, input_names, order, interactions)
     p = basis.n_terms_at(order)
     E = basis.terms[:p]
-    U = basis.scale(X)
     scale_u = [Fraction(1) / Fraction(float(s)) for s in basis.half_range]
     shift_u = [-Fraction(float(c)) / Fraction(float(s)) for c, s in zip(basis.centre, basis.half_range)]
     notes: list[str] = []
@@ -350,7 +349,9 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         poly_u = _chebyshev_to_monomials(np.vstack([np.zeros((1, d), int), E]),
                                          [Fraction(float(v)) for v in g])
         return _finish(basis, X, y, order, penalty, input_names, target, E, poly_u,
-                       scale_u, shift_u, dsd, cond, edf, notes, sv)
+                       scale_u, shift_u, dsd, cond, edf, notes, sv,
+                       sse=_summary_sse(summary, order, np.asarray(g, float)))
+    U = basis.scale(X)          # the row route (small tables) only
     Fu = basis.expand_scaled(U, order=order) if p else np.zeros((n, 0))
     raw_s = Fu @ As.T + a0 / r if p else Fu
     raw_mean_s = raw_s.mean(axis=0) if p else np.zeros(0)
@@ -406,9 +407,21 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
     return model
 
 
+def _summary_sse(summary, order: int, g: np.ndarray) -> float | None:
+    """Training sum of squared errors of working-basis coefficients ``g`` (intercept first)
+    from all-rows summaries; None when it is so small against the target's own sum of
+    squares that rounding would show (then the rows are read instead)."""
+    p, m, M = summary.block(order)
+    b = g[1:]
+    d = float(m[p] - g[0] - m[:p] @ b)          # mean residual (0 up to rounding)
+    sse = float(M[p, p] - 2.0 * b @ M[:p, p] + b @ M[:p, :p] @ b) + summary.n * d * d
+    return sse if sse > 1e-6 * float(M[p, p]) else None
+
+
 def _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u, shift_u,
-            dsd, cond, edf, notes, sv) -> FinalModel:
-    """Exact map to raw powers, the model, and its fit summaries."""
+            dsd, cond, edf, notes, sv, sse: float | None = None) -> FinalModel:
+    """Exact map to raw powers, the model, and its fit summaries (``sse``: the training
+    sum of squared errors when already known from summaries; else from the rows)."""
     n, d = X.shape
     ybar = float(np.mean(y))
     poly_x = _substitute(poly_u, scale_u, shift_u)
@@ -429,8 +442,9 @@ def _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u
         r2=float("nan"), residual_sd=float("nan"), train_mse=float("nan"), effective_df=edf,
         x_min=X.min(axis=0), x_max=X.max(axis=0), notes=notes,
         design_singular_values=None if sv is None else np.asarray(sv, float))
-    resid = y - model.predict(X)
-    sse = float(resid @ resid)
+    if sse is None:
+        resid = y - model.predict(X)
+        sse = float(resid @ resid)
     sst = float(np.sum((y - ybar) ** 2))
     model.train_mse = sse / n
     model.r2 = 1.0 - sse / sst if sst > 0 else float("nan")

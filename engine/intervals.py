@@ -135,7 +135,7 @@ class CellDesign:
     def U(self) -> np.ndarray:
         """Scaled inputs of every row (formed once)."""
         if self._U is None:
-            self._U = np.ascontiguousarray(self.basis.scale(self.X))
+            self._U = self.basis.scale(self.X)
         return self._U
 
     def rows(self, idx: np.ndarray | None = None) -> np.ndarray:
@@ -163,10 +163,22 @@ class CellDesign:
         n, mean, M = combine_batch(self.moments(labels, n_atoms), member)
         return TermSummary(n, mean, M)
 
-    def fit_summary(self, summary: TermSummary, keep_leverage: bool = False) -> "SetFits":
-        """Fit the cell on each summarised row set (no pass over the rows)."""
+    def fit_summary(self, summary: TermSummary, keep_leverage: bool = False,
+                    coefficients_only: bool = False) -> "SetFits":
+        """Fit the cell on each summarised row set (no pass over the rows).
+
+        ``coefficients_only``: a positive ridge penalty is solved by one linear
+        solve per set instead of an eigen-decomposition (the same solution; the
+        effective degrees of freedom are then not formed, NaN).
+        """
         A, a0 = self.basis.raw_map()
         raw = RawMap.select(A, a0, np.arange(self.p), summary.n_sets)
+        if (coefficients_only and self.family == "ridge" and self.penalty > 0 and self.p
+                and not keep_leverage):
+            fast = _ridge_by_solve(summary, raw, self.penalty)
+            if fast is not None:
+                return SetFits(self, summary, fast.beta_u[:, :, 0], fast.edf[:, 0],
+                               sse(summary, summary.mean, fast.beta_u)[:, 0])
         fit = fit_family(self.family, summary, raw, np.array([self.penalty]),
                          l1_ratio=self.l1_ratio, keep_leverage=keep_leverage)
         return SetFits(self, summary, fit.beta_u[:, :, 0], fit.edf[:, 0],
@@ -211,6 +223,25 @@ class CellDesign:
                 at = np.flatnonzero(s >= 0)
                 out[a, c0 + at] = yc[at] - P[at, s[at]]
         return out
+
+
+def _ridge_by_solve(summary: TermSummary, raw: RawMap, penalty: float):
+    """Ridge at one positive penalty by ``(G + alpha I) w = c`` on the standardised raw terms
+    (`engine.families.ridge` solves the same system through an eigen-decomposition);
+    None when a system is not positive definite."""
+    from .families.base import FamilyFit, fill_from_standardised, finish_intercepts, standardise
+    st = standardise(summary, raw)
+    Gs = st.G + penalty * np.eye(summary.p)[None, :, :]
+    try:
+        np.linalg.cholesky(Gs)          # positive definite, as the penalty makes it
+    except np.linalg.LinAlgError:
+        return None
+    fit = FamilyFit.empty(summary, 1)
+    W = np.linalg.solve(Gs, st.c[:, :, None])
+    fill_from_standardised(fit, summary, raw, st, W, np.array([True]))
+    fit.edf[:, 0] = np.nan
+    finish_intercepts(fit, summary, raw)
+    return fit
 
 
 @dataclass
@@ -457,22 +488,97 @@ def _grouped_outer_folds(design: CellDesign, k: int, R: int, seed: int):
     ``k`` folds (seed ``seed + r``), so every fold is a random set of rows, as
     with a row-level shuffle, and every set's summary is a merge of groups.
 
-    Returns ``(fold_of (R, n), fold summaries)``: the outer fold of every row in
-    each repetition, and per repetition the ``(n, mean, comoment)`` of its folds.
+    Returns ``((group (n,), of (R, G)), fold summaries)``: each row's group, the
+    outer fold of every group in each repetition, and per repetition the
+    ``(n, mean, comoment)`` of its folds.
     """
     n = design.y.size
     G = k * GROUPS_PER_FOLD
     group = _shuffle_groups(n, G, seed)
     st = design.moments(group, G)
-    folds = np.empty((R, n), dtype=np.int64)
+    return _deal_groups(st, group, G, k, R, seed)
+
+
+def _shared_groups(groups, design: CellDesign, k: int):
+    """The sweep's random row groups (`engine.analysis.RowGroups`) on this cell's design,
+    or None when they cannot serve ``k`` outer folds."""
+    from .moments import Moments
+    b, full = design.basis, groups.basis
+    G = groups.n_groups
+    if (G % k or G < 2 * k or groups.label.size != design.y.size or np.any(groups.label < 0)
+            or b.max_order > full.max_order or b.interactions != full.interactions
+            or b.centre.shape != full.centre.shape or not np.array_equal(b.centre, full.centre)
+            or not np.array_equal(b.half_range, full.half_range)
+            or not np.array_equal(b.terms, full.terms[:b.n_terms])):
+        return None
+    idx = np.r_[np.arange(design.p), full.n_terms]
+    st = groups.stats
+    return Moments(st.n, st.mean[:, idx], st.comoment[:, idx][:, :, idx]), groups.label, G
+
+
+def _deal_groups(st, group: np.ndarray, G: int, k: int, R: int, seed: int):
+    """Each repetition deals the ``G`` groups afresh into ``k`` folds (seed ``seed + r``)."""
     fold_sum = []
+    of_all = np.empty((R, G), dtype=np.int64)
     for r in range(R):
         of = np.empty(G, dtype=np.int64)
         of[np.random.default_rng(int(seed) + r).permutation(G)] = np.arange(G) % k
-        folds[r] = of[group]
+        of_all[r] = of
         W = (of[None, :] == np.arange(k)[:, None]).astype(np.int8)
         fold_sum.append(combine_batch(st, W))
-    return folds, fold_sum
+    return (group, of_all), fold_sum
+
+
+def _fold_error_stats(design: CellDesign, fits: "SetFits", fold_of, k: int,
+                      shift: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Count, sum and sum of squares of the outer squared errors of every (repetition, fold).
+
+    ``fits`` are the outer fits, repetition-major (``r * k + fold``). ``fold_of``
+    is either ``(R, n)`` (each row's outer fold per repetition, -1: none) or
+    ``(group (n,), of (R, G))`` when folds are unions of row groups; then the
+    rows are taken group by group and only the ``R`` fits each row needs are
+    evaluated. Sums are of ``e - shift`` (``e`` the squared error), against
+    cancellation. One pass over the rows either way.
+    """
+    if isinstance(fold_of, tuple):
+        group, of = fold_of
+        R, G = of.shape
+        cnt, s1, s2 = np.zeros((R, k)), np.zeros((R, k)), np.zeros((R, k))
+        order = np.argsort(group, kind="stable")
+        bounds = np.r_[0, np.cumsum(np.bincount(group, minlength=G))]
+        p = design.p
+        m = fits.summary.mean
+        c = m[:, -1] - np.einsum("sp,sp->s", m[:, :p], fits.beta_u)
+        step = int(max(256, min(CHUNK_ROWS, (8 << 20) // max(p, 1))))
+        buf = np.empty((step, p), order="F")
+        ar = np.arange(R)
+        for g in range(G):
+            cols = ar * k + of[:, g]
+            B = np.ascontiguousarray(fits.beta_u[cols].T)
+            for c0 in range(bounds[g], bounds[g + 1], step):
+                rows = order[c0:min(c0 + step, bounds[g + 1])]
+                if p:
+                    P = design.basis.expand_scaled(design.U[rows], out=buf[:rows.size]) @ B
+                    P += c[cols]
+                else:
+                    P = np.broadcast_to(c[cols], (rows.size, R))
+                e = (design.y[rows][:, None] - P) ** 2 - shift
+                cnt[ar, of[:, g]] += rows.size
+                s1[ar, of[:, g]] += e.sum(axis=0)
+                s2[ar, of[:, g]] += (e * e).sum(axis=0)
+        return cnt, s1, s2
+    R = fold_of.shape[0]
+    assign = np.where(fold_of >= 0, fold_of + k * np.arange(R)[:, None], -1)
+    res = design.residuals(fits, assign)
+    cnt, s1, s2 = np.zeros((R, k)), np.zeros((R, k)), np.zeros((R, k))
+    for r in range(R):
+        ok = fold_of[r] >= 0
+        f = fold_of[r, ok]
+        e = res[r, ok] ** 2 - shift
+        cnt[r] = np.bincount(f, minlength=k)[:k]
+        s1[r] = np.bincount(f, weights=e, minlength=k)[:k]
+        s2[r] = np.bincount(f, weights=e * e, minlength=k)[:k]
+    return cnt, s1, s2
 
 
 def _nested_cv_parts(design: CellDesign, fold_sum: list, k: int):
@@ -493,7 +599,7 @@ def _nested_cv_parts(design: CellDesign, fold_sum: list, k: int):
     n_t = np.concatenate([p_[0] for p_ in parts])
     m_t = np.concatenate([p_[1] for p_ in parts])
     M_t = np.concatenate([p_[2] for p_ in parts])
-    fits = design.fit_summary(TermSummary(n_t, m_t, M_t))
+    fits = design.fit_summary(TermSummary(n_t, m_t, M_t), coefficients_only=True)
     R = len(fold_sum)
     per = sel.shape[0]
     j_idx = np.array([j for _, j in pairs])
@@ -515,7 +621,7 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
                    repeats: int | None = None, folds: int | None = None,
                    family: str = "ridge", l1_ratio: float = 0.0,
                    progress: Progress | None = None,
-                   design: CellDesign | None = None) -> ErrorInterval:
+                   design: CellDesign | None = None, groups=None) -> ErrorInterval:
     """Interval for the error of the cell ``(order, penalty)`` fitted on all rows.
 
     Parameters
@@ -530,6 +636,9 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
     family, l1_ratio : the cell's penalty family.
     progress : called as ``progress(fraction_done, message)``.
     design : the cell's `CellDesign` when the caller already has it.
+    groups : `engine.analysis.RowGroups`, random row groups the sweep already
+        summarised (large tables, shuffled schemes); the repetitions reshuffle
+        them instead of groups summarised here in a pass of their own.
 
     Returns
     -------
@@ -576,34 +685,40 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
     grouped = shuffled and n >= LARGE_ROWS and n >= 2 * k * GROUPS_PER_FOLD
     notes: list[str] = []
     if grouped:
-        fold_of, fold_sum = _grouped_outer_folds(design, k, R, int(spec.seed))
+        shared = _shared_groups(groups, design, k) if groups is not None else None
+        if shared is not None:   # the sweep's pass summarised them: no pass here
+            st, label, G = shared
+            fold_of, fold_sum = _deal_groups(st, label, G, k, R, int(spec.seed))
+            how = (f"the rows of each of the sweep's {G // groups.per_piece} folds were dealt "
+                   f"once at random into {groups.per_piece} groups (seed {groups.seed}), "
+                   f"{G} groups of about {n // G:,} rows")
+        else:
+            fold_of, fold_sum = _grouped_outer_folds(design, k, R, int(spec.seed))
+            G = k * GROUPS_PER_FOLD
+            how = (f"the rows were dealt once at random into {G} groups of about "
+                   f"{n // G:,} rows (seed {int(spec.seed)})")
         outer_fits, s_in, n_in = _nested_cv_parts(design, fold_sum, k)
-        G = k * GROUPS_PER_FOLD
-        notes.append(f"With {n:,} rows the repetitions reshuffle groups, not single rows: the "
-                     f"rows were dealt once at random into {G} groups of about {n // G:,} rows "
-                     f"(seed {int(spec.seed)}), and each repetition deals the groups afresh "
-                     f"into {k} folds (seeds {int(spec.seed)} to {int(spec.seed) + R - 1}).")
+        notes.append(f"With {n:,} rows the repetitions reshuffle groups, not single rows: "
+                     f"{how}, and each repetition deals the groups afresh into {k} folds "
+                     f"(seeds {int(spec.seed)} to {int(spec.seed) + R - 1}).")
     else:
         fold_of, fold_sum, outer_fits, s_in, n_in = _exact_nested(data, spec, design, k, R)
     # outer errors of single rows: every outer fit predicted in one pass over the rows
-    assign = np.where(fold_of >= 0, fold_of + k * np.arange(R)[:, None], -1)
-    res = design.residuals(outer_fits, assign)
-    a_list, b_list, out_errors = [], [], []
-    for r in range(R):
-        e_r = res[r] ** 2
-        for kk in range(k):
-            e_out = e_r[fold_of[r] == kk]
-            if not e_out.size:
-                continue
-            out_errors.append(e_out)
-            a_list.append((s_in[r, kk] / n_in[r, kk] - e_out.mean()) ** 2)
-            b_list.append(e_out.var(ddof=1) / e_out.size if e_out.size > 1 else 0.0)
     inner_sse = float(s_in.sum())
     inner_n = float(n_in.sum())
-    e_all = np.concatenate(out_errors)
-    err_cv = float(e_all.mean())
     err_ncv = inner_sse / inner_n
-    naive_se = float(e_all.std(ddof=1) / math.sqrt(n)) if e_all.size > 1 else float("nan")
+    cnt, s1, s2 = _fold_error_stats(design, outer_fits, fold_of, k, err_ncv)
+    used = cnt > 0
+    mean_out = np.where(used, s1 / np.where(used, cnt, 1.0), 0.0) + err_ncv
+    var_out = np.where(cnt > 1, (s2 - np.where(used, s1 * s1 / np.where(used, cnt, 1.0), 0.0))
+                       / np.where(cnt > 1, cnt - 1, 1.0), 0.0)
+    a_list = ((s_in / np.where(n_in > 0, n_in, 1.0) - mean_out) ** 2)[used]
+    b_list = np.where(cnt > 1, var_out / np.where(used, cnt, 1.0), 0.0)[used]
+    N = float(cnt.sum())
+    S1, S2 = float(s1.sum()), float(s2.sum())
+    err_cv = S1 / N + err_ncv
+    naive_se = (math.sqrt(max((S2 - S1 * S1 / N) / (N - 1), 0.0)) / math.sqrt(n) if N > 1
+                else float("nan"))
     mse_hat = float(np.mean(a_list) - np.mean(b_list))
     se = math.sqrt(max(mse_hat, 0.0) * (k - 1) / k)
     # the width stays between the naive one and sqrt(K) times it (Bates et al., section 4)
@@ -662,7 +777,7 @@ def _exact_nested(data, spec: SweepSpec, design: CellDesign, k: int, R: int):
     n_t = np.concatenate([t.n for t in train_parts])
     m_t = np.concatenate([t.mean for t in train_parts])
     M_t = np.concatenate([t.M for t in train_parts])
-    fits = design.fit_summary(TermSummary(n_t, m_t, M_t))
+    fits = design.fit_summary(TermSummary(n_t, m_t, M_t), coefficients_only=True)
     s_in = np.zeros((R, k))
     n_in = np.zeros((R, k))
     outer_idx = []
@@ -1017,10 +1132,17 @@ def how_sure(analysis, data, spec: SweepSpec | None = None, level: float = LEVEL
         # small solves, the row passes pick their own
         with one_thread():
             design = CellDesign.make(data_w, spec_w, rec.order, rec.penalty, family, l1)
+            plain = analysis.model_data is None
+            scaled = getattr(analysis, "scaled", None)
+            if (plain and scaled is not None and scaled.shape == design.X.shape
+                    and np.array_equal(design.basis.centre, analysis.basis.centre)
+                    and np.array_equal(design.basis.half_range, analysis.basis.half_range)):
+                design._U = scaled          # the sweep's scaled inputs: the same values
             err = error_interval(data_w, spec_w, rec.order, rec.penalty, level, family=family,
-                                 l1_ratio=l1, progress=progress, design=design)
+                                 l1_ratio=l1, progress=progress, design=design,
+                                 groups=analysis.row_groups if plain else None)
             # the sweep's piece summaries give every training set (plain analyses)
-            shared = analysis.pieces if analysis.model_data is None else None
+            shared = analysis.pieces if plain else None
             pred = prediction_intervals(data_w, spec_w, rec.order, rec.penalty, level,
                                         plan=analysis.plan if shared else None,
                                         family=family, l1_ratio=l1, design=design,

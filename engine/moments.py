@@ -245,7 +245,8 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     small = labels.astype(np.int16 if n_sets < 32000 else np.int32)
     order = np.argsort(small, kind="stable")   # a radix sort for small integers
     sl = small[order]
-    Us = U[order]
+    U = np.asarray(U)
+    ubuf = np.empty((min(chunk_rows, sl.size), U.shape[1]), dtype=U.dtype)
     Y = np.asarray(y, dtype=float)
     Y = Y[:, None] if Y.ndim == 1 else Y
     n_targets = Y.shape[1]
@@ -258,12 +259,13 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     # fixed shift: column means of an evenly spread sample of rows
     step = max(1, sl.size // 4096)
     sample = np.empty((len(range(0, sl.size, step)), P), order="F")
-    expand(Us[::step], sample)
+    expand(U[order[::step]], sample)
     shift_f = sample.mean(axis=0)
     shift_y = np.array([v[::step].mean() for v in ys])
     shift = np.r_[shift_f, shift_y]
     # wide designs: fewer rows per chunk, so one chunk's terms stay near 64 MB
     chunk_rows = int(max(256, min(chunk_rows, (8 << 20) // (P + 1))))
+    ubuf = ubuf[:min(chunk_rows, sl.size)]
     buf = np.empty((min(chunk_rows, sl.size), P + 1), order="F")
     buf[:, P] = 1.0
     G_full = np.empty((q, q))
@@ -277,7 +279,8 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
             for c0 in range(a, b, chunk_rows):
                 c1 = min(c0 + chunk_rows, b)
                 R = buf[:c1 - c0]
-                expand(Us[c0:c1], R[:, :P])
+                # the chunk's rows gathered into one reused buffer (no sorted copy of U)
+                expand(np.take(U, order[c0:c1], axis=0, out=ubuf[:c1 - c0]), R[:, :P])
                 R[:, :P] -= shift_f
                 G = R.T @ R
                 m = G[P, P]

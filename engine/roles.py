@@ -71,7 +71,10 @@ class DefaultRoles:
 
 
 def _values(frame: pd.DataFrame, col: str) -> np.ndarray:
-    return pd.to_numeric(frame[col], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    series = frame[col]
+    if series.dtype == np.float64:      # already numbers, NaN for missing: no copy (read only)
+        return series.to_numpy()
+    return pd.to_numeric(series, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
 
 
 def column_kind(values: np.ndarray, name: str = "") -> str:

@@ -281,9 +281,11 @@ class SweepResult:
 # statistics and public entry points
 # ---------------------------------------------------------------------------
 def piece_statistics(basis: PolynomialBasis, X: np.ndarray, y: np.ndarray,
-                     pieces: np.ndarray, n_pieces: int, chunk_rows: int = 32768) -> Moments:
-    """Per-piece summaries of ``[terms(X), y]`` at the basis's highest order."""
-    U = basis.scale(X)
+                     pieces: np.ndarray, n_pieces: int, chunk_rows: int = 32768,
+                     U: np.ndarray | None = None) -> Moments:
+    """Per-piece summaries of ``[terms(X), y]`` at the basis's highest order
+    (``U``: ``basis.scale(X)`` when the caller already has it)."""
+    U = basis.scale(X) if U is None else U
     P = basis.n_terms
     return design_moments(U, np.asarray(y, float), pieces, n_pieces,
                           lambda Uc, out: basis.expand_scaled(Uc, out=out), P,

@@ -284,21 +284,38 @@ def test_row_sets_split_into_atoms_like_numpy_unique_on_membership_rows():
     np.testing.assert_array_equal(member[:, labels[used]].T.astype(bool), B[used])
 
 
-def test_grouped_nested_cv_of_a_large_table_matches_scikit_learn_on_the_same_folds(monkeypatch):
+@pytest.mark.parametrize("from_sweep,penalty", [(False, 0.0), (True, 0.0), (True, 0.3)])
+def test_grouped_nested_cv_of_a_large_table_matches_scikit_learn_on_the_same_folds(
+        monkeypatch, from_sweep, penalty):
     # Reference: Bates, Hastie, Tibshirani (JASA 2023), Algorithm 1, with scikit-learn
     # LinearRegression fitted row by row on exactly the folds the large-table route uses
-    # (rows dealt once into seeded groups, groups dealt afresh into folds per repetition).
+    # (rows dealt once into seeded groups, groups dealt afresh into folds per repetition);
+    # the groups are summarised by the intervals' own pass or by the sweep's pass.
+    import engine.analysis as A
     import engine.intervals as iv
     monkeypatch.setattr(iv, "LARGE_ROWS", 100)
+    monkeypatch.setattr(A, "LARGE_ROWS", 100)
     n, K, R, seed = 600, 3, 2, 11
     x, y = _cubic(n, 21)
-    spec = _spec(seed=seed)
-    ei = error_interval(ArrayData(x, y), spec, 3, 0.0, repeats=R, folds=K, level=0.9)
+    spec = SweepSpec("y", ("x",), orders=(1, 2, 3, 4), penalties=(penalty,),
+                     scheme=SchemeSpec("kfold", folds=K), seed=seed)
+    groups = analyse(ArrayData(x, y), spec).row_groups if from_sweep else None
+    assert (groups is not None) == from_sweep
+    ei = error_interval(ArrayData(x, y), spec, 3, penalty, repeats=R, folds=K, level=0.9,
+                        groups=groups)
+
+    def model():   # scikit-learn Ridge on StandardScaler'd raw powers for a penalty
+        return (LinearRegression() if penalty == 0 else
+                make_pipeline(StandardScaler(), Ridge(alpha=penalty)))
     assert "groups" in ei.notes[-1] and f"seed {seed}" in ei.notes[-1]
     X = np.column_stack([x ** k for k in (1, 2, 3)])
-    G = K * iv.GROUPS_PER_FOLD
-    group = np.empty(n, dtype=np.int64)
-    group[np.random.default_rng(seed).permutation(n)] = np.arange(n) % G
+    if from_sweep:
+        group, G = groups.label, groups.n_groups
+        assert f"{G} groups" in ei.notes[-1]
+    else:
+        G = K * iv.GROUPS_PER_FOLD
+        group = np.empty(n, dtype=np.int64)
+        group[np.random.default_rng(seed).permutation(n)] = np.arange(n) % G
     a_list, b_list, e_in_all, e_out_all = [], [], [], []
     for r in range(R):
         of = np.empty(G, dtype=np.int64)
@@ -306,14 +323,14 @@ def test_grouped_nested_cv_of_a_large_table_matches_scikit_learn_on_the_same_fol
         fold = of[group]
         for k in range(K):
             te, tr = np.flatnonzero(fold == k), np.flatnonzero(fold != k)
-            e_out = (y[te] - LinearRegression().fit(X[tr], y[tr]).predict(X[te])) ** 2
+            e_out = (y[te] - model().fit(X[tr], y[tr]).predict(X[te])) ** 2
             e_in = []
             for j in range(K):
                 if j == k:
                     continue
                 itr = np.flatnonzero((fold != k) & (fold != j))
                 iva = np.flatnonzero(fold == j)
-                m = LinearRegression().fit(X[itr], y[itr])
+                m = model().fit(X[itr], y[itr])
                 e_in.append((y[iva] - m.predict(X[iva])) ** 2)
             e_in = np.concatenate(e_in)
             a_list.append((e_in.mean() - e_out.mean()) ** 2)

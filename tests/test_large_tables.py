@@ -236,3 +236,52 @@ def test_serial_check_from_the_intervals_residuals_matches_its_own_pass(scheme, 
     np.testing.assert_allclose(shared.tables["serial"]["value"].to_numpy(float),
                                own.tables["serial"]["value"].to_numpy(float), rtol=1e-9)
     assert shared.codes() == own.codes()
+
+
+def test_final_model_predictions_match_its_raw_power_coefficients():
+    # Reference: numpy evaluation of the reported raw-power polynomial (intercept plus
+    # coefficient times each term's product of powers) on rows spanning more than one
+    # prediction chunk.
+    from engine.final_fit import _PREDICT_CHUNK, fit_final
+    rng = np.random.default_rng(9)
+    n = _PREDICT_CHUNK + 1000
+    X = rng.uniform(-2, 3, size=(n, 3)) + [10, 0, 1]
+    y = 1 + 0.5 * X[:, 0] - 0.2 * X[:, 1] ** 2 + X[:, 1] * X[:, 2] + rng.normal(0, 0.1, n)
+    m = fit_final(X[:3000], y[:3000], ("a", "b", "c"), 2, 0.0, interactions=True)
+    want = np.full(n, m.coefficients[0])
+    for e, c in zip(m.exponents, m.coefficients[1:]):
+        want += c * np.prod(X ** e, axis=1)
+    np.testing.assert_allclose(m.predict(X), want, rtol=1e-9, atol=1e-9 * np.abs(want).max())
+
+
+@pytest.mark.parametrize("interactions", [False, True])
+def test_expanded_terms_match_numpy_chebyshev_values(interactions):
+    # Reference: numpy.polynomial.chebyshev.chebval for T_k(u_j), multiplied across inputs
+    # for each term's exponents.
+    from numpy.polynomial import chebyshev
+
+    from engine.design import PolynomialBasis
+    rng = np.random.default_rng(10)
+    X = rng.uniform(-3, 5, size=(700, 4))
+    b = PolynomialBasis.fit(X, ("a", "b", "c", "d"), 3, interactions)
+    U = b.scale(X)
+    F = b.expand_scaled(U)
+    for t, e in enumerate(b.terms):
+        want = np.ones(len(X))
+        for j, k in enumerate(e):
+            want *= chebyshev.chebval(U[:, j], np.eye(k + 1)[k])
+        np.testing.assert_allclose(F[:, t], want, rtol=1e-12, atol=1e-12)
+
+
+@pytest.mark.parametrize("penalty", [0.0, 0.5])
+def test_training_error_from_summaries_matches_the_rows(penalty, large_route):
+    # Reference: numpy mean of the squared residuals of the model's own predictions on
+    # every row; the summary route forms it from the all-rows cross-products.
+    data = _data(3000, seed=11)
+    spec = SweepSpec("y", ("a", "b", "c"), max_order=3)
+    large_route()
+    m = compare.fit_candidates(data, spec, [(3, penalty)])[(3, penalty)]
+    resid = data.y - m.predict(data.X)
+    assert m.train_mse == pytest.approx(float(np.mean(resid ** 2)), rel=1e-9)
+    assert m.r2 == pytest.approx(1 - np.sum(resid ** 2) / np.sum((data.y - data.y.mean()) ** 2),
+                                 rel=1e-9)
