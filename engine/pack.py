@@ -1247,7 +1247,7 @@ def _value_words(v: Any) -> str:
 
 
 _CSS = """
-@page { size: A4; margin: 5mm 10mm; }
+@page { margin: 5mm 10mm; }
 * { box-sizing: border-box; }
 html { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
 body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-size: 7.0pt;
@@ -1257,15 +1257,15 @@ body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; font-siz
 h1 { font-size: 13pt; margin: 0 0 .6mm 0; color: #17324d; }
 h2 { font-size: 8pt; margin: 0 0 1mm 0; color: #17324d; text-transform: uppercase;
      letter-spacing: .04em; border-bottom: 0.6pt solid #b8c4d2; padding-bottom: .4mm; }
-.sub { color: #4a5566; margin-bottom: 1.8mm; }
-.top { display: grid; grid-template-columns: 1.12fr 1fr; gap: 3.5mm; margin-bottom: 2mm; }
+.sub { color: #4a5566; margin-bottom: 1.1mm; }
+.top { display: grid; grid-template-columns: 1.12fr 1fr; gap: 3.5mm; margin-bottom: 1.4mm; }
 .verdict { background: #eef4fa; border-left: 2.2mm solid #2f6f9f; padding: 1.8mm 3mm; }
 .verdict .big { font-size: 11pt; font-weight: bold; color: #17324d; margin-bottom: .6mm; }
 .verdict .fig { font-size: 7.8pt; margin-bottom: .6mm; }
 dl { display: grid; grid-template-columns: auto 1fr; gap: .2mm 2.5mm; margin: 0; }
 dt { color: #4a5566; white-space: nowrap; } dd { margin: 0; overflow-wrap: anywhere; }
-.page > .charts { display: grid; grid-template-columns: 1fr 1fr; gap: 1.6mm 3.5mm;
-          margin-bottom: 1.6mm; align-items: start; }
+.page > .charts { display: grid; grid-template-columns: 1fr 1fr; gap: 1.0mm 3.5mm;
+          margin-bottom: 1.2mm; align-items: start; }
 figure { margin: 0; break-inside: avoid; }
 figure.chart { border: 0.4pt solid #d5dbe3; }
 figure.chart img { width: 100%; height: auto; display: block; }
@@ -1284,13 +1284,13 @@ ol.warn .adv { color: #4a5566; }
        border: 0.5pt solid #6b7685; color: #4a5566; background: #fff; }
 .sev.sev-serious { background: #a61b1b; border-color: #a61b1b; color: #fff; }
 .sev.sev-caution { border-color: #a86400; color: #8a5200; background: #fff; }
-.use { border: 0.5pt solid #b8c4d2; padding: .8mm 2mm; margin-bottom: 1.4mm; font-size: 6.6pt;
+.use { border: 0.5pt solid #b8c4d2; padding: .6mm 2mm; margin-bottom: 1.2mm; font-size: 6.6pt;
        line-height: 1.2; }
-.use pre { margin: .3mm 0; font-size: 6.2pt; line-height: 1.15; white-space: pre-wrap;
+.use pre { margin: .2mm 0; font-size: 5.8pt; line-height: 1.12; white-space: pre-wrap;
            overflow-wrap: anywhere; }
 .beforeuse { border: 0.6pt solid #c9a227; background: #fbf6e4; padding: .6mm 2mm;
              font-size: 6.3pt; line-height: 1.18; }
-.foot { color: #6b7685; font-size: 6.2pt; margin-top: 1.2mm; }
+.foot { color: #6b7685; font-size: 6.2pt; margin-top: .8mm; }
 code { font-size: 6.6pt; overflow-wrap: anywhere; }
 @media screen { body { padding: 6mm 0; background: #f3f5f8; }
                 .page { background: #fff; padding: 6mm 8mm; width: 206mm; } }
@@ -1301,20 +1301,30 @@ code { font-size: 6.6pt; overflow-wrap: anywhere; }
 #: 9 mm top and bottom margins, less 3 mm of slack; A4 is taller.
 PAGE_BUDGET_MM = 258.0
 
-# The charts take whatever height the text leaves. Only if the text alone is
-# taller than the page (very many warnings) is the page shrunk for printing.
-# Measures only; touches no user text.
+#: Height (mm) the printed content may take on either paper: a US Letter page
+#: (279.4 mm, the shorter of Letter and A4) less the 5 mm top and bottom margins,
+#: less 3 mm of slack. The page names no paper size, so the printer's paper is used.
+PRINT_HEIGHT_MM = 266.0
+
+# The charts take whatever height the text leaves. Only if the content is taller
+# than a Letter page holds (long warnings, a long snippet) is the printed page
+# shrunk to fit (CSS zoom, print only). Measures only; touches no user text.
 _FIT_SCRIPT = """<script>
 (function () {
   function fit() {
     var page = document.querySelector('.page');
-    if (!page || page.scrollHeight <= page.clientHeight + 1) { return; }
-    page.style.height = 'auto';
-    var f = Math.max(0.5, (page.clientHeight - 1) / page.scrollHeight);
-    page.style.height = '';
+    if (!page) { return; }
+    var mm = 96 / 25.4, cs = getComputedStyle(page);
+    var h = (page.getBoundingClientRect().height - parseFloat(cs.paddingTop)
+             - parseFloat(cs.paddingBottom)) / mm;
+    if (window.matchMedia('print').matches) {   // already zoomed: the natural height
+      h /= parseFloat(getComputedStyle(document.documentElement).getPropertyValue('--fit')) || 1;
+    }
+    var f = h > %BUDGET% ? Math.max(0.5, %BUDGET% / h) : 1;
     document.documentElement.style.setProperty('--fit', f.toFixed(4));
   }
   if (document.readyState === 'complete') { fit(); } else { window.addEventListener('load', fit); }
+  window.addEventListener('beforeprint', fit);
 })();
 </script>"""
 
@@ -1474,7 +1484,7 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
     use_html = _use_html(s)
     css = _CSS.replace("PAGE_H", f"{PAGE_BUDGET_MM:g}")
     sha = d["sha256"] or "not from a file"
-    script = _FIT_SCRIPT.replace("%BUDGET%", f"{PAGE_BUDGET_MM:g}")
+    script = _FIT_SCRIPT.replace("%BUDGET%", f"{PRINT_HEIGHT_MM:g}")
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">

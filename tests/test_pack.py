@@ -352,6 +352,12 @@ def test_unknown_compare_order_is_refused(demo_pack, tmp_path):
 # ---------------------------------------------------------------------------
 # in a real browser: one printed page, no script from the data runs
 # ---------------------------------------------------------------------------
+#: Paper sizes the summary must print on, with their heights in mm (ISO 216 A4,
+#: ANSI/ASME Y14.1 Letter) and the summary's top and bottom page margins (5 mm each).
+PAPERS = {"A4": 297.0, "Letter": 279.4}
+PRINT_MARGINS_MM = 10.0
+
+
 def _pdf_pages(pdf: bytes) -> int:
     # page objects carry "/Type /Page" (PDF 32000-1:2008, 7.7.3.3); "/Pages" is the tree node
     return len(re.findall(rb"/Type\s*/Page(?![a-zA-Z])", pdf))
@@ -380,9 +386,10 @@ def test_summary_prints_on_one_page(browser, which, request, output_dir):
         page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
         page.goto(url)
         page.wait_for_load_state("load")
-        pdf = page.pdf(format="A4", print_background=True)
-        assert pdf[:5] == b"%PDF-"
-        assert _pdf_pages(pdf) == 1, (which, js)
+        for paper in PAPERS:   # the page names no paper size: the printer's paper is used
+            pdf = page.pdf(format=paper, print_background=True, prefer_css_page_size=True)
+            assert pdf[:5] == b"%PDF-"
+            assert _pdf_pages(pdf) == 1, (which, js, paper)
         if js:
             page.emulate_media(media="print")
             page.screenshot(path=str(output_dir / f"pack_summary_{which}.png"), full_page=True)
@@ -410,12 +417,12 @@ _TEXT_BOXES = """() => {
 
 
 @pytest.mark.browser
-def test_page_pack_in_one_call_with_trust_and_a_readable_a4_page(browser, demo_dir, tmp_path,
-                                                                output_dir):
+def test_page_pack_in_one_call_with_trust_and_a_readable_page_on_a4_and_letter(
+        browser, demo_dir, tmp_path, output_dir):
     """The dashboard's pack: one `build_pack` call fed with what the page computed
     (sweep, checks, fits, learning curve, nested CV, stability) refits nothing,
-    carries nested CV and stability, and prints on one A4 page with no overlapping
-    text boxes and every chart at least 80 mm wide."""
+    carries nested CV and stability, and prints on one A4 page and on one US Letter
+    page with no overlapping text boxes and every chart at least 80 mm wide."""
     import engine.pack as P
     from engine import learning_curve, trust
     from engine.checks import run_checks
@@ -459,12 +466,23 @@ def test_page_pack_in_one_call_with_trust_and_a_readable_a4_page(browser, demo_d
     page.goto((tmp_path / "pack" / "summary.html").as_uri())
     page.wait_for_load_state("load")
     page.emulate_media(media="print")
-    assert _pdf_pages(page.pdf(format="A4", print_background=True)) == 1
-    page.screenshot(path=str(output_dir / "pack_summary_page_call.png"), full_page=True)
-    boxes = page.evaluate(_TEXT_BOXES)
+    for paper, height_mm in PAPERS.items():
+        pdf = page.pdf(format=paper, print_background=True, prefer_css_page_size=True)
+        assert _pdf_pages(pdf) == 1, paper
+        if paper == "A4":
+            page.screenshot(path=str(output_dir / "pack_summary_page_call.png"), full_page=True)
+        boxes = page.evaluate(_TEXT_BOXES)
+        printed = page.evaluate("() => document.querySelector('.page')"
+                                ".getBoundingClientRect().height / (96 / 25.4)")
+        assert printed <= height_mm - PRINT_MARGINS_MM, (paper, printed)
+        _assert_readable(boxes, len(P.CHART_FILES))
     ctx.close()
+
+
+def _assert_readable(boxes: list[dict], charts: int) -> None:
+    """Every chart at least 80 mm wide; no two text boxes overlap (nested ones aside)."""
     imgs = [b for b in boxes if b["tag"].startswith("IMG")]
-    assert len(imgs) == len(P.CHART_FILES)
+    assert len(imgs) == charts
     assert all(b["w"] >= 80.0 for b in imgs), [round(b["w"], 1) for b in imgs]
     eps = 0.05  # mm: touching edges are not an overlap
     shown = [b for b in boxes if b["w"] > 0 and b["h"] > 0]
