@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import math
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from .errors import InputProblem
 from .spec import SweepSpec
@@ -84,12 +84,14 @@ class Budget:
     statistics_mb: float
     memory_mb: float
     seconds: float
+    rows_estimated: bool = False
 
     def text(self) -> str:
         """One plain sentence with the figures."""
+        rows = f"about {self.rows:,} rows" if self.rows_estimated else f"{self.rows:,} rows"
         return (f"{self.terms:,} terms at order {self.max_order} from {self.inputs:,} input"
                 f"{'s' if self.inputs != 1 else ''}"
-                f"{' with interactions' if self.interactions else ''}; {self.rows:,} rows; "
+                f"{' with interactions' if self.interactions else ''}; {rows}; "
                 f"{self.fits:,} fits ({self.orders} orders x {self.settings} penalty settings x "
                 f"{self.splits:,} splits); about {_mb(self.memory_mb)} of memory and "
                 f"{_seconds(self.seconds)} on this machine (rough estimate)")
@@ -179,8 +181,10 @@ def estimate(spec: SweepSpec, rows: int, n_inputs: int | None = None) -> Budget:
 
 
 def check_request(spec: SweepSpec, rows: int, n_inputs: int | None = None,
-                  limits: Limits | None = None) -> Budget:
+                  limits: Limits | None = None, rows_estimated: bool = False) -> Budget:
     """`estimate`, refused with the figures and what to do when over ``limits``.
+
+    ``rows_estimated``: ``rows`` comes from a sample of the file (said so in the text).
 
     Raises
     ------
@@ -189,6 +193,8 @@ def check_request(spec: SweepSpec, rows: int, n_inputs: int | None = None,
     """
     limits = limits or Limits.from_environment()
     b = estimate(spec, rows, n_inputs)
+    if rows_estimated:
+        b = replace(b, rows_estimated=True)
     fewer = ("Lower the highest order, choose fewer inputs"
              + (", switch off interaction terms" if b.interactions else ""))
     if b.terms > limits.max_terms:
