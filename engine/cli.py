@@ -493,6 +493,9 @@ def _report(result, stream=None) -> None:
           f"{rmse:.4g} in units of {s['roles']['target']}; "
           f"{len(s['warnings'])} warning{'s' if len(s['warnings']) != 1 else ''}).",
           file=stream)
+    for w in s["warnings"]:
+        print(f"Warning ({w.get('severity') or 'caution'}): {w['message']} {w['advice']}",
+              file=stream)
     for t in s.get("targets") or []:
         if t["target"] != s["roles"]["target"]:
             print(f"Target {t['target']}: {t['recommended']} (section {t['section']}).",
