@@ -864,8 +864,8 @@ def _chosen_positions(names: list[str], wanted: Iterable[str] | None) -> list[in
     if wanted is None:
         return None
     wanted = set(wanted)
-    if not wanted or not wanted.issubset(names):
-        return None
+    if not wanted or not wanted.issubset(names) or len(wanted) >= len(names):
+        return None   # (every column chosen: the whole reading, without a note)
     return [i for i, n in enumerate(names) if n in wanted]
 
 

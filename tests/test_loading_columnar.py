@@ -223,3 +223,11 @@ def test_wide_file_refused_for_too_many_terms_before_its_cells_are_read(tmp_path
                  "--penalties", "0,0.1", "--out", str(tmp_path / "pack")])
     assert code == 0, capsys.readouterr().err
     assert calls == [["y", "c001", "c002"]]  # only the chosen columns were materialised
+
+
+def test_choosing_every_column_is_the_whole_reading():
+    raw = _wide_frame(columns=4).to_csv(index=False).encode()
+    whole = L.load_table(raw, name="t.csv")
+    every = L.load_table(raw, name="t.csv", columns=["y", "c000", "c001", "c002", "c003"])
+    pd.testing.assert_frame_equal(every.frame, whole.frame)
+    assert every.report.notes == whole.report.notes   # no note about unread columns
