@@ -13,13 +13,27 @@ The time model is deliberately simple (common practice for a guard, not a
 prediction): one pass over the rows costs about ``n P^2`` multiply-adds, one
 eigen-decomposition per (order, split) about ``10 p^3``, one solve per fit
 about ``p^2``, at an assumed 2e9 multiply-adds per second, plus fixed costs
-per (order, split) and per fit.
+per (order, split) and per fit; then the steps after the sweep that repeat
+per split (learning curve, intervals, checks), `SECONDS_PER_SPLIT_AFTER` plus
+`SECONDS_PER_SPLIT_ROW_AFTER` per row (rows counted up to `SUMMARY_ROWS`,
+from where those steps work on cross-product summaries). Reading, charts and
+files (a few seconds whatever the request) are not counted.
+
+Calibration (2-core machine, load average 3-8 from other work, whole
+``fitladder run --scheme repeated`` wall time, default orders 0-4 and 16
+penalty settings): calibration demo (24 rows, 1 input) 9.2 s at 50 splits,
+22.4 s at 250, 49.4 s at 1,000; drifting-line demo (3,000 rows, 7 inputs)
+19.6 s, 40.2 s and 175 s. Per extra split that is 0.04-0.07 s at 24 rows and
+0.10-0.18 s at 3,000 rows, nearly all after the sweep (the learning curve and
+the intervals took 10.8 s and 12.1 s of a 36 s run at 500 splits; the sweep
+1.9 s). The constants below take the upper end, so a refusal is not a close
+call: 0.05 s per split plus 4.5e-5 s per row and split.
 """
 from __future__ import annotations
 
 import math
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from .errors import InputProblem
 from .spec import SweepSpec
@@ -33,6 +47,15 @@ FLOPS_PER_SECOND = 2e9
 #: (order, split), and scoring per fit (measured roughly on a 2-core machine).
 SECONDS_PER_ORDER_SPLIT = 2e-4
 SECONDS_PER_FIT = 2e-6
+#: Steps after the sweep that repeat per split (see the calibration in the module notes).
+SECONDS_PER_SPLIT_AFTER = 0.05
+SECONDS_PER_SPLIT_ROW_AFTER = 4.5e-5
+#: From this many rows the steps after the sweep work on summaries (`engine.summaries`).
+SUMMARY_ROWS = 50_000
+#: Leave-one-out: the steps after the sweep use the hat matrix, not one refit per row;
+#: counted as this many splits (drifting-line demo, 3,000 rows: the intervals took 19 s
+#: under leave-one-out against 9.5 s under 5 folds, so about twice 5 splits).
+LOO_SPLITS_AFTER = 10
 CHUNK_ROWS = 32768
 
 
@@ -84,14 +107,20 @@ class Budget:
     statistics_mb: float
     memory_mb: float
     seconds: float
+    rows_estimated: bool = False
+    folds: int = 0
+    repeats: int = 0
 
     def text(self) -> str:
         """One plain sentence with the figures."""
+        rows = f"about {self.rows:,} rows" if self.rows_estimated else f"{self.rows:,} rows"
         return (f"{self.terms:,} terms at order {self.max_order} from {self.inputs:,} input"
                 f"{'s' if self.inputs != 1 else ''}"
-                f"{' with interactions' if self.interactions else ''}; {self.rows:,} rows; "
+                f"{' with interactions' if self.interactions else ''}; {rows}; "
                 f"{self.fits:,} fits ({self.orders} orders x {self.settings} penalty settings x "
-                f"{self.splits:,} splits); about {_mb(self.memory_mb)} of memory and "
+                f"{self.splits:,} splits"
+                + (f" = {self.folds} folds x {self.repeats:,} repeats" if self.repeats else "")
+                + f"); about {_mb(self.memory_mb)} of memory and "
                 f"{_seconds(self.seconds)} on this machine (rough estimate)")
 
 
@@ -171,16 +200,33 @@ def estimate(spec: SweepSpec, rows: int, n_inputs: int | None = None) -> Budget:
              + sum(10.0 * n_terms(d, o, spec.interactions) ** 3 for o in spec.order_list())
              * splits * targets
              + fits * float(P) ** 2)
+    after_splits = LOO_SPLITS_AFTER if spec.scheme.kind == "loo" else splits
+    after = (after_splits * targets
+             * (SECONDS_PER_SPLIT_AFTER + SECONDS_PER_SPLIT_ROW_AFTER * min(rows, SUMMARY_ROWS)))
+    repeated = spec.scheme.kind == "repeated"
     return Budget(rows=int(rows), inputs=d, max_order=q, interactions=bool(spec.interactions),
                   terms=P, orders=orders, settings=settings, splits=splits, fits=fits,
                   design_mb=design_mb, statistics_mb=statistics_mb, memory_mb=memory_mb,
                   seconds=flops / FLOPS_PER_SECOND
-                  + SECONDS_PER_ORDER_SPLIT * orders * splits * targets + SECONDS_PER_FIT * fits)
+                  + SECONDS_PER_ORDER_SPLIT * orders * splits * targets + SECONDS_PER_FIT * fits
+                  + after,
+                  folds=int(spec.scheme.folds) if repeated else 0,
+                  repeats=int(spec.scheme.repeats) if repeated else 0)
+
+
+def _fitting_repeats(b: Budget, limits: Limits) -> int:
+    """About how many repeats fit the time limit, all else equal (the time is close
+    to linear in the splits)."""
+    per_split = max(b.seconds, 1e-9) / max(b.splits, 1)
+    fit = int(limits.max_seconds / per_split) // max(b.folds, 1)
+    return max(1, min(fit, b.repeats - 1))
 
 
 def check_request(spec: SweepSpec, rows: int, n_inputs: int | None = None,
-                  limits: Limits | None = None) -> Budget:
+                  limits: Limits | None = None, rows_estimated: bool = False) -> Budget:
     """`estimate`, refused with the figures and what to do when over ``limits``.
+
+    ``rows_estimated``: ``rows`` comes from a sample of the file (said so in the text).
 
     Raises
     ------
@@ -189,6 +235,8 @@ def check_request(spec: SweepSpec, rows: int, n_inputs: int | None = None,
     """
     limits = limits or Limits.from_environment()
     b = estimate(spec, rows, n_inputs)
+    if rows_estimated:
+        b = replace(b, rows_estimated=True)
     fewer = ("Lower the highest order, choose fewer inputs"
              + (", switch off interaction terms" if b.interactions else ""))
     if b.terms > limits.max_terms:
@@ -204,7 +252,9 @@ def check_request(spec: SweepSpec, rows: int, n_inputs: int | None = None,
     if b.seconds > limits.max_seconds:
         raise InputProblem(
             f"The request would take longer than allowed: {b.text()}; the limit is "
-            f"{_seconds(limits.max_seconds)}. Use fewer splits (folds or repeats), fewer "
-            f"penalties or orders; or raise the limit (--time-limit SECONDS on the command "
-            "line, FITLADDER_MAX_SECONDS).", code="too_slow")
+            f"{_seconds(limits.max_seconds)}. Use fewer splits ("
+            + (f"--repeats {_fitting_repeats(b, limits)} or fewer, or fewer folds"
+               if b.repeats else "fewer folds or repeats")
+            + "), fewer penalties or orders; or raise the limit (--time-limit SECONDS on the "
+            "command line, FITLADDER_MAX_SECONDS).", code="too_slow")
     return b

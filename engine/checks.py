@@ -97,6 +97,12 @@ CONDITION_CAUTION, CONDITION_SERIOUS = 1e3, 1e6
 #: Validation error more than this many times the training error.
 GAP_RATIO = 2.0
 GAP_RATIO_SERIOUS = 5.0
+#: Fewest held-out rows a validation error should rest on (common practice, a rule of
+#: thumb: for normal errors the standard error of an RMSE from m rows is about
+#: RMSE / sqrt(2 m), a handbook result for the sample standard deviation, i.e. more
+#: than +-22% below 10 rows); under 3, serious.
+MIN_VALIDATION_ROWS = 10
+MIN_VALIDATION_ROWS_SERIOUS = 3
 
 _SHUFFLING = ("kfold", "repeated", "loo")
 
@@ -1411,6 +1417,54 @@ def check_train_validation_gap(analysis: Analysis) -> tuple[Finding | None, dict
     return Finding("train_validation_gap", message, ratio, advice, severity, info), info
 
 
+def validation_rows(plan) -> tuple[int, int]:
+    """(rows held out at least once, fewest rows held out by one split) of a plan."""
+    if getattr(plan, "loo", False):
+        return int(plan.n_rows), 1
+    seen = np.zeros(int(plan.n_rows), dtype=bool)
+    fewest = int(plan.n_rows)
+    for rnd in plan.rounds:
+        used = rnd.pieces >= 0
+        counts = np.bincount(rnd.pieces[used], minlength=rnd.n_pieces)
+        valid = np.asarray(rnd.valid, dtype=float)
+        if valid.size:
+            fewest = min(fewest, int((valid @ counts).min()))
+            held = np.flatnonzero(valid.any(axis=0))
+            seen |= used & np.isin(rnd.pieces, held)
+    return int(seen.sum()), fewest
+
+
+def check_validation_rows(analysis: Analysis) -> tuple[Finding | None, dict]:
+    """The validation error rests on very few held-out rows.
+
+    Fires when fewer than `MIN_VALIDATION_ROWS` (10, common practice) distinct
+    rows are held out over all splits (for one split, e.g. a holdout, that
+    split's validation set; k-fold holds out every row once, leave-one-out too);
+    serious under `MIN_VALIDATION_ROWS_SERIOUS` (3). The sentence gives the
+    rough relative standard error of an RMSE from m rows, 1 / sqrt(2 m).
+    """
+    plan = analysis.plan
+    held, fewest = validation_rows(plan)
+    splits = int(plan.n_splits)
+    info = {"rows_held_out": held, "fewest_in_a_split": fewest, "splits": splits,
+            "threshold": MIN_VALIDATION_ROWS}
+    if held >= MIN_VALIDATION_ROWS:
+        return None, info
+    spread = 1.0 / np.sqrt(2.0 * max(held, 1))
+    info["rmse_relative_se"] = spread
+    split_text = "its one split" if splits == 1 else f"its {splits} splits together"
+    message = (f"The validation error rests on only {_rows(held)} row"
+               f"{'s' if held != 1 else ''} held out "
+               f"({split_text}); an RMSE from so few rows is uncertain by about "
+               f"\u00b1{_pct(spread)} (one standard error), too much to tell the models apart. "
+               f"Fewer than {MIN_VALIDATION_ROWS} held-out rows fire this warning (common "
+               "practice).")
+    advice = ("Hold out more rows (a larger holdout fraction) or use k-fold "
+              "cross-validation, which holds out every row once; then run again.")
+    severity = "serious" if held < MIN_VALIDATION_ROWS_SERIOUS else "caution"
+    return Finding("few_validation_rows", message, float(held), advice, severity, info), info
+
+
 def check_grid_edges(analysis: Analysis) -> tuple[Finding | None, pd.DataFrame]:
     """The chosen cell on an edge of the swept range: the range may be too narrow.
 
@@ -1612,7 +1666,11 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
     summary.append(("range_edge", f8, float(len(t_edges)),
                     "the chosen cell on an edge of the penalty range or at the highest order"))
 
-    report.findings = [x for x in (f0, f, f2, f3, f4, f5, f6, f7, f8) if x is not None]
+    f9, rows_info = check_validation_rows(analysis)
+    summary.append(("few_validation_rows", f9, float(rows_info["rows_held_out"]),
+                    f"fewer than {MIN_VALIDATION_ROWS} rows held out for validation"))
+
+    report.findings = [x for x in (f0, f, f2, f3, f4, f5, f6, f7, f8, f9) if x is not None]
     skipped = {x["code"]: x["reason"] for x in report.skipped}
     report.tables["summary"] = pd.DataFrame(
         [{"code": c, "fired": fi is not None, "severity": fi.severity if fi else "",

@@ -384,7 +384,7 @@ def _penalty_grid(args: argparse.Namespace) -> tuple[float, ...]:
     return tuple(choice)
 
 
-def _load(path: str, *, decimal: str | None, sheet, name: str | None = None):
+def _load(path: str, *, decimal: str | None, sheet, name: str | None = None, columns=None):
     """Read a local file; the browser's upload cap does not apply to the user's own disk."""
     from .loading import NO_SIZE_LIMIT, load_table
 
@@ -396,7 +396,8 @@ def _load(path: str, *, decimal: str | None, sheet, name: str | None = None):
                            code="not_found")
     if isinstance(sheet, str) and sheet.isdigit():
         sheet = int(sheet)
-    return load_table(str(p), name=name, decimal=decimal, sheet=sheet, max_bytes=NO_SIZE_LIMIT)
+    return load_table(str(p), name=name, decimal=decimal, sheet=sheet, max_bytes=NO_SIZE_LIMIT,
+                      columns=columns)
 
 
 def _say_drops(data, stream=None) -> None:
@@ -419,6 +420,57 @@ def _default_inputs(loaded, target: str, exclude: Sequence[str | None]
     if target not in loaded.report.numeric_columns:
         return cands, {}          # prepare() names the problem with the target
     return screen_inputs(loaded.frame, target, cands)
+
+
+#: Tables at least this wide are read column by column as chosen (as are text
+#: files larger than `engine.loading.SAMPLE_BYTES` and other files of that size).
+CHOSEN_COLUMNS_FROM_WIDTH = 200
+
+
+def _load_for_request(args: argparse.Namespace, decimal, penalties, more: tuple, progress
+                      ) -> tuple:
+    """The table and the inputs, reading only the chosen columns of a wide or large file.
+
+    The header and a bounded sample come first (`engine.loading.peek_table`);
+    the inputs (named, or by default every other column of numbers in the
+    sample) are checked against the request budget before any other cell is
+    read; then only the target, input and role columns are materialised.
+    Small, narrow files are read whole, as before. Returns (loaded, inputs, left_out).
+    """
+    from .loading import SAMPLE_BYTES, peek_table
+
+    roles = (args.order_column, args.group_column, args.split_column) + more
+    sheet = int(args.sheet) if isinstance(args.sheet, str) and args.sheet.isdigit() else args.sheet
+    path = Path(args.data)
+    head = None
+    if path.is_file():
+        head = peek_table(path, decimal=decimal, sheet=sheet)
+    if head is not None and (path.stat().st_size > SAMPLE_BYTES
+                             or head.report.columns_read >= CHOSEN_COLUMNS_FROM_WIDTH):
+        rep = head.report
+        names = [str(c) for c in head.frame.columns]
+        skip = {args.target, *[c for c in roles if c]}
+        inputs = (list(args.inputs) if args.inputs is not None else
+                  [c for c in names if c not in skip and (c in rep.numeric_columns or
+                                                          rep.ignored_reasons.get(c) == "no values")])
+        chosen = list(dict.fromkeys([args.target, *[c for c in roles if c], *inputs]))
+        if inputs and set(chosen) <= set(names):
+            _check_budget(args, tuple(inputs), penalties, more,
+                          rep.rows_estimate or rep.rows_read, estimated=True)
+            loaded = _load(args.data, decimal=decimal, sheet=args.sheet, columns=chosen)
+            progress(0.0, "Preparing the chosen columns")
+            left: dict[str, str] = {}
+            if args.inputs is None:
+                inputs, left = _default_inputs(loaded, args.target, roles)
+            return loaded, inputs, left
+    loaded = _load(args.data, decimal=decimal, sheet=args.sheet)
+    progress(0.0, "Preparing the chosen columns")
+    left = {}
+    if args.inputs is not None:
+        inputs = args.inputs
+    else:
+        inputs, left = _default_inputs(loaded, args.target, roles)
+    return loaded, inputs, left
 
 
 def _say_left_out(left: dict[str, str], data, stream=None) -> None:
@@ -449,6 +501,9 @@ def _report(result, stream=None) -> None:
     print(f"Recommended: order {r['order']}, {pen}{more} ({err}; "
           f"{len(s['warnings'])} warning{'s' if len(s['warnings']) != 1 else ''}).",
           file=stream)
+    for w in s["warnings"]:
+        print(f"Warning ({w.get('severity') or 'caution'}): {w['message']} {w['advice']}",
+              file=stream)
     for t in s.get("targets") or []:
         if t["target"] != s["roles"]["target"]:
             print(f"Target {t['target']}: {t['recommended']} (section {t['section']}).",
@@ -597,8 +652,11 @@ def _out_folder(args: argparse.Namespace):
 
 
 def _check_budget(args: argparse.Namespace, inputs: tuple, penalties, more: tuple,
-                  rows: int) -> None:
-    """Refuse a request over the limits before any column is prepared; say its size."""
+                  rows: int, estimated: bool = False) -> None:
+    """Refuse a request over the limits before any column is prepared; say its size.
+
+    ``estimated``: ``rows`` is an estimate from a sample, before the table is read;
+    the request is checked again, and its size said, once the rows are known."""
     from .budget import Limits, check_request
 
     lags = None
@@ -616,8 +674,9 @@ def _check_budget(args: argparse.Namespace, inputs: tuple, penalties, more: tupl
     except (TypeError, ValueError):  # the full request is checked again later
         return
     limits = Limits.from_environment(args.time_limit, args.memory_limit)
-    budget = check_request(spec, rows, limits=limits)
-    print(f"{PROG}: request: {budget.text()}.", file=sys.stderr, flush=True)
+    budget = check_request(spec, rows, limits=limits, rows_estimated=estimated)
+    if not estimated:
+        print(f"{PROG}: request: {budget.text()}.", file=sys.stderr, flush=True)
 
 
 def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
@@ -626,16 +685,8 @@ def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
 
     progress = _StderrProgress()
     progress(0.0, f"Reading {args.data}")
-    loaded = _load(args.data, decimal=decimal, sheet=args.sheet)
-    progress(0.0, "Preparing the chosen columns")
     more = tuple(args.more_targets or ())
-    left: dict[str, str] = {}
-    if args.inputs is not None:
-        inputs = args.inputs
-    else:
-        inputs, left = _default_inputs(
-            loaded, args.target,
-            (args.order_column, args.group_column, args.split_column) + more)
+    loaded, inputs, left = _load_for_request(args, decimal, penalties, more, progress)
     if not inputs:
         raise InputProblem(f"No input columns are left besides the target '{args.target}'. "
                            "Name them with --inputs.", code="no_inputs")

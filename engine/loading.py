@@ -38,6 +38,7 @@ __all__ = [
     "PreparedData",
     "describe_drops",
     "load_table",
+    "peek_table",
     "prepare",
 ]
 
@@ -106,6 +107,9 @@ class LoadReport:
     sha256 : hex SHA-256 of the raw bytes, to tie results to the exact file.
     size_bytes : size of the raw bytes.
     notes : plain sentences about anything the user should know.
+    rows_estimate : for a sample (`peek_table`), the rows of the whole table:
+        exact for Parquet, estimated from the sample's bytes per row for text,
+        ``None`` when unknown; ``None`` for a whole table.
     """
 
     source_name: str
@@ -120,6 +124,7 @@ class LoadReport:
     sha256: str
     size_bytes: int
     notes: list[str] = field(default_factory=list)
+    rows_estimate: int | None = None
 
 
 @dataclass
@@ -638,7 +643,10 @@ def _classify_values(series: pd.Series, decimal: str
         present = series.notna().to_numpy(dtype=bool)
         return np.full(n, np.nan), present, np.zeros(n, dtype=bool), "bool"
     if (pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_complex_dtype(dtype)):
-        values = np.array(series.to_numpy(dtype="float64", na_value=np.nan), copy=True)
+        if dtype == np.float64:   # already float64 (the columnar reader): no second copy
+            values = np.asarray(series.to_numpy(dtype="float64", copy=False))
+        else:
+            values = np.array(series.to_numpy(dtype="float64", na_value=np.nan), copy=True)
         if pd.api.types.is_integer_dtype(dtype):
             _check_integer_precision(series, values)
         present = ~np.isnan(values)
@@ -847,7 +855,42 @@ def _split_header(text: str, sep: str, display: str) -> tuple[list[str], int]:
     return [], reader.line_num
 
 
-def _read_text(raw: bytes, display: str, decimal: str
+def _chosen_positions(names: list[str], wanted: Iterable[str] | None) -> list[int] | None:
+    """Positions of the ``wanted`` names in ``names`` (file order); None to read every column.
+
+    Every column is read when nothing is chosen or a chosen name is not among
+    ``names`` (so that the messages about it see the whole table).
+    """
+    if wanted is None:
+        return None
+    wanted = set(wanted)
+    if not wanted or not wanted.issubset(names) or len(wanted) >= len(names):
+        return None   # (every column chosen: the whole reading, without a note)
+    return [i for i, n in enumerate(names) if n in wanted]
+
+
+def _fields_line_up(text: str, sep: str) -> bool:
+    """Whether no record of ``text`` (header included) has more fields than the header.
+
+    pandas' reader ignores surplus fields when it reads chosen columns only, so
+    they are looked for here, by pyarrow's CSV parser, which refuses them.
+    """
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+    try:
+        pacsv.read_csv(pa.BufferReader(pa.py_buffer(text.encode("utf-8"))),
+                       read_options=pacsv.ReadOptions(autogenerate_column_names=True),
+                       parse_options=pacsv.ParseOptions(delimiter=sep, quote_char='"',
+                                                        newlines_in_values=True,
+                                                        ignore_empty_lines=True),
+                       convert_options=pacsv.ConvertOptions(include_columns=["f0"],
+                                                            column_types={"f0": pa.string()}))
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError, ValueError):
+        return False
+    return True
+
+
+def _read_text(raw: bytes, display: str, decimal: str, wanted: Iterable[str] | None = None
                ) -> tuple[pd.DataFrame, str | None, list[str]]:
     text, notes = _decode(raw, display)
     if not text.strip():
@@ -878,16 +921,33 @@ def _read_text(raw: bytes, display: str, decimal: str
             break
         cut = nl + 1
     body_text = text[cut:]
-
+    keep = _chosen_positions(names, wanted)
+    if keep is not None and not _fields_line_up(text, sep):
+        keep = None   # lines that do not match the header: read everything, to name them
+    body = None
+    if keep is not None:
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                body = pd.read_csv(io.StringIO(body_text), sep=sep, header=None,
+                                   keep_default_na=False, na_values=_na_tokens(),
+                                   decimal=decimal, skipinitialspace=True,
+                                   skip_blank_lines=True, engine="c", quotechar='"',
+                                   low_memory=False, usecols=keep)
+        except Exception:  # noqa: BLE001 - read everything below, with its messages
+            body, keep = None, None
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            body = pd.read_csv(io.StringIO(body_text), sep=sep, header=None,
-                               keep_default_na=False, na_values=_na_tokens(),
-                               decimal=decimal, skipinitialspace=True, skip_blank_lines=True,
-                               engine="c", quotechar='"', low_memory=False)
+        if body is None:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                body = pd.read_csv(io.StringIO(body_text), sep=sep, header=None,
+                                   keep_default_na=False, na_values=_na_tokens(),
+                                   decimal=decimal, skipinitialspace=True,
+                                   skip_blank_lines=True, engine="c", quotechar='"',
+                                   low_memory=False)
     except pd.errors.EmptyDataError:
         body = pd.DataFrame({i: pd.Series([], dtype=float) for i in range(len(names))})
+        keep = None
     except pd.errors.ParserError as exc:
         message = str(exc)
         m = _FIELDS_RE.search(message)
@@ -910,6 +970,14 @@ def _read_text(raw: bytes, display: str, decimal: str
         raise InputProblem(f"'{display}' could not be read as a table: {_short(exc, 120)}.",
                            code="unreadable") from None
 
+    header_numbers = pd.to_numeric(pd.Series(names, dtype=object), errors="coerce")
+    if len(names) and header_numbers.notna().all():
+        notes.append("The first row holds only numbers but was read as column names; "
+                     "add a header row if the file has none.")
+    if keep is not None:   # the chosen columns only (surplus fields were looked for above)
+        body.columns = [names[i] for i in keep]
+        notes.append(_not_read_note(len(names) - len(keep)))
+        return body.reset_index(drop=True), delimiter, notes
     width = body.shape[1]
     if width > len(names):
         offset = next((i for i, ln in enumerate(body_text.split("\n", 1000)) if ln.strip()), 0)
@@ -920,10 +988,6 @@ def _read_text(raw: bytes, display: str, decimal: str
     for extra in range(width, len(names)):
         body[extra] = np.nan
     body.columns = names
-    header_numbers = pd.to_numeric(pd.Series(names, dtype=object), errors="coerce")
-    if len(names) and header_numbers.notna().all():
-        notes.append("The first row holds only numbers but was read as column names; "
-                     "add a header row if the file has none.")
     return body.reset_index(drop=True), delimiter, notes
 
 
@@ -931,7 +995,13 @@ def _read_text(raw: bytes, display: str, decimal: str
 COLUMNAR_MIN_BYTES = 1 << 20
 
 
-def _read_text_columnar(raw: bytes, display: str, decimal: str
+def _not_read_note(n: int) -> str:
+    return (f"Only the chosen columns were read; {n:,} other "
+            f"{'column was' if n == 1 else 'columns were'} left unread.")
+
+
+def _read_text_columnar(raw: bytes, display: str, decimal: str,
+                        wanted: Iterable[str] | None = None
                         ) -> tuple[pd.DataFrame, str | None, list[str]] | None:
     """The common case of a large text table, through pyarrow's CSV reader.
 
@@ -952,7 +1022,11 @@ def _read_text_columnar(raw: bytes, display: str, decimal: str
         return None
     if raw.count(b'"') % 2:
         return None   # a quote never closed: the other reader names the line
-    head = raw[:65536]
+    limit = 65536
+    head = raw[:limit]
+    while head.count(b"\n") < 2 and len(raw) > limit and limit < (64 << 20):
+        limit *= 4   # a very wide header: take it and the line below it
+        head = raw[:limit]
     cut = head.rfind(b"\n")
     if b"\x00" in head or cut <= 0:
         return None
@@ -973,6 +1047,13 @@ def _read_text_columnar(raw: bytes, display: str, decimal: str
     if len(names) != len(header):
         return None
     keys = [f"c{i}" for i in range(len(header))]
+    keep = _chosen_positions(names, wanted)
+    if keep is not None:   # the parser still checks every line's field count
+        keys_read = [keys[i] for i in keep]
+        names_read = [names[i] for i in keep]
+        notes.append(_not_read_note(len(names) - len(keep)))
+    else:
+        keys_read, names_read = keys, names
     source = pa.py_buffer(raw)
 
     def read(types=None, include=None):
@@ -988,11 +1069,11 @@ def _read_text_columnar(raw: bytes, display: str, decimal: str
                 include_columns=include))
 
     try:
-        table = read()
+        table = read(None, None if keep is None else keys_read)
         if any(pa.types.is_boolean(f.type) and table.column(f.name).null_count
                for f in table.schema):
             return None   # true/false with gaps: the other reader keeps them as read_csv does
-        other = [k for k, f in zip(keys, table.schema)
+        other = [k for k, f in zip(keys_read, table.schema)
                  if not (pa.types.is_floating(f.type) or pa.types.is_integer(f.type)
                          or pa.types.is_boolean(f.type))]
         if other:   # dates, true/false, text: as text, classified like the other reader's
@@ -1001,13 +1082,13 @@ def _read_text_columnar(raw: bytes, display: str, decimal: str
                 return None   # control characters: the other reader explains them
             text = read({k: pa.string() for k in other}, other)
             for k in other:
-                table = table.set_column(keys.index(k), k, text.column(k))
+                table = table.set_column(keys_read.index(k), k, text.column(k))
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError, ValueError):
         return None
     if table.num_rows == 0:
         return None
     columns = {}
-    for name, k, f in zip(names, keys, table.schema):
+    for name, k, f in zip(names_read, keys_read, table.schema):
         col = table.column(k)
         if pa.types.is_floating(f.type) or pa.types.is_integer(f.type):
             columns[name] = col.to_numpy(zero_copy_only=False).astype(float, copy=False)
@@ -1036,8 +1117,8 @@ def _too_many_cells(display: str, sheet: str, cells: int) -> InputProblem:
         "and columns you need, as CSV or a smaller sheet, and load that.", code="too_large")
 
 
-def _formula_columns(raw: bytes, sheet_name: str, names: list[str], empty: list[str]
-                     ) -> list[str]:
+def _formula_columns(raw: bytes, sheet_name: str, names: list[str], empty: list[str],
+                     positions: list[int] | None = None) -> list[str]:
     """Of the ``empty`` columns, those whose cells are formulas with no saved result."""
     import openpyxl
     try:
@@ -1047,7 +1128,8 @@ def _formula_columns(raw: bytes, sheet_name: str, names: list[str], empty: list[
         try:
             ws = book[sheet_name]
             ws.reset_dimensions()
-            where = {names.index(c): c for c in empty}
+            where = {(positions[names.index(c)] if positions else names.index(c)): c
+                     for c in empty}
             found: set[str] = set()
             for i, r in enumerate(ws.iter_rows(values_only=True)):
                 if i > 10_000:
@@ -1062,7 +1144,11 @@ def _formula_columns(raw: bytes, sheet_name: str, names: list[str], empty: list[
     return [c for c in empty if c in found]
 
 
-def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.DataFrame, list[str]]:
+def _read_xlsx(raw: bytes, display: str, sheet: str | int | None,
+               wanted: Iterable[str] | None = None, max_rows: int | None = None
+               ) -> tuple[pd.DataFrame, list[str]]:
+    """Cells of one sheet with clean names; only the ``wanted`` columns (when all of
+    them are named in the header row), only the first ``max_rows`` data rows (a sample)."""
     try:
         import openpyxl
     except ImportError:  # pragma: no cover - openpyxl is a requirement
@@ -1116,13 +1202,32 @@ def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.Da
         try:
             rows = []
             cells = 0
+            keep: list[int] | None = None   # positions of the chosen columns, once known
+            seen = -1                       # data rows below the header so far
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 for r in ws.iter_rows(values_only=True):
                     cells += len(r)
                     if cells > XLSX_MAX_CELLS:
                         raise _too_many_cells(display, sheet_name, cells)
-                    rows.append(list(r))
+                    if keep is not None:
+                        rows.append([r[j] if j < len(r) else None for j in keep])
+                    else:
+                        rows.append(list(r))
+                    if seen < 0 and any(not (v is None or (isinstance(v, str)
+                                                            and not v.strip())) for v in r):
+                        seen = 0   # the header row
+                        if max_rows is not None:
+                            max_rows = max(1, min(max_rows, SAMPLE_CELLS // max(len(r), 1)))
+                        if wanted is not None:
+                            header_names = _clean_names(list(r), display)[0]
+                            keep = _chosen_positions(header_names, wanted)
+                            if keep is not None:
+                                rows[-1] = [r[j] for j in keep]
+                    elif seen >= 0:
+                        seen += 1
+                        if max_rows is not None and seen >= max_rows:
+                            break
         except InputProblem:
             raise
         except Exception as exc:
@@ -1156,6 +1261,16 @@ def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.Da
         notes.append(f"Skipped {_plural(len(rows) - last, 'empty row')} at the end of sheet "
                      f"'{sheet_name}'.")
     rows = rows[:last]
+    if keep is not None:
+        names = [header_names[j] for j in keep]
+        body = pd.DataFrame(rows[1:], columns=names, dtype=object)
+        empty = [c for c in names if body[c].isna().all()] if len(body) else []
+        if empty:
+            body.attrs[FORMULA_ATTR] = _formula_columns(raw, sheet_name, names, empty, keep)
+        notes.append(_not_read_note(len(header_names) - len(keep)))
+        if sheet is not None or len(sheets) > 1:
+            notes.append(f"Read sheet '{sheet_name}' ({len(sheets)} in the workbook).")
+        return body, notes
     width = max(len(r) for r in rows)
     if width * len(rows) > XLSX_MAX_CELLS:
         raise _too_many_cells(display, sheet_name, width * len(rows))
@@ -1175,30 +1290,74 @@ def _read_xlsx(raw: bytes, display: str, sheet: str | int | None) -> tuple[pd.Da
     return body, notes
 
 
-def _read_parquet(raw: bytes, display: str) -> tuple[pd.DataFrame, list[str]]:
+def _decimals_as_floats(table):
+    """Fixed-point (decimal) columns as float64, each value correctly rounded.
+
+    Through the decimal's exact text, which pyarrow parses to the nearest
+    float64 (the same value as Python's ``float(Decimal)``); pyarrow's direct
+    decimal-to-float cast is off by one unit in the last place for a few values.
+    """
+    import pyarrow as pa
+    for i, f in enumerate(table.schema):
+        if pa.types.is_decimal(f.type):
+            col = table.column(i).cast(pa.string()).cast(pa.float64())
+            table = table.set_column(i, f.name, col)
+    return table
+
+
+def _read_parquet(raw: bytes, display: str, wanted: Iterable[str] | None = None,
+                  max_rows: int | None = None) -> tuple[pd.DataFrame, list[str]]:
     try:
         import pyarrow as pa
         import pyarrow.parquet as pq
     except ImportError:  # pragma: no cover - pyarrow is a requirement
         raise InputProblem("Reading Parquet files needs the pyarrow package; save the data "
                            "as CSV instead.", code="unsupported_format") from None
-    if len(raw) < 12 or not (raw.startswith(_PARQUET_MAGIC) and raw.endswith(_PARQUET_MAGIC)):
+    if isinstance(raw, Path):   # a sample (`peek_table`): only the pages it needs are read
+        raw = pa.OSFile(str(raw))
+    elif len(raw) < 12 or not (raw.startswith(_PARQUET_MAGIC) and raw.endswith(_PARQUET_MAGIC)):
         raise InputProblem(
             f"'{display}' is not a valid Parquet file (its first or last bytes are wrong; "
             "it may be cut short or be another kind of file). Write it again, or export "
             "the data as CSV.", code="unreadable")
     try:
-        table = pq.read_table(pa.BufferReader(raw))
+        file = pq.ParquetFile(raw if isinstance(raw, pa.NativeFile) else pa.BufferReader(raw))
+        all_names = list(file.schema_arrow.names)
+        names, notes = _clean_names(all_names, display)
+        keep = _chosen_positions(names, wanted) if names else None
+        columns = None if keep is None else [all_names[i] for i in keep]
+        if max_rows is not None:
+            max_rows = max(1, min(max_rows, SAMPLE_CELLS // max(len(names), 1)))
+            # a few hundred columns at a time: a row group is decoded whole
+            every = columns or all_names
+            parts = []
+            for start in range(0, len(every), 256):
+                part = every[start:start + 256]
+                batch = next(file.iter_batches(batch_size=max_rows, columns=part,
+                                               use_threads=False), None)
+                parts.append(pa.Table.from_batches([batch]) if batch is not None
+                             else file.schema_arrow.empty_table().select(part))
+            table = pa.Table.from_arrays(
+                [c for t in parts for c in t.columns],
+                names=[n for t in parts for n in t.column_names]) if parts else \
+                file.schema_arrow.empty_table()
+        else:
+            table = file.read(columns=columns)
+    except InputProblem:
+        raise
     except Exception as exc:
         raise InputProblem(
             f"'{display}' could not be read as Parquet ({type(exc).__name__}: "
             f"{_short(exc, 120)}). Write it again, or export the data as CSV.",
             code="unreadable") from None
-    names, notes = _clean_names(list(table.column_names), display)
     if not names:
         raise InputProblem(f"'{display}' holds no columns. Write the table again with its "
                            "columns, or export it as CSV.", code="empty")
+    if keep is not None:
+        notes.append(_not_read_note(len(names) - len(keep)))
+        names = [names[i] for i in keep]
     try:
+        table = _decimals_as_floats(table)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             frame = table.to_pandas(ignore_metadata=True)
@@ -1217,7 +1376,8 @@ def _read_parquet(raw: bytes, display: str) -> tuple[pd.DataFrame, list[str]]:
 
 def load_table(source: Source, *, name: str | None = None, decimal: str | None = None,
                sheet: str | int | None = None,
-               max_bytes: int | None = None) -> LoadedTable:
+               max_bytes: int | None = None,
+               columns: Iterable[str] | None = None) -> LoadedTable:
     """Read a table from a file, bytes or an uploaded file object.
 
     Parameters
@@ -1232,6 +1392,14 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
     sheet : worksheet name or 0-based number for Excel files; default the first.
     max_bytes : largest size accepted; default `DEFAULT_MAX_BYTES` (the
         browser's upload cap); `NO_SIZE_LIMIT` for none.
+    columns : names (as `LoadReport` gives them: trimmed, blank ones named by
+        position) of the only columns to materialise, e.g. the target and the
+        inputs of a wide table; the header is read first and the other columns'
+        cells are never converted (pyarrow ``include_columns``, pandas
+        ``usecols``, Parquet column projection, workbook cells dropped per
+        row). The frame and the report then hold these columns only, and a
+        note says how many were left unread. When a name is not in the
+        header, every column is read (so that messages see the whole table).
 
     Returns
     -------
@@ -1258,20 +1426,34 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
         raise InputProblem(f"The size limit must be a whole number of bytes (got {max_bytes!r}).",
                            code="bad_source") from None
     raw, display = _read_source(source, name, limit)
-    if not raw:
-        raise InputProblem(f"'{display}' is empty (0 bytes). Choose the file that holds the data.",
-                           code="empty")
-    digest = hashlib.sha256(raw).hexdigest()
-    file_format, notes = _choose_format(raw, display)
+    return _load_raw(raw, display, dec, sheet, columns=columns)
+
+
+def _load_raw(raw: bytes, display: str, dec: str, sheet: str | int | None, *,
+              columns: Iterable[str] | None = None, max_rows: int | None = None,
+              digest: str | None = None, file_format: str | None = None,
+              columnar: bool = True) -> LoadedTable:
+    """`load_table` on bytes already read; ``max_rows`` reads a sample (`peek_table`),
+    for which ``raw`` may be the path of a Parquet file (``file_format='parquet'``)."""
+    notes: list[str] = []
+    if file_format is None:
+        if not raw:
+            raise InputProblem(f"'{display}' is empty (0 bytes). Choose the file that holds "
+                               "the data.", code="empty")
+        file_format, notes = _choose_format(raw, display)
+    if columns is not None:
+        columns = [str(c) for c in columns]
+    digest = digest or hashlib.sha256(raw).hexdigest()
     delimiter: str | None = None
     try:
         if file_format == "csv":
-            fast = _read_text_columnar(raw, display, dec)
-            cells, delimiter, more = fast if fast is not None else _read_text(raw, display, dec)
+            fast = _read_text_columnar(raw, display, dec, columns) if columnar else None
+            cells, delimiter, more = (fast if fast is not None
+                                      else _read_text(raw, display, dec, columns))
         elif file_format == "xlsx":
-            cells, more = _read_xlsx(raw, display, sheet)
+            cells, more = _read_xlsx(raw, display, sheet, columns, max_rows)
         else:
-            cells, more = _read_parquet(raw, display)
+            cells, more = _read_parquet(raw, display, columns, max_rows)
         notes.extend(more)
         frame, numeric, ignored, reasons, col_notes = _build_columns(cells, dec, display)
         if cells.attrs.get(FORMULA_ATTR):
@@ -1315,8 +1497,95 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
         source_name=display, file_format=file_format, delimiter=delimiter, decimal=dec,
         rows_read=int(len(frame)), columns_read=int(frame.shape[1]),
         numeric_columns=list(numeric), ignored_columns=list(ignored),
-        ignored_reasons=dict(reasons), sha256=digest, size_bytes=len(raw), notes=notes)
+        ignored_reasons=dict(reasons), sha256=digest,
+        size_bytes=raw.stat().st_size if isinstance(raw, Path) else len(raw), notes=notes)
     return LoadedTable(frame=frame, report=report)
+
+
+#: A sample (`peek_table`) holds at most this many data rows ...
+SAMPLE_ROWS = 1000
+#: ... and, for text, the lines within this many bytes (more only for the header and one row);
+SAMPLE_BYTES = 4 << 20
+#: Parquet and workbook samples stop at this many cells (at least one row).
+SAMPLE_CELLS = 200_000
+
+
+def _text_head(path: Path, rows: int) -> tuple[bytes, bool] | None:
+    """The header and up to ``rows`` whole lines of a text file; (bytes, whole file?)."""
+    with path.open("rb") as fh:
+        head = fh.read(SAMPLE_BYTES)
+        whole = len(head) < SAMPLE_BYTES or not fh.peek(1)
+        while not whole and head.count(b"\n") < 2 and len(head) < 16 * SAMPLE_BYTES:
+            more = fh.read(SAMPLE_BYTES)   # one line longer than the sample (very wide)
+            head += more
+            whole = not more or len(more) < SAMPLE_BYTES
+    if whole:
+        return head, True
+    ends = [m.end() for m in re.finditer(b"\n", head[: SAMPLE_BYTES * 16])][: rows + 1]
+    if len(ends) < 2:
+        return None
+    return head[: ends[-1]], False
+
+
+def peek_table(source: str | os.PathLike, *, decimal: str | None = None,
+               sheet: str | int | None = None, rows: int = SAMPLE_ROWS) -> LoadedTable | None:
+    """The header and the first ``rows`` data rows of a file, read the way `load_table`
+    reads the whole of it: names, kinds of column (which are numbers) and a sample.
+
+    Reads a bounded part of the file: for text, at most `SAMPLE_BYTES` (more only
+    when the header and one row are longer); for Parquet, the footer and the
+    first rows; for a workbook, the first rows of the sheet. The report's
+    ``rows_estimate`` is the number of rows of the whole table (exact for
+    Parquet, from the sample's bytes per line for text, ``None`` for a workbook).
+
+    Parameters
+    ----------
+    source : path of the file.
+    decimal, sheet : as for `load_table`.
+    rows : data rows in the sample.
+
+    Returns
+    -------
+    LoadedTable or None
+        The sample; ``None`` when it cannot be read on its own (a quoted field
+        across the cut, an encoding that needs the whole file, a problem with
+        the file): `load_table` on the whole file then says what is wrong.
+    """
+    dec = "," if decimal == "," else "."
+    path = Path(source)
+    display = path.name or str(path)
+    try:
+        size = path.stat().st_size
+        with path.open("rb") as fh:
+            magic = fh.read(8)
+        suffix = path.suffix.lower()
+        if suffix in _PARQUET_EXTENSIONS or (suffix not in _XLSX_EXTENSIONS
+                                             and magic.startswith(_PARQUET_MAGIC)):
+            import pyarrow.parquet as pq
+            sample = _load_raw(path, display, dec, sheet, max_rows=rows, digest="-",
+                               file_format="parquet")
+            sample.report.rows_estimate = int(pq.ParquetFile(path).metadata.num_rows)
+        elif suffix in _XLSX_EXTENSIONS or magic.startswith(_ZIP_MAGIC):
+            sample = _load_raw(path.read_bytes(), display, dec, sheet, max_rows=rows,
+                               digest="-")
+        else:
+            found = _text_head(path, rows)
+            if found is None:
+                return None
+            head, whole = found
+            # pandas' parser: a few MB of a very wide table cost pyarrow's parser
+            # several times more memory
+            sample = _load_raw(head, display, dec, sheet, digest="-", columnar=False)
+            lines = head.count(b"\n") or 1
+            sample.report.rows_estimate = (
+                sample.report.rows_read if whole
+                else int(round(size / len(head) * lines)) - 1)
+            sample.report.size_bytes = size
+    except InputProblem:
+        return None
+    except (OSError, ValueError, ImportError):
+        return None
+    return sample
 
 
 # ---------------------------------------------------------------------------

@@ -21,7 +21,8 @@ from engine.checks import (
 
 REPO = Path(__file__).resolve().parents[1]
 CHECK_CODES = {"target_leakage", "serial_dependence", "period_shift", "extrapolation", "high_leverage",
-               "few_samples_per_parameter", "ill_conditioned", "train_validation_gap", "range_edge"}
+               "few_samples_per_parameter", "ill_conditioned", "train_validation_gap", "range_edge",
+               "few_validation_rows"}
 
 
 # ---------------------------------------------------------------------------
@@ -377,3 +378,60 @@ def test_progress_is_reported():
     run_checks(data, an, progress=lambda f, m: seen.append((f, m)))
     assert seen[0][0] == 0.0 and seen[-1][0] == 1.0
     assert all(isinstance(m, str) and m for _, m in seen)
+
+
+# ---------------------------------------------------------------------------
+# few validation rows
+# ---------------------------------------------------------------------------
+def _demo_calibration():
+    from engine.loading import load_table, prepare
+    loaded = load_table(REPO / "demo_data" / "calibration_curve.csv")
+    return prepare(loaded.frame, "bath_temp_C", ["probe_mV"])
+
+
+def test_few_validation_rows_fires_for_a_tiny_holdout():
+    from engine.checks import MIN_VALIDATION_ROWS
+    data = _demo_calibration()
+    spec = SweepSpec("bath_temp_C", ("probe_mV",), max_order=3, penalties=(0.0, 0.1),
+                     scheme=SchemeSpec("holdout", holdout_fraction=0.001))
+    analysis = analyse(data, spec)
+    held = [len(v) for v in analysis.plan.valid_sets]
+    assert held == [1]                      # the scheme really validates on one row
+    rep = run_checks(data, analysis)
+    f = rep.by_code("few_validation_rows")
+    assert f is not None and f.severity == "serious"
+    assert f.value == 1 and f.details["threshold"] == MIN_VALIDATION_ROWS == 10
+    assert "only 1 row held out" in f.message and "common practice" in f.message
+    # 1/sqrt(2m): the large-sample standard error of a sample standard deviation over sigma
+    # (a handbook result for normal errors), 71% at m = 1
+    assert "\u00b171%" in f.message
+    assert "holdout fraction" in f.advice and "k-fold" in f.advice
+    row = rep.tables["summary"].set_index("code").loc["few_validation_rows"]
+    assert bool(row["fired"]) and row["value"] == 1
+
+
+def test_few_validation_rows_quiet_for_five_fold_on_the_demo():
+    data = _demo_calibration()            # 24 rows: 5 folds of 4-5 rows, every row held out once
+    spec = SweepSpec("bath_temp_C", ("probe_mV",), max_order=3, penalties=(0.0, 0.1),
+                     scheme=SchemeSpec("kfold", folds=5))
+    analysis = analyse(data, spec)
+    assert sorted(len(v) for v in analysis.plan.valid_sets) == [4, 5, 5, 5, 5]
+    rep = run_checks(data, analysis)
+    assert rep.by_code("few_validation_rows") is None
+    row = rep.tables["summary"].set_index("code").loc["few_validation_rows"]
+    assert not bool(row["fired"]) and row["value"] == 24
+
+
+def test_few_validation_rows_reaches_the_command_line_and_the_summary(demo_dir, tmp_path, capsys):
+    from engine.cli import main
+    out = tmp_path / "pack"
+    code = main(["run", str(demo_dir / "calibration_curve.csv"), "--target", "bath_temp_C",
+                 "--max-order", "2", "--penalties", "0,0.1", "--scheme", "holdout",
+                 "--holdout-fraction", "0.001", "--out", str(out)])
+    printed = capsys.readouterr().out
+    assert code == 0
+    assert "Warning (serious): The validation error rests on only 1 row held out" in printed
+    summary = json.loads((out / "summary.json").read_text())
+    codes = [w["code"] for w in summary["warnings"]]
+    assert "few_validation_rows" in codes
+    assert "rests on only 1 row" in (out / "summary.md").read_text()

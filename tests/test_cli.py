@@ -270,3 +270,42 @@ def test_dropped_rows_are_reported_on_the_command_line(recorded, tmp_path, capsy
     assert code == 0, err
     assert ("2 of 20 rows dropped: 1 with 'y' empty; 1 with 'y' not a number "
             "(first: '1,204.50')") in err
+
+
+def test_a_hundred_thousand_repeats_are_refused_before_the_sweep(demo_dir, tmp_path, capsys,
+                                                                  monkeypatch):
+    import engine.analysis
+    from engine.budget import Limits
+
+    def never(*a, **k):
+        raise AssertionError("the sweep started")
+    monkeypatch.setattr(engine.analysis, "analyse", never)
+    monkeypatch.setattr(engine.pack, "build_pack", never)
+    monkeypatch.delenv("FITLADDER_MAX_SECONDS", raising=False)
+    out = tmp_path / "pack"
+    code, _, err = _call(["run", str(demo_dir / "calibration_curve.csv"), "--target",
+                          "bath_temp_C", "--scheme", "repeated", "--repeats", "100000",
+                          "--out", str(out)], capsys)
+    assert code == 2, err
+    message = err.strip().splitlines()[-1]
+    assert "longer than allowed" in message
+    assert "500,000 splits = 5 folds x 100,000 repeats" in message   # the figures
+    assert f"the limit is {Limits().max_seconds / 60:.0f} min" in message
+    # the next step: a repeat count that fits, or a higher limit
+    suggested = int(message.split("--repeats ")[1].split()[0])
+    assert 1 <= suggested < 100000
+    assert "--time-limit" in message and "FITLADDER_MAX_SECONDS" in message
+    assert not out.exists()
+    # the suggested count is indeed within the limit by the same estimate
+    from engine import SchemeSpec, SweepSpec
+    from engine.budget import check_request
+    spec = SweepSpec("bath_temp_C", ("probe_mV",), scheme=SchemeSpec("repeated",
+                                                                     repeats=suggested))
+    assert check_request(spec, 24).seconds <= Limits().max_seconds
+    # a higher limit through the environment lets the same request past the budget
+    monkeypatch.setenv("FITLADDER_MAX_SECONDS", str(10 ** 7))
+    code, _, err = _call(["run", str(demo_dir / "calibration_curve.csv"), "--target",
+                          "bath_temp_C", "--scheme", "repeated", "--repeats", "100000",
+                          "--out", str(out)], capsys)
+    assert code == 1 and "the sweep started" in err   # (the stand-in sweep above)
+    assert "request:" in err and " h on this machine" in err   # the estimate, before the run

@@ -108,3 +108,126 @@ def test_command_line_reads_a_local_file_over_the_upload_cap(tmp_path, monkeypat
                    "--out", str(tmp_path / "pack")])
     assert status == 0, capsys.readouterr().err
     assert (tmp_path / "pack" / "summary.json").is_file()
+
+
+# ---------------------------------------------------------------------------
+# reading only the chosen columns of a wide table
+# ---------------------------------------------------------------------------
+def _wide_frame(rows: int = 30, columns: int = 300) -> pd.DataFrame:
+    rng = np.random.default_rng(5)
+    frame = pd.DataFrame(np.round(rng.normal(size=(rows, columns)), 3),
+                         columns=[f"c{j:03d}" for j in range(columns)])
+    frame["y"] = np.round(rng.normal(size=rows), 3)
+    return frame
+
+
+CHOSEN = ["y", "c007", "c250"]
+
+
+@pytest.mark.parametrize("route", ["columnar", "hand-written"])
+def test_chosen_columns_of_a_wide_text_table_equal_the_whole_reading(route, monkeypatch):
+    raw = _wide_frame().to_csv(index=False).encode()
+    monkeypatch.setattr(L, "COLUMNAR_MIN_BYTES", 0 if route == "columnar" else 1 << 62)
+    whole = L.load_table(raw, name="t.csv")
+    seen = {}
+    real = pd.read_csv
+
+    def spy(*a, **k):
+        seen["usecols"] = k.get("usecols")
+        return real(*a, **k)
+    monkeypatch.setattr(L.pd, "read_csv", spy)
+    part = L.load_table(raw, name="t.csv", columns=CHOSEN)
+    assert list(part.frame.columns) == ["c007", "c250", "y"]          # file order
+    pd.testing.assert_frame_equal(part.frame, whole.frame[["c007", "c250", "y"]])
+    assert part.report.numeric_columns == ["c007", "c250", "y"]
+    assert "298 other columns were left unread" in part.report.notes[-1]
+    if route == "hand-written":
+        assert seen["usecols"] == [7, 250, 300]   # pandas materialised only these
+
+
+def test_chosen_columns_with_a_decimal_comma_and_messy_header():
+    text = " a ;;c\n1,5;2,5;3,5\n4,5;5,5;6,5\n7,5;8,5;9,5\n"
+    whole = L.load_table(text.encode(), name="t.csv", decimal=",")
+    part = L.load_table(text.encode(), name="t.csv", decimal=",", columns=["a", "column_2"])
+    assert list(part.frame.columns) == ["a", "column_2"]   # trimmed and named by position
+    pd.testing.assert_frame_equal(part.frame, whole.frame[["a", "column_2"]])
+
+
+@pytest.mark.parametrize("route", ["columnar", "hand-written"])
+def test_ragged_rows_give_the_same_message_when_columns_are_chosen(route, monkeypatch):
+    monkeypatch.setattr(L, "COLUMNAR_MIN_BYTES", 0 if route == "columnar" else 1 << 62)
+    raw = (MALFORMED / "ragged_rows.csv").read_bytes()
+    with pytest.raises(InputProblem) as whole:
+        L.load_table(raw, name="ragged_rows.csv")
+    with pytest.raises(InputProblem) as part:
+        L.load_table(raw, name="ragged_rows.csv", columns=["x", "y"])
+    assert (part.value.code, part.value.message) == (whole.value.code, whole.value.message)
+    assert "line 4" in part.value.message
+
+
+def test_an_unknown_chosen_name_reads_every_column():
+    raw = _wide_frame(columns=5).to_csv(index=False).encode()
+    part = L.load_table(raw, name="t.csv", columns=["y", "nope"])
+    assert part.frame.shape[1] == 6
+
+
+def test_chosen_columns_of_parquet_and_workbook(tmp_path):
+    frame = _wide_frame(rows=12, columns=40)
+    frame.to_parquet(tmp_path / "w.parquet", index=False)
+    frame.to_excel(tmp_path / "w.xlsx", index=False)
+    for name in ("w.parquet", "w.xlsx"):
+        whole = L.load_table(tmp_path / name)
+        part = L.load_table(tmp_path / name, columns=["y", "c007", "c025"])
+        assert list(part.frame.columns) == ["c007", "c025", "y"], name
+        pd.testing.assert_frame_equal(part.frame, whole.frame[["c007", "c025", "y"]])
+        assert any("38 other columns were left unread" in n for n in part.report.notes)
+
+
+def test_peek_reads_a_bounded_sample_with_kinds_and_a_row_estimate(tmp_path, monkeypatch):
+    frame = _wide_frame(rows=400, columns=20)
+    frame["note"] = "text"
+    frame.to_csv(tmp_path / "t.csv", index=False)
+    frame.to_parquet(tmp_path / "t.parquet", index=False)
+    monkeypatch.setattr(L, "SAMPLE_BYTES", 4096)
+    csv_head = L.peek_table(tmp_path / "t.csv", rows=50)
+    assert 1 <= csv_head.report.rows_read <= 50
+    assert (tmp_path / "t.csv").stat().st_size > 4096
+    assert csv_head.report.numeric_columns == list(frame.columns[:-1])
+    assert csv_head.report.ignored_columns == ["note"]
+    assert abs(csv_head.report.rows_estimate - 400) < 40     # from bytes per line
+    pq_head = L.peek_table(tmp_path / "t.parquet", rows=50)
+    assert pq_head.report.rows_read == 50 and pq_head.report.rows_estimate == 400
+    assert pq_head.report.numeric_columns == list(frame.columns[:-1])
+    # a file that cannot be sampled on its own: None, and the whole reading says why
+    (tmp_path / "bad.csv").write_bytes(b"\x1f\x8b" + bytes(100))
+    assert L.peek_table(tmp_path / "bad.csv") is None
+
+
+def test_wide_file_refused_for_too_many_terms_before_its_cells_are_read(tmp_path, monkeypatch,
+                                                                        capsys):
+    path = tmp_path / "wide.csv"
+    _wide_frame(rows=20, columns=400).to_csv(path, index=False)
+    calls = []
+    real = L.load_table
+
+    def spy(*a, **k):
+        calls.append(k.get("columns"))
+        return real(*a, **k)
+    monkeypatch.setattr(L, "load_table", spy)
+    code = main(["run", str(path), "--target", "y", "--out", str(tmp_path / "pack")])
+    err = capsys.readouterr().err
+    assert code == 2 and "too large to sweep" in err and "from 400 inputs" in err
+    assert "about 20 rows" in err
+    assert calls == []                       # refused from the header and the sample
+    code = main(["run", str(path), "--target", "y", "--inputs", "c001,c002", "--max-order", "2",
+                 "--penalties", "0,0.1", "--out", str(tmp_path / "pack")])
+    assert code == 0, capsys.readouterr().err
+    assert calls == [["y", "c001", "c002"]]  # only the chosen columns were materialised
+
+
+def test_choosing_every_column_is_the_whole_reading():
+    raw = _wide_frame(columns=4).to_csv(index=False).encode()
+    whole = L.load_table(raw, name="t.csv")
+    every = L.load_table(raw, name="t.csv", columns=["y", "c000", "c001", "c002", "c003"])
+    pd.testing.assert_frame_equal(every.frame, whole.frame)
+    assert every.report.notes == whole.report.notes   # no note about unread columns
