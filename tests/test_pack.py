@@ -204,7 +204,10 @@ def test_saved_pipeline_reproduces_predictions(demo_pack, nasty_pack):
         grid = np.random.default_rng(1).uniform(lo - 0.25 * (hi - lo), hi + 0.25 * (hi - lo),
                                                 size=(300, data.X.shape[1]))
         for X in (data.X, grid):
-            assert _rel_gap(pipe.predict(X), res.model.predict(X), data.y) <= 1e-9
+            # the saved pipeline takes a table with the input columns by name (as a user
+            # predicts from a DataFrame); the engine's model takes the array
+            frame = pd.DataFrame(X, columns=list(data.inputs))
+            assert _rel_gap(pipe.predict(frame), res.model.predict(X), data.y) <= 1e-9
 
 
 @pytest.mark.parametrize("interactions,order,penalty", [
@@ -219,7 +222,8 @@ def test_pipeline_matches_the_engine_for_several_inputs(interactions, order, pen
     model = fit_cell(data, spec, order, penalty)
     pipe = sklearn_pipeline(model)
     Xt = rng.uniform([-1.0, 50.0, -2.0], [6.0, 350.0, 2.0], size=(200, 3))
-    assert _rel_gap(pipe.predict(Xt), model.predict(Xt), y) <= 1e-9
+    frame = pd.DataFrame(Xt, columns=["a", "b", "c"])   # by name, as a user predicts
+    assert _rel_gap(pipe.predict(frame), model.predict(Xt), y) <= 1e-9
 
 
 def test_pipeline_agrees_with_an_independent_scikit_learn_fit(demo_pack):
@@ -234,7 +238,8 @@ def test_pipeline_agrees_with_an_independent_scikit_learn_fit(demo_pack):
     ours = sklearn_pipeline(model)
     theirs = make_pipeline(PolynomialFeatures(2), LinearRegression()).fit(data.X, data.y)
     grid = np.linspace(data.X.min(), data.X.max(), 50)[:, None]
-    assert _rel_gap(ours.predict(grid), theirs.predict(grid), data.y) <= 1e-9
+    frame = pd.DataFrame(grid, columns=list(data.inputs))
+    assert _rel_gap(ours.predict(frame), theirs.predict(grid), data.y) <= 1e-9
 
 
 def test_loading_refuses_foreign_objects(tmp_path):
