@@ -246,7 +246,6 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     order = np.argsort(small, kind="stable")   # a radix sort for small integers
     sl = small[order]
     U = np.asarray(U)
-    ubuf = np.empty((min(chunk_rows, sl.size), U.shape[1]), dtype=U.dtype)
     Y = np.asarray(y, dtype=float)
     Y = Y[:, None] if Y.ndim == 1 else Y
     n_targets = Y.shape[1]
@@ -265,7 +264,8 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     shift = np.r_[shift_f, shift_y]
     # wide designs: fewer rows per chunk, so one chunk's terms stay near 64 MB
     chunk_rows = int(max(256, min(chunk_rows, (8 << 20) // (P + 1))))
-    ubuf = ubuf[:min(chunk_rows, sl.size)]
+    # sized after the chunk length is settled (it may grow to 256 rows above)
+    ubuf = np.empty((min(chunk_rows, sl.size), U.shape[1]), dtype=U.dtype)
     buf = np.empty((min(chunk_rows, sl.size), P + 1), order="F")
     buf[:, P] = 1.0
     G_full = np.empty((q, q))

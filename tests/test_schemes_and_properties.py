@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import example, HealthCheck, given, settings
 from hypothesis import strategies as st
 from sklearn.model_selection import GroupKFold, KFold, RepeatedKFold
 
@@ -145,6 +145,7 @@ def test_piece_summaries_combine_to_the_direct_ones(args):
 @settings(max_examples=25, deadline=None)
 @given(st.integers(5, 3000), st.integers(0, 1000), st.sampled_from([1, 2, 3]),
        st.booleans(), st.sampled_from([64, 8192]))
+@example(205, 0, 1, False, 64)   # a chunk length below the 256-row floor, more rows than it
 def test_design_summaries_equal_direct_computation(n, seed, d, inter, chunk):
     # numpy: co-moments of the explicitly built design, any chunk size
     rng = np.random.default_rng(seed)
