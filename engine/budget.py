@@ -107,13 +107,15 @@ class Budget:
     statistics_mb: float
     memory_mb: float
     seconds: float
-    rows_estimated: bool = False
+    rows_estimated: bool | str = False
     folds: int = 0
     repeats: int = 0
 
     def text(self) -> str:
         """One plain sentence with the figures."""
-        rows = f"about {self.rows:,} rows" if self.rows_estimated else f"{self.rows:,} rows"
+        how = (self.rows_estimated if isinstance(self.rows_estimated, str)
+               else "about" if self.rows_estimated else "")
+        rows = f"{how} {self.rows:,} rows".lstrip()
         return (f"{self.terms:,} terms at order {self.max_order} from {self.inputs:,} input"
                 f"{'s' if self.inputs != 1 else ''}"
                 f"{' with interactions' if self.interactions else ''}; {rows}; "
@@ -223,10 +225,11 @@ def _fitting_repeats(b: Budget, limits: Limits) -> int:
 
 
 def check_request(spec: SweepSpec, rows: int, n_inputs: int | None = None,
-                  limits: Limits | None = None, rows_estimated: bool = False) -> Budget:
+                  limits: Limits | None = None, rows_estimated: bool | str = False) -> Budget:
     """`estimate`, refused with the figures and what to do when over ``limits``.
 
-    ``rows_estimated``: ``rows`` comes from a sample of the file (said so in the text).
+    ``rows_estimated``: ``rows`` comes from a sample of the file (said so in the text:
+    "about", or the word given, e.g. "at least").
 
     Raises
     ------
@@ -236,7 +239,7 @@ def check_request(spec: SweepSpec, rows: int, n_inputs: int | None = None,
     limits = limits or Limits.from_environment()
     b = estimate(spec, rows, n_inputs)
     if rows_estimated:
-        b = replace(b, rows_estimated=True)
+        b = replace(b, rows_estimated=rows_estimated)
     fewer = ("Lower the highest order, choose fewer inputs"
              + (", switch off interaction terms" if b.interactions else ""))
     if b.terms > limits.max_terms:
