@@ -26,8 +26,13 @@ penalty settings): calibration demo (24 rows, 1 input) 9.2 s at 50 splits,
 19.6 s, 40.2 s and 175 s. Per extra split that is 0.04-0.07 s at 24 rows and
 0.10-0.18 s at 3,000 rows, nearly all after the sweep (the learning curve and
 the intervals took 10.8 s and 12.1 s of a 36 s run at 500 splits; the sweep
-1.9 s). The constants below take the upper end, so a refusal is not a close
-call: 0.05 s per split plus 4.5e-5 s per row and split.
+1.9 s). Those steps were then made faster; measured again on that code (load
+average 1.6-2.7): calibration demo 6.1 s at 50 splits and 20.5 s at 1,000,
+drifting-line demo 8.9 s and 44.8 s, i.e. 0.015 s per split at 24 rows and
+0.038 s at 3,000 rows, about 0.015 s plus 7.7e-6 s per row. The constants below
+round that up (0.02 s plus 1e-5 s per row and split) for a busy machine; when
+those steps change speed again, re-measure as above (``fitladder run DEMO
+--scheme repeated --repeats R`` for R = 10 and 200) and update them.
 """
 from __future__ import annotations
 
@@ -48,8 +53,8 @@ FLOPS_PER_SECOND = 2e9
 SECONDS_PER_ORDER_SPLIT = 2e-4
 SECONDS_PER_FIT = 2e-6
 #: Steps after the sweep that repeat per split (see the calibration in the module notes).
-SECONDS_PER_SPLIT_AFTER = 0.05
-SECONDS_PER_SPLIT_ROW_AFTER = 4.5e-5
+SECONDS_PER_SPLIT_AFTER = 0.02
+SECONDS_PER_SPLIT_ROW_AFTER = 1e-5
 #: From this many rows the steps after the sweep work on summaries (`engine.summaries`).
 SUMMARY_ROWS = 50_000
 #: Leave-one-out: the steps after the sweep use the hat matrix, not one refit per row;
@@ -107,13 +112,15 @@ class Budget:
     statistics_mb: float
     memory_mb: float
     seconds: float
-    rows_estimated: bool = False
+    rows_estimated: bool | str = False
     folds: int = 0
     repeats: int = 0
 
     def text(self) -> str:
         """One plain sentence with the figures."""
-        rows = f"about {self.rows:,} rows" if self.rows_estimated else f"{self.rows:,} rows"
+        how = (self.rows_estimated if isinstance(self.rows_estimated, str)
+               else "about" if self.rows_estimated else "")
+        rows = f"{how} {self.rows:,} rows".lstrip()
         return (f"{self.terms:,} terms at order {self.max_order} from {self.inputs:,} input"
                 f"{'s' if self.inputs != 1 else ''}"
                 f"{' with interactions' if self.interactions else ''}; {rows}; "
@@ -223,10 +230,11 @@ def _fitting_repeats(b: Budget, limits: Limits) -> int:
 
 
 def check_request(spec: SweepSpec, rows: int, n_inputs: int | None = None,
-                  limits: Limits | None = None, rows_estimated: bool = False) -> Budget:
+                  limits: Limits | None = None, rows_estimated: bool | str = False) -> Budget:
     """`estimate`, refused with the figures and what to do when over ``limits``.
 
-    ``rows_estimated``: ``rows`` comes from a sample of the file (said so in the text).
+    ``rows_estimated``: ``rows`` comes from a sample of the file (said so in the text:
+    "about", or the word given, e.g. "at least").
 
     Raises
     ------
@@ -236,7 +244,7 @@ def check_request(spec: SweepSpec, rows: int, n_inputs: int | None = None,
     limits = limits or Limits.from_environment()
     b = estimate(spec, rows, n_inputs)
     if rows_estimated:
-        b = replace(b, rows_estimated=True)
+        b = replace(b, rows_estimated=rows_estimated)
     fewer = ("Lower the highest order, choose fewer inputs"
              + (", switch off interaction terms" if b.interactions else ""))
     if b.terms > limits.max_terms:

@@ -456,7 +456,8 @@ def _load_for_request(args: argparse.Namespace, decimal, penalties, more: tuple,
         chosen = list(dict.fromkeys([args.target, *[c for c in roles if c], *inputs]))
         if inputs and set(chosen) <= set(names):
             _check_budget(args, tuple(inputs), penalties, more,
-                          rep.rows_estimate or rep.rows_read, estimated=True)
+                          rep.rows_estimate or rep.rows_read,
+                          estimated=True if rep.rows_estimate else "at least")
             loaded = _load(args.data, decimal=decimal, sheet=args.sheet, columns=chosen)
             progress(0.0, "Preparing the chosen columns")
             left: dict[str, str] = {}
@@ -652,7 +653,7 @@ def _out_folder(args: argparse.Namespace):
 
 
 def _check_budget(args: argparse.Namespace, inputs: tuple, penalties, more: tuple,
-                  rows: int, estimated: bool = False) -> None:
+                  rows: int, estimated: bool | str = False) -> None:
     """Refuse a request over the limits before any column is prepared; say its size.
 
     ``estimated``: ``rows`` is an estimate from a sample, before the table is read;

@@ -231,3 +231,11 @@ def test_choosing_every_column_is_the_whole_reading():
     every = L.load_table(raw, name="t.csv", columns=["y", "c000", "c001", "c002", "c003"])
     pd.testing.assert_frame_equal(every.frame, whole.frame)
     assert every.report.notes == whole.report.notes   # no note about unread columns
+
+
+def test_wide_workbook_refusal_counts_its_sample_rows_as_a_lower_bound(tmp_path, capsys):
+    path = tmp_path / "wide.xlsx"
+    _wide_frame(rows=30, columns=400).to_excel(path, index=False)
+    code = main(["run", str(path), "--target", "y", "--out", str(tmp_path / "pack")])
+    err = capsys.readouterr().err
+    assert code == 2 and "from 400 inputs" in err and "at least 30 rows" in err
