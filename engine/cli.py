@@ -523,8 +523,11 @@ def command_run(args: argparse.Namespace) -> int:
             return command_stream(args, folder)
     penalties = _penalty_grid(args)
     decimal = "," if args.decimal_comma else None
-    with _out_folder(args) as folder:
-        return _run_into(args, folder, penalties, decimal)
+    from .render import ChartRenderer
+
+    # vl-convert starts in a child process while the table is read and analysed
+    with _out_folder(args) as folder, ChartRenderer(fork=True) as renderer:
+        return _run_into(args, folder, penalties, decimal, renderer)
 
 
 def _out_folder(args: argparse.Namespace):
@@ -558,7 +561,7 @@ def _check_budget(args: argparse.Namespace, inputs: tuple, penalties, more: tupl
     print(f"{PROG}: request: {budget.text()}.", file=sys.stderr, flush=True)
 
 
-def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
+def _run_into(args: argparse.Namespace, folder, penalties, decimal, renderer=None) -> int:
     from .loading import prepare
     from .pack import build_pack
 
@@ -601,7 +604,7 @@ def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,
                         load_options={"decimal": decimal, "sheet": args.sheet},
                         source_path=str(Path(args.data).resolve()),
-                        model_file_in_background=True)
+                        model_file_in_background=True, renderer=renderer)
     _report(result)
     return EXIT_OK
 

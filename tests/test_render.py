@@ -102,7 +102,7 @@ def test_uncollected_batches_end_the_child_at_close():
     proc = subprocess.run([sys.executable, "-c", script], input=json.dumps(SPECS),
                           capture_output=True, text=True, env=env, cwd=REPO, timeout=120)
     assert proc.returncode == 0, proc.stderr
-    assert int(proc.stdout.strip()) == -9     # killed (SIGKILL), not waited for
+    assert int(proc.stdout.strip()) == -9     # ended (SIGKILL), not waited for
 
 
 @pytest.mark.parametrize("scale", [1, 2])
