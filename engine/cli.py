@@ -601,10 +601,11 @@ def _run_into(args: argparse.Namespace, folder, penalties, decimal, renderer=Non
                      extra_targets=more, families=args.families, rule=args.rule,
                      **({"l1_ratios": args.l1_ratios} if args.l1_ratios else {}))
     result = build_pack(folder, loaded=loaded, source_name=loaded.report.source_name,
+                        renderer=renderer,
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,
                         load_options={"decimal": decimal, "sheet": args.sheet},
                         source_path=str(Path(args.data).resolve()),
-                        model_file_in_background=True, renderer=renderer)
+                        model_file_in_background=True)
     _report(result)
     return EXIT_OK
 

@@ -1470,12 +1470,11 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                spec: SweepSpec, analysis: Analysis | None = None, checks: Any | None = None,
                compare_orders: Sequence[int | tuple[int, float]] | None = None,
                progress: Progress | None = None, load_options: dict | None = None,
-               source_path: str | None = None,
+               source_path: str | None = None, renderer: ChartRenderer | None = None,
                model_file_in_background: bool = False, analyses: list[Analysis] | None = None,
                targets: pd.DataFrame | None = None, models: dict | None = None,
                learning: Any | None = None, trust: tuple | None = None,
-               overwrite: bool = False, sure: tuple | None = None,
-               renderer: ChartRenderer | None = None) -> PackResult:
+               overwrite: bool = False, sure: tuple | None = None) -> PackResult:
     """Write the meeting pack for one request into ``out_dir``.
 
     Whatever the caller already computed (the dashboard: its sweep, checks,
@@ -1505,6 +1504,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         child processes while the rest of the pack is computed (for the command
         line; a server with threads writes the file in-process and draws in a
         thread).
+    renderer : an `engine.render.ChartRenderer` started earlier (the command line
+        starts it first thing, so vl-convert is ready when the charts are); one
+        is started here when None.
     models : ``{(order, penalty): FinalModel}`` fits on all rows already made
         (`engine.compare.fit_candidates`); cells missing from it are fitted.
     learning : a `LearningCurve` already made; used when it covers the orders
@@ -1516,9 +1518,6 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     sure : ``(HowSure or None, RowsOutlook or None, notes)`` as `sureness`
         returns it (or a future of it), already computed for this analysis;
         computed when None.
-    renderer : an `engine.render.ChartRenderer` started earlier (the command line
-        starts it first thing, so vl-convert is ready when the charts are); one
-        is started here when None.
 
     Returns
     -------
