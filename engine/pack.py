@@ -298,6 +298,9 @@ class _ModelFileWriter:
 
         self.model, self.path, self.proc = model, Path(path), None
         if background and threading.active_count() == 1 and "fork" in mp.get_all_start_methods():
+            # scikit-learn's core, which this process needs too (outer splits of the
+            # intervals), is imported once here rather than again in the child
+            import sklearn.base  # noqa: F401
             self.proc = mp.get_context("fork").Process(target=_save_in_child,
                                                        args=(model, self.path), daemon=True)
             self.proc.start()
