@@ -1594,6 +1594,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             lc = learning_curve(data, analysis.spec, orders=lc_orders)
         if progress:
             progress(0.66, "Intervals and the larger-table outlook")
+        drawing.append(renderer.submit({stem: _charts.for_print(ch, 75) for stem, ch in make_charts(
+            analysis, lc.table, None, None, cells, lc.note, stems=("learning_curve",)).items()}))
         if sure is not None and hasattr(sure, "result"):  # the page's background job
             try:
                 sure = sure.result()
@@ -1608,8 +1610,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         # the charts need nothing from the checks: draw them in the background meanwhile
         if progress:
             progress(0.70, "Drawing charts")
-        chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note,
-                                 band=band, stems=[s for s in CHART_FILES if s not in SWEEP_CHARTS])
+        chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note, band=band,
+                                 stems=[s for s in CHART_FILES
+                                        if s not in SWEEP_CHARTS and s != "learning_curve"])
         drawing.append(renderer.submit({stem: _charts.for_print(ch, 75)
                                         for stem, ch in chart_objs.items()}))
         if checks is None:
