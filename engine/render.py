@@ -117,6 +117,7 @@ class ChartRenderer:
 
     def __init__(self, fork: bool = False) -> None:
         self._proc = self._jobs = self._answers_out = None
+        self._pool: ThreadPoolExecutor | None = None
         self._answers: list[Drawn] = []
         self._sent = 0
         if fork and _may_fork():
@@ -139,11 +140,12 @@ class ChartRenderer:
 
     def submit(self, charts: dict[str, Any], scale: float = 2):
         """Start drawing ``charts`` (Altair charts or Vega-Lite dicts); returns a future."""
-        if self._proc is None:
-            pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fitladder-charts")
-            future: Future = pool.submit(
+        if self._proc is None:  # one thread draws the batches in turn
+            if self._pool is None:
+                self._pool = ThreadPoolExecutor(max_workers=1,
+                                                thread_name_prefix="fitladder-charts")
+            future: Future = self._pool.submit(
                 lambda: _render_all({s: _as_spec(c) for s, c in charts.items()}, scale))
-            pool.shutdown(wait=False)
             return future
         specs = {stem: _as_spec(ch) for stem, ch in charts.items()}
         index = self._sent
@@ -177,11 +179,14 @@ class ChartRenderer:
         self._jobs = self._answers_out = None
 
     def close(self) -> None:
-        """End the child and wait for it (nothing to do for a thread).
+        """End the child and wait for it; a thread finishes the batches sent and ends.
 
         The child holds no files, so it is simply ended; drawings nobody
         collected are not needed.
         """
+        if self._pool is not None:
+            self._pool.shutdown(wait=False)
+            self._pool = None
         if self._proc is not None:
             self._proc.kill()
         self._stop()

@@ -113,3 +113,27 @@ def test_render_spec_scales_the_png(scale):
     width = struct.unpack(">I", png[16:20])[0]   # IHDR width, ISO/IEC 15948 section 11.2.2
     base, _ = render.render_spec(SPECS["bars"], 1)
     assert width == scale * struct.unpack(">I", base[16:20])[0]
+
+
+def test_thread_batches_are_drawn_by_one_thread_in_turn():
+    import threading
+
+    render.warm()
+    seen = []
+    real = render._render_all
+
+    def recording(specs, scale):
+        seen.append((threading.current_thread().name, sorted(specs)))
+        return real(specs, scale)
+
+    render._render_all = recording
+    try:
+        r = render.ChartRenderer()
+        jobs = [r.submit({stem: spec}) for stem, spec in SPECS.items()]
+        r.close()                       # batches already sent are still drawn
+        drawn = [j.result() for j in jobs]
+    finally:
+        render._render_all = real
+    assert [sorted(d) for d in drawn] == [[s] for s in SPECS]
+    assert [names for _, names in seen] == [[s] for s in SPECS]      # in the order sent
+    assert len({name for name, _ in seen}) == 1                      # by one thread
