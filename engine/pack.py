@@ -1540,7 +1540,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     if spec.extra_targets and targets is None:
         return _build_target_packs(opened or out, data=data, spec=spec, analyses=analyses,
                                    progress=progress, loaded=loaded, source_name=source_name,
-                                   checks=checks, compare_orders=compare_orders,
+                                   checks=checks, compare_orders=compare_orders, renderer=renderer,
                                    load_options=load_options, source_path=source_path,
                                    model_file_in_background=model_file_in_background,
                                    overwrite=overwrite)
