@@ -137,3 +137,22 @@ def test_thread_batches_are_drawn_by_one_thread_in_turn():
     assert [sorted(d) for d in drawn] == [[s] for s in SPECS]
     assert [names for _, names in seen] == [[s] for s in SPECS]      # in the order sent
     assert len({name for name, _ in seen}) == 1                      # by one thread
+
+
+def test_command_line_draws_its_charts_in_a_child_process(tmp_path, demo_dir):
+    """`fitladder run` never starts vl-convert itself; the pack still holds every chart."""
+    out = tmp_path / "pack"
+    script = ("import sys\n"
+              "from engine.cli import main\n"
+              f"rc = main(['run', {str(demo_dir / 'calibration_curve.csv')!r}, '--target', "
+              f"'bath_temp_C', '--out', {str(out)!r}])\n"
+              "print('RESULT', rc, 'vl_convert' in sys.modules)\n")
+    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
+                          env=dict(os.environ, PYTHONPATH=str(REPO)), cwd=REPO, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.strip().splitlines()[-1] == "RESULT 0 False"
+    from engine.pack import CHART_FILES
+
+    for stem in CHART_FILES:
+        _check_drawing((out / f"{stem}.png").read_bytes(),
+                       (out / f"{stem}.svg").read_text(encoding="utf-8"))
