@@ -553,23 +553,39 @@ def roomy(chart, width: int = 760, height: int = 380):
     return chart
 
 
-def chart_block(chart, stem: str, tables: list[tuple[pd.DataFrame, str]] = ()) -> None:
+def chart_block(chart, stem: str, tables: list[tuple[pd.DataFrame, str]] = ()
+                ) -> Callable[[Any], None]:
     """A chart with its PNG and SVG downloads (rendered only when clicked) and table CSVs.
 
     ``stem`` is a key of `engine.labels.CHARTS` (the pack's file names are the
     same); tables are ``(frame, stem)`` with stems from `engine.labels.TABLES`.
+    Returns a function that replaces the drawn chart (and what its downloads
+    render) with a fuller one later in the same run.
     """
     what = CHARTS.get(stem) or PATH_CHARTS[stem]
-    st.altair_chart(chart, theme=None, width="content")
+    shown = {"chart": chart}
+    slot = st.empty()
+    slot.altair_chart(chart, theme=None, width="content")
     with downloads_row():
-        st.download_button(f"{what} (PNG)", data=lambda: C.chart_to_png(chart),
+        st.download_button(f"{what} (PNG)", data=lambda: C.chart_to_png(shown["chart"]),
                            file_name=f"{stem}.png", mime="image/png", key=f"png_{stem}",
                            icon=":material/image:", on_click="ignore")
-        st.download_button(f"{what} (SVG)", data=lambda: C.chart_to_svg(chart),
+        st.download_button(f"{what} (SVG)", data=lambda: C.chart_to_svg(shown["chart"]),
                            file_name=f"{stem}.svg", mime="image/svg+xml", key=f"svg_{stem}",
                            icon=":material/draw:", on_click="ignore")
         for frame, tstem in tables:
             table_download(frame, tstem)
+
+    def replace(fuller) -> None:
+        shown["chart"] = fuller
+        slot.altair_chart(fuller, theme=None, width="content")
+
+    return replace
+
+
+def later(fn: Callable[[], Any]) -> None:
+    """Run ``fn`` at the end of this page run, after the warnings panel is filled."""
+    st.session_state.setdefault("_later", []).append(fn)
 
 
 def choose(label: str, options: list, default: Any, key: str, *, slider: bool = False,
@@ -917,6 +933,7 @@ def pack_request(loaded, source_name: str, data, analysis, spec: SweepSpec,
                 analysis=analysis, checks=pending, compare_orders=list(cells),
                 models=fits, learning=lc, trust=(nested, stab),
                 sure=run_once(("sureness", analysis_key), sureness, work_data, view),
+                error_unit=ss.get("metric", "mse"),
                 load_options={"decimal": "," if getattr(loaded.report, "decimal", ".") == ","
                               else None, "sheet": None})
 
@@ -940,7 +957,7 @@ def pack_zip(request: dict) -> bytes:
 
     key = ("pack", repr(request["spec"].to_dict()), request["source_name"],
            tuple(request["compare_orders"]), getattr(request["loaded"].report, "sha256", ""),
-           tuple(id(t) for t in request["trust"]))
+           tuple(id(t) for t in request["trust"]), request.get("error_unit"))
     try:
         return run_here(key, build).result()
     except InputProblem as exc:
@@ -1051,11 +1068,22 @@ def tab_compare(analysis_key: str, data, analysis, target: str) -> list[int]:
     cells = compare_cells(analysis)
     models = wait_for(start_fits(analysis_key, data, analysis, cells),
                       "Fitting the chosen orders on all rows…")
-    band = guarded("drawing the prediction band", band_for,
-                   wait_for(run_once(("sureness", analysis_key), sureness, data, analysis),
-                            "Computing prediction intervals…"), data, analysis, models)
-    chart = roomy(C.comparison_chart(data, models, target, band=band), 800, 420)
-    chart_block(chart, "order_comparison")
+    # the prediction band comes from the intervals, which may still be running: the
+    # chart is drawn at once without it and redrawn with it when they are done
+    sure_job = run_once(("sureness", analysis_key), sureness, data, analysis)
+
+    def with_band():
+        band = guarded("drawing the prediction band", band_for,
+                       wait_for(sure_job, "Computing prediction intervals…"), data, analysis,
+                       models)
+        return roomy(C.comparison_chart(data, models, target, band=band), 800, 420)
+
+    if sure_job.done():
+        chart_block(with_band(), "order_comparison")
+    else:
+        replace = chart_block(roomy(C.comparison_chart(data, models, target), 800, 420),
+                              "order_comparison")
+        later(lambda: replace(with_band()))
     st.caption("Fitted on all rows and drawn in-sample: a model that reproduces every row "
                "here can still fail on rows it never saw; the validation curve is the judge.")
     rows = []
@@ -1168,6 +1196,7 @@ def sidebar_data() -> tuple[str, tuple[str, bytes] | None]:
 def main() -> None:
     st.set_page_config(page_title="Fitladder", page_icon=":material/stairs:", layout="wide")
     st.session_state["_marks"] = {"start": time.perf_counter()}
+    st.session_state["_later"] = []
     st.markdown(
         "<style>div[data-testid='stMetricValue']{font-size:1.45rem;}</style>",
         unsafe_allow_html=True)
@@ -1301,6 +1330,10 @@ def main() -> None:
             guarded("showing how sure", how_sure_panel,
                     wait_for(sure_job, "Computing intervals and the larger-table outlook…"),
                     table_download)
+    for fn in st.session_state.get("_later", []):
+        guarded("finishing the charts", fn)
+    st.session_state["_later"] = []
+    mark("done")
     with st.sidebar:
         st.subheader("5 · Meeting pack")
         request = guarded("preparing the pack", pack_request, loaded, name, data_all, full,

@@ -35,6 +35,8 @@ def use_model_section(model) -> None:
                        for name, (lo, hi) in u["input_range"].items())
     st.markdown("Valid for inputs inside the range it was fitted on: " + escape_text(ranges)
                 + ". Predictions outside it were not checked.")
+    if u.get("text_note"):
+        st.caption(escape_text(u["text_note"]))
     st.download_button("Model file (model.skops)", data=lambda: model_file_bytes(model),
                        file_name="model.skops", mime="application/octet-stream",
                        key="model_download", icon=":material/download:", on_click="ignore")

@@ -10,7 +10,7 @@ import pandas as pd
 from .design import PolynomialBasis
 from .errors import InputProblem
 from .final_fit import FinalModel, fit_final
-from .moments import combine_batch
+from .moments import Moments, combine_batch
 from .labels import penalty_text
 from .penalty_range import MAX_EXTENSIONS, extend, penalty_edges, range_of
 from .recommend import Recommendation, recommend
@@ -19,7 +19,8 @@ from .spec import SchemeSpec, SweepSpec, default_penalties
 from .ladder import RUNG_COLUMNS
 from .threads import one_thread
 from .sweep import (Progress, SweepResult, _fit_penalties, _sse, add_row_errors, check_design_size,
-                    piece_statistics, run_sweep)
+                    piece_statistics, run_sweep, split_summaries)
+from .summaries import LARGE_ROWS
 
 
 class DataLike(Protocol):
@@ -103,6 +104,40 @@ class Analysis:
     rankings: np.ndarray | None = None
     request: SweepSpec | None = None
     penalty_edges: list = field(default_factory=list)
+    pieces: list | None = field(default=None, repr=False)
+    learning_pieces: "LearningPieces | None" = field(default=None, repr=False)
+
+    def all_rows_summary(self):
+        """Summaries of every row at the sweep's full design, merged from the sweep's
+        piece summaries (no pass over the rows); None when they do not cover every row
+        or the analysis has rung axes.
+
+        Returns
+        -------
+        `engine.summaries.RowSummary` or None
+        """
+        if not self.pieces or self.model_spec is not None or not self.plan.rounds:
+            return None
+        from .summaries import RowSummary
+        if np.any(self.plan.rounds[0].pieces < 0):
+            return None
+        st = self.pieces[0]
+        n, m, M = combine_batch(st, np.ones((1, st.n_sets), dtype=np.int8))
+        return RowSummary(self.basis, float(n[0]), m[0], M[0])
+
+    def fold_summaries(self):
+        """Training summaries of the first round's splits at the sweep's full design, from
+        the sweep's piece summaries (as `engine.summaries.fold_summaries` forms them in a
+        pass over the rows); None without them."""
+        if not self.pieces or self.model_spec is not None or not self.plan.rounds:
+            return None
+        from .summaries import FoldSummaries
+        plan = self.plan
+        js = [j for r, j in plan.split_round if r == 0]
+        splits = [(np.asarray(plan.train_sets[i]), np.asarray(plan.valid_sets[i]))
+                  for i, (r, _) in enumerate(plan.split_round) if r == 0]
+        n_t, m_t, M_t = combine_batch(self.pieces[0], plan.rounds[0].train[js])
+        return FoldSummaries(self.basis, splits, n_t, m_t, M_t)
 
     @property
     def target(self) -> str:
@@ -277,9 +312,20 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
         _check_data(data, spec)
         basis = make_basis(data, spec)
         plan = plan_for(data, spec.scheme, spec.seed)
+        shared = None
+        if len(data.y) >= LARGE_ROWS and not plan.loo:
+            # large tables: one pass per round serves the sweep and the learning curve
+            shared = sweep_learning_pieces(basis, data, plan, spec, progress)
         with one_thread():   # many small factorisations; the row pass picks its own
-            res = run_sweep(data.X, data.y, basis, plan, spec.order_list(), spec.penalties,
-                            progress, families=spec.family_pairs())
+            if shared is None:
+                res = run_sweep(data.X, data.y, basis, plan, spec.order_list(), spec.penalties,
+                                progress, families=spec.family_pairs())
+            else:
+                res = run_sweep(data.X, data.y, basis, plan, spec.order_list(), spec.penalties,
+                                progress, families=spec.family_pairs(),
+                                statistics=split_summaries(shared[0], plan))
+                res.pieces = shared[0]
+            pieces = res.pieces
             table, rec = _table_and_pick(res, spec)
             notes: list[str] = []
             edges = _edges(res, rec)
@@ -308,7 +354,8 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
         ran = replace(spec, penalties=_grid(res))
     return Analysis(spec=ran, sweep=res, validation=table, recommendation=rec, basis=basis,
                     plan=plan, n_rows=int(len(data.y)), notes=list(res.notes) + notes,
-                    request=spec if ran != spec else None, penalty_edges=edges)
+                    request=spec if ran != spec else None, penalty_edges=edges,
+                    pieces=pieces, learning_pieces=shared[1] if shared else None)
 
 
 def _grid(res: SweepResult) -> tuple[float, ...]:
@@ -387,9 +434,31 @@ class LearningCurve:
     table: pd.DataFrame
     note: str = ""
 
+    def covers(self, orders, penalties) -> bool:
+        """True when every order and every penalty given has rows here."""
+        have = np.asarray(sorted(set(self.table["penalty"].astype(float))), float)
+        pens = np.asarray(list(penalties), float)
+        return (set(int(q) for q in orders) <= set(int(q) for q in self.table["order"])
+                and all(np.isclose(have, a, rtol=1e-12, atol=0).any() for a in pens))
+
+    def restrict(self, orders=None, penalties=None) -> "LearningCurve":
+        """The rows of some orders and penalties (each row is computed on its own, so
+        the values are those of a curve run for just these)."""
+        def keep(t: pd.DataFrame) -> pd.DataFrame:
+            sel = np.ones(len(t), dtype=bool)
+            if orders is not None:
+                sel &= t["order"].isin([int(q) for q in orders]).to_numpy()
+            if penalties is not None:
+                pv = t["penalty"].to_numpy(float)
+                sel &= np.isclose(pv[:, None], np.asarray(list(penalties), float)[None, :],
+                                  rtol=1e-12, atol=0).any(axis=1)
+            return t[sel].reset_index(drop=True)
+        return LearningCurve(folds=keep(self.folds), table=keep(self.table), note=self.note)
+
 
 def learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None = None,
-                   plan: FoldPlan | None = None) -> LearningCurve:
+                   plan: FoldPlan | None = None,
+                   pieces: "LearningPieces | None" = None) -> LearningCurve:
     """Train and validation error as the training set grows, for every penalty.
 
     Within each split the first ``size`` training rows (in row order, as
@@ -405,12 +474,68 @@ def learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None = N
     orders : orders to include (default: all of the spec).
     plan : splits to use (default: the spec's scheme; leave-one-out is replaced
         by shuffled 10-fold, as a learning curve per left-out row is not useful).
+    pieces : the (round piece, row block) summaries the sweep of this data and
+        request already formed (`Analysis.learning_pieces`); used, with no pass
+        over the rows, when they were made for the same scheme, seed, learning
+        sizes, row count and inputs, and reach the highest order asked for.
     """
     with one_thread():
-        return _learning_curve(data, spec, orders, plan)
+        return _learning_curve(data, spec, orders, plan, pieces)
 
 
-def _learning_statistics(basis: PolynomialBasis, data: DataLike, plan: FoldPlan, sizes):
+def _learning_blocks(plan: FoldPlan, r: int, sizes, n: int):
+    """Row blocks of round ``r`` for the learning curve: bounded by every split's cut rows.
+
+    Returns ``(members, cut_rows, B, nb)``: the round's splits, per split
+    ``(cuts, boundary rows)``, the block bounds and the number of blocks.
+    """
+    members = [i for i, (rr, _) in enumerate(plan.split_round) if rr == r]
+    cut_rows = {}
+    bounds = {0, n}
+    for i in members:
+        tr = plan.train_sets[i]
+        cuts = [min(int(c), len(tr)) for c in sizes]
+        b = [int(tr[c - 1]) + 1 if c > 0 else 0 for c in cuts]
+        cut_rows[i] = (cuts, b)
+        bounds.update(b)
+    B = np.array(sorted(bounds))
+    return members, cut_rows, B, len(B) - 1
+
+
+def _learning_labels(plan: FoldPlan, r: int, B: np.ndarray, n: int) -> np.ndarray:
+    """Piece of every row for round ``r``'s learning curve: (round piece, row block)."""
+    rnd = plan.rounds[r]
+    nb = len(B) - 1
+    block = np.searchsorted(B, np.arange(n), side="right") - 1
+    return np.where(rnd.pieces >= 0, rnd.pieces * nb + block, -1)
+
+
+#: Most bytes of (round piece x row block) summaries held for a learning curve.
+LEARNING_PIECE_BYTES = 1.5e9
+
+
+@dataclass
+class LearningPieces:
+    """Summaries of every (round piece, row block) of a plan at a basis's full design,
+    formed by the sweep's pass so that the learning curve needs no pass of its own.
+
+    ``key`` records what they were made for: (scheme, seed, learning sizes, rows,
+    highest order, interactions).
+    """
+
+    key: tuple
+    stats: list   # per round: `engine.moments.Moments`
+    basis: PolynomialBasis
+    plan: FoldPlan
+
+
+def learning_key(spec: SweepSpec, n: int, basis: PolynomialBasis) -> tuple:
+    return (spec.scheme, int(spec.seed), tuple(spec.learning_sizes), int(n),
+            int(basis.max_order), bool(basis.interactions), tuple(basis.input_names))
+
+
+def _learning_statistics(basis: PolynomialBasis, data: DataLike, plan: FoldPlan, sizes,
+                         pieces: list | None = None):
     """Per split: training summaries of the first ``size`` training rows (row order)
     for every size, and the validation summary.
 
@@ -418,34 +543,25 @@ def _learning_statistics(basis: PolynomialBasis, data: DataLike, plan: FoldPlan,
     (round piece, row block), the blocks bounded by every split's cut rows, so
     each prefix of each split's training rows is a union of pieces. Falls back
     to one pass per split when those pieces would not fit in memory.
+    ``pieces``: per round, those piece summaries already formed (no pass).
 
     Yields ``(split, cuts, (n_t, m_t, M_t), (n_v, m_v, M_v))``.
     """
     n = len(data.y)
     q = basis.n_terms + 1
-    by_round: dict[int, list[int]] = {}
-    for i, (r, _) in enumerate(plan.split_round):
-        by_round.setdefault(r, []).append(i)
-    for r, members in by_round.items():
+    for r in range(len(plan.rounds)):
         rnd = plan.rounds[r]
-        cut_rows = {}
-        bounds = {0, n}
-        for i in members:
-            tr = plan.train_sets[i]
-            cuts = [min(int(c), len(tr)) for c in sizes]
-            b = [int(tr[c - 1]) + 1 if c > 0 else 0 for c in cuts]
-            cut_rows[i] = (cuts, b)
-            bounds.update(b)
-        B = np.array(sorted(bounds))
-        nb = len(B) - 1
+        members, cut_rows, B, nb = _learning_blocks(plan, r, sizes, n)
+        if not members:
+            continue
         L = rnd.n_pieces * nb
-        if L * q * q * 8 > 1.5e9:      # too many pieces for memory: one pass per split
+        st = pieces[r] if pieces is not None else None
+        if st is None and L * q * q * 8 > LEARNING_PIECE_BYTES:   # one pass per split
             for i in members:
                 yield (i, *_split_learning_statistics(basis, data, plan, i, sizes))
             continue
-        block = np.searchsorted(B, np.arange(n), side="right") - 1
-        labels = np.where(rnd.pieces >= 0, rnd.pieces * nb + block, -1)
-        st = piece_statistics(basis, data.X, data.y, labels, L)
+        if st is None:
+            st = piece_statistics(basis, data.X, data.y, _learning_labels(plan, r, B, n), L)
         for i in members:
             j = plan.split_round[i][1]
             cuts, b = cut_rows[i]
@@ -454,6 +570,35 @@ def _learning_statistics(basis: PolynomialBasis, data: DataLike, plan: FoldPlan,
                             for bz in b])
             valid = np.outer(rnd.valid[j] > 0, np.ones(nb, bool)).ravel()[None, :]
             yield i, cuts, combine_batch(st, sel), combine_batch(st, valid)
+
+
+def sweep_learning_pieces(basis: PolynomialBasis, data: DataLike, plan: FoldPlan,
+                          spec: SweepSpec, progress=None):
+    """One pass per round giving both the sweep's piece summaries and the learning curve's.
+
+    Rows are summarised by (round piece, row block) as `_learning_statistics`
+    cuts them; merging the blocks of each piece gives the sweep's per-piece
+    summaries exactly as its own pass would (up to rounding).
+
+    Returns ``(sweep pieces per round, LearningPieces)``; None when a round
+    would need more than `LEARNING_PIECE_BYTES` of summaries.
+    """
+    n = len(data.y)
+    q = basis.n_terms + 1
+    sizes = train_sizes(spec.learning_sizes, len(plan.train_sets[0]))
+    fine, coarse = [], []
+    for r, rnd in enumerate(plan.rounds):
+        _, _, B, nb = _learning_blocks(plan, r, sizes, n)
+        L = rnd.n_pieces * nb
+        if L * q * q * 8 > LEARNING_PIECE_BYTES:
+            return None
+        st = piece_statistics(basis, data.X, data.y, _learning_labels(plan, r, B, n), L)
+        sel = np.kron(np.eye(rnd.n_pieces, dtype=np.int8), np.ones((1, nb), dtype=np.int8))
+        coarse.append(Moments(*combine_batch(st, sel)))
+        fine.append(st)
+        if progress:
+            progress(0.8 * (r + 1) / len(plan.rounds), "Summarising rows")
+    return coarse, LearningPieces(learning_key(spec, n, basis), fine, basis, plan)
 
 
 def _split_learning_statistics(basis, data, plan, i, sizes):
@@ -474,18 +619,26 @@ def _split_learning_statistics(basis, data, plan, i, sizes):
 
 
 def _learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None,
-                    plan: FoldPlan | None) -> LearningCurve:
+                    plan: FoldPlan | None, pieces=None) -> LearningCurve:
     spec.validate()
     _check_data(data, spec)
     note = ""
+    orders = spec.order_list() if orders is None else sorted(set(int(o) for o in orders))
+    basis = None
+    if (pieces is not None and plan is None and spec.scheme.kind != "loo"
+            and max(orders) <= pieces.basis.max_order
+            and pieces.key == learning_key(spec, len(data.y), pieces.basis)):
+        plan, basis = pieces.plan, pieces.basis     # the sweep's pass (no pass here)
+    else:
+        pieces = None
     if plan is None:
         scheme = spec.scheme
         if scheme.kind == "loo":
             scheme = replace(scheme, kind="kfold", folds=min(10, len(data.y)))
             note = "Learning curve on shuffled 10-fold splits (the sweep used leave-one-out)."
         plan = plan_for(data, scheme, spec.seed)
-    orders = spec.order_list() if orders is None else sorted(set(int(o) for o in orders))
-    basis = PolynomialBasis.fit(data.X, spec.inputs, max(orders), spec.interactions)
+    if basis is None:
+        basis = PolynomialBasis.fit(data.X, spec.inputs, max(orders), spec.interactions)
     check_design_size(basis)
     A, a0 = basis.raw_map()
     pen = np.asarray(spec.penalties, float)
@@ -493,8 +646,8 @@ def _learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None,
         pen = np.asarray(data_grid(data, spec, basis, orders), float)
     sizes = train_sizes(spec.learning_sizes, len(plan.train_sets[0]))
     rows = []
-    for s, cuts, (n_t, m_t, M_t), (n_v, m_v, M_v) in _learning_statistics(basis, data, plan,
-                                                                           sizes):
+    for s, cuts, (n_t, m_t, M_t), (n_v, m_v, M_v) in _learning_statistics(
+            basis, data, plan, sizes, pieces.stats if pieces is not None else None):
         last = M_t.shape[1] - 1
         for q in orders:
             p = basis.n_terms_at(q)

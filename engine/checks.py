@@ -579,10 +579,21 @@ def sorted_by_input(data: DataLike, analysis: Analysis) -> str | None:
     if X.shape[0] < 3:
         return None
     for j, name in enumerate(analysis.spec.inputs):
-        d = np.diff(X[:, j])
-        if np.ptp(X[:, j]) > 0 and (np.all(d >= 0) or np.all(d <= 0)):
+        if not _monotone(X[:, j]):
+            continue
+        if np.ptp(X[:, j]) > 0:
             return str(name)
     return None
+
+
+def _monotone(v: np.ndarray) -> bool:
+    """True when ``v`` never falls or never rises. Its first rows are screened first: a
+    column that goes both ways there goes both ways over all rows."""
+    head = np.diff(v[:257])
+    if not (np.all(head >= 0) or np.all(head <= 0)):
+        return False
+    d = np.diff(v)
+    return bool(np.all(d >= 0) or np.all(d <= 0))
 
 
 _TIME_SCHEMES = ("blocked", "holdout")
@@ -684,10 +695,9 @@ def sorted_by_target(data: DataLike, analysis: Analysis) -> str | None:
     if _has_order(data, analysis):
         return None
     y = np.asarray(data.y, float).ravel()
-    if y.size < 3 or not np.ptp(y) > 0:
+    if y.size < 3 or not _monotone(y) or not np.ptp(y) > 0:
         return None
-    d = np.diff(y)
-    return str(analysis.spec.target) if (np.all(d >= 0) or np.all(d <= 0)) else None
+    return str(analysis.spec.target)
 
 
 def suggested_gap(r: float, n: int, folds: int) -> int:
@@ -705,7 +715,7 @@ def suggested_gap(r: float, n: int, folds: int) -> int:
 # ---------------------------------------------------------------------------
 def check_serial_dependence(data: DataLike, analysis: Analysis,
                             final_model: FinalModel | None = None,
-                            basis: RowOrder | None = None, fold_stats=None
+                            basis: RowOrder | None = None, fold_stats=None, oof=None
                             ) -> tuple[Finding | None, pd.DataFrame, pd.DataFrame | None]:
     """Are neighbouring rows dependent, and does the scheme account for it?
 
@@ -736,8 +746,8 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
         final_model = fit_final(X, y, spec.inputs, rec.order, rec.penalty, spec.interactions,
                                 target=spec.target, family=rec.family, l1_ratio=rec.l1_ratio)
     r_target = lag1_autocorrelation(y)
-    rows, oof = out_of_fold_residuals(data, analysis, rec.order, rec.penalty,
-                                      fold_stats=fold_stats)
+    rows, oof = oof if oof is not None else out_of_fold_residuals(
+        data, analysis, rec.order, rec.penalty, fold_stats=fold_stats)
     contiguous = rows.size > 2 and np.all(np.diff(rows) == 1)
     # residual autocorrelation over consecutive validated rows only
     if contiguous or rows.size == n:
@@ -1012,8 +1022,8 @@ def probe_points(X: np.ndarray) -> pd.DataFrame:
     """
     X = np.asarray(X, float)
     lo, hi = X.min(axis=0), X.max(axis=0)
-    med = np.median(X, axis=0)
-    p1, p99 = np.percentile(X, 1, axis=0), np.percentile(X, 99, axis=0)
+    # one partial sort per column gives the median and both percentiles
+    med, p1, p99 = (np.median(X, axis=0), *np.percentile(X, [1, 99], axis=0))
     rows = []
     for j in range(X.shape[1]):
         span = hi[j] - lo[j] if hi[j] > lo[j] else max(abs(lo[j]), 1.0)
@@ -1467,7 +1477,8 @@ def default_candidates(analysis: Analysis) -> list[tuple[int, float]]:
 def run_checks(data: DataLike, analysis: Analysis,
                candidates: list[tuple[int, float]] | None = None,
                progress: Progress | None = None,
-               models: dict[tuple[int, float], FinalModel] | None = None) -> CheckReport:
+               models: dict[tuple[int, float], FinalModel] | None = None,
+               oof: tuple | None = None) -> CheckReport:
     """Run every warning-sign check on a finished analysis.
 
     Parameters
@@ -1481,6 +1492,9 @@ def run_checks(data: DataLike, analysis: Analysis,
     progress : called as ``progress(fraction_done, message)``.
     models : the candidates already fitted on all rows (`engine.compare.fit_candidates`),
         so that they are fitted once; missing ones are fitted here.
+    oof : ``(rows, residuals)``, the recommended cell's (ridge) out-of-fold residuals on
+        the first round of splits already formed (`engine.intervals.PredictionIntervals.oof`);
+        used for a large table instead of a pass of its own.
 
     Returns
     -------
@@ -1490,11 +1504,11 @@ def run_checks(data: DataLike, analysis: Analysis,
         train/validation gap; tables for each.
     """
     with single_threaded_blas():
-        return _run_checks(data, analysis, candidates, progress, models)
+        return _run_checks(data, analysis, candidates, progress, models, oof)
 
 
 def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
-                fitted=None) -> CheckReport:
+                fitted=None, oof=None) -> CheckReport:
     def tick(f: float, msg: str) -> None:
         if progress:
             progress(f, msg)
@@ -1516,9 +1530,11 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
         # large tables: one pass gives every split's training summaries, shared by the
         # residual and leverage checks (no refits on the rows)
         top = max([q for q, _ in cells] + [int(rec.order)])
-        design = PolynomialBasis.fit(np.asarray(data.X, float), spec.inputs, top,
-                                     spec.interactions)
-        fold_stats = fold_summaries(data.X, data.y, design, analysis.plan)
+        fold_stats = analysis.fold_summaries()      # the sweep's pieces, when it kept them
+        if fold_stats is None or fold_stats.basis.max_order < top:
+            design = PolynomialBasis.fit(np.asarray(data.X, float), spec.inputs, top,
+                                         spec.interactions)
+            fold_stats = fold_summaries(data.X, data.y, design, analysis.plan)
     rec_model = models.get(rec_key) or fit_candidates(data, spec, [rec_key], **fam)[rec_key]
     report = CheckReport()
     summary = []
@@ -1538,8 +1554,9 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
                     "monotone function)"))
 
     tick(0.15, "Checking for dependence between neighbouring rows")
-    f, t_serial, comparison = check_serial_dependence(data, analysis, rec_model, basis,
-                                                      fold_stats=fold_stats)
+    f, t_serial, comparison = check_serial_dependence(
+        data, analysis, rec_model, basis, fold_stats=fold_stats,
+        oof=oof if fold_stats is not None and rec.family == "ridge" else None)
     report.tables["serial"] = t_serial
     if comparison is not None:
         report.tables["scheme_comparison"] = comparison

@@ -23,6 +23,7 @@ from typing import Sequence
 
 from .errors import InputProblem
 from .lagged import LagSpec
+from .labels import DEFAULT_ERROR_UNIT, ERROR_UNITS
 from .spec import (DEFAULT_FOLDS, DEFAULT_GAP, DEFAULT_HOLDOUT_FRACTION, DEFAULT_MAX_ORDER,
                    DEFAULT_PENALTY_COUNT, DEFAULT_PENALTY_HIGH, DEFAULT_PENALTY_LOW,
                    DEFAULT_REPEATS, DEFAULT_SEED, SCHEME_HELP, SCHEMES, SELECTION_RULES, SchemeSpec, SweepSpec,
@@ -278,6 +279,10 @@ def build_parser() -> argparse.ArgumentParser:
                           "from the best cell on the same validation rows, within one standard "
                           "error of those differences) or unpaired (the classic "
                           "one-standard-error rule on each cell's own spread)")
+    run.add_argument("--errors", choices=tuple(ERROR_UNITS), default=DEFAULT_ERROR_UNIT,
+                     help="unit of every error in the pack's headline and in the line printed "
+                          "at the end: mse (mean squared error) or rmse (its root, in the "
+                          "target's units); the page's 'Errors shown as'")
     run.add_argument("--seed", type=int, default=DEFAULT_SEED, metavar="S",
                      help="seed for every shuffle")
     run.add_argument("--decimal-comma", action="store_true",
@@ -434,11 +439,14 @@ def _report(result, stream=None) -> None:
     r = s["recommended"]
     fam = {"elasticnet": "elastic-net"}.get(r.get("family", "ridge"), r.get("family", "ridge"))
     pen = "no penalty" if r["penalty"] == 0 else f"{fam} penalty {r['penalty']:.3g}"
-    rmse = r.get("validation_rmse")
     from .labels import rung_text
     more = rung_text(r.get("lags"), r.get("target_lags"), r.get("inputs_used"))
-    print(f"Recommended: order {r['order']}, {pen}{more} (validation RMSE "
-          f"{rmse:.4g} in units of {s['roles']['target']}; "
+    h = s.get("headline") or {"unit": "rmse", "validation_error": r.get("validation_rmse")}
+    err = (f"validation RMSE {h['validation_error']:.4g} in units of {s['roles']['target']}"
+           if h["unit"] == "rmse" else
+           f"validation MSE {h['validation_error']:.4g} in squared units of "
+           f"{s['roles']['target']}")
+    print(f"Recommended: order {r['order']}, {pen}{more} ({err}; "
           f"{len(s['warnings'])} warning{'s' if len(s['warnings']) != 1 else ''}).",
           file=stream)
     for t in s.get("targets") or []:
@@ -459,8 +467,6 @@ def _prepare(frame, targets: tuple[str, ...], inputs, **roles):
 
 def command_stream(args: argparse.Namespace, folder=None) -> int:
     """``fitladder run --stream`` / ``--cluster``: summaries without holding the table."""
-    from .analysis import ArrayData
-    from .pack import build_pack
     from . import streaming
 
     if args.scheme != "kfold":
@@ -493,28 +499,84 @@ def command_stream(args: argparse.Namespace, folder=None) -> int:
                      orders=args.orders, interactions=args.interactions, penalties=penalties,
                      scheme=scheme, seed=args.seed)
     spec.validate()
-    if args.cluster:
-        stats = cluster.cluster_statistics(args.cluster, args.data, args.target, list(inputs),
-                                           spec, sample_rows=args.sample_rows,
-                                           progress=progress)
-    else:
-        stats = streaming.stream_statistics(args.data, args.target, list(inputs),
-                                            max(spec.order_list()), spec.interactions,
-                                            args.folds, args.seed, sample_rows=args.sample_rows,
-                                            progress=progress)
-    analysis = streaming.analyse_moments(stats.folds, stats.basis, spec, stats.rows_used,
-                                         stats.sample_folds, stats.notes)
-    data = ArrayData(stats.sample_X, stats.sample_y, tuple(inputs), args.target)
-    where = args.data if "://" in str(args.data) else str(Path(args.data).resolve())
-    result = build_pack(folder if folder is not None else args.out, loaded=None,
-                        source_name=Path(str(args.data)).name,
-                        data=data, spec=spec, analysis=analysis, compare_orders=args.compare,
-                        progress=progress,
-                        load_options={"stream": True, "cluster": args.cluster,
-                                      "sample_rows": args.sample_rows},
-                        source_path=where, model_file_in_background=not args.cluster)
+    result = _stream_pack(folder if folder is not None else args.out, str(args.data), spec,
+                          sample_rows=args.sample_rows, cluster=args.cluster,
+                          compare=args.compare, progress=progress,
+                          error_unit=args.errors)
     _report(result)
     return EXIT_OK
+
+
+class _StreamedSource:
+    """What `engine.pack.build_pack` reads of a streamed source: its fingerprint and counts."""
+
+    def __init__(self, name: str, file_format: str, rows_read: int, fp, notes: list[str]):
+        from .loading import LoadReport
+
+        self.report = LoadReport(source_name=name, file_format=file_format, delimiter=None,
+                                 decimal=".", rows_read=rows_read, columns_read=0,
+                                 numeric_columns=[], ignored_columns=[], ignored_reasons={},
+                                 sha256=fp.sha256 if fp else None,
+                                 size_bytes=fp.size_bytes if fp else None, notes=notes)
+
+
+def _stream_pack(out, source: str, spec: SweepSpec, *, sample_rows: int, cluster: str | None,
+                 compare, progress, expect_sha256: str | None = None,
+                 error_unit: str | None = None):
+    """Stream (or map over a Dask cluster) ``source`` and write the pack of ``spec``.
+
+    A local file or folder is fingerprinted (SHA-256) in a background thread
+    while its rows are read, so the record ties the pack to the exact bytes
+    and ``fitladder rerun`` can check them; a URL read by a cluster is not
+    fingerprinted (the record says so). With ``expect_sha256`` (a re-run) a
+    source whose bytes changed while they were read is refused.
+    """
+    from .analysis import ArrayData
+    from .fingerprint import fingerprint_in_background
+    from .pack import build_pack
+    from . import streaming
+
+    local = "://" not in source
+    waiting = fingerprint_in_background(source) if local else None
+    inputs = list(spec.inputs)
+    if cluster:
+        from . import cluster as dask_cluster
+
+        stats = dask_cluster.cluster_statistics(cluster, source, spec.target, inputs, spec,
+                                                sample_rows=sample_rows, progress=progress)
+    else:
+        stats = streaming.stream_statistics(source, spec.target, inputs,
+                                            max(spec.order_list()), spec.interactions,
+                                            spec.scheme.folds, spec.seed,
+                                            sample_rows=sample_rows, progress=progress)
+    analysis = streaming.analyse_moments(stats.folds, stats.basis, spec, stats.rows_used,
+                                         stats.sample_folds, stats.notes)
+    data = ArrayData(stats.sample_X, stats.sample_y, tuple(inputs), spec.target)
+    fp = waiting() if waiting else None
+    if expect_sha256 is not None and (fp is None or fp.sha256 != expect_sha256):
+        raise InputProblem(f"The data '{source}' changed while it was read. Run again when "
+                           "nothing else writes to it.", code="data_changed")
+    if fp is None:
+        notes = ["The data were read from a URL by the cluster and not fingerprinted: the "
+                 "record cannot prove which bytes they were, so 'fitladder rerun' refuses it."]
+    elif fp.kind == "folder":
+        notes = [f"SHA-256 of the folder's {fp.files} Parquet files (one line per file: "
+                 "relative path, size and the file's own SHA-256)."]
+    else:
+        notes = []
+    path = Path(source)
+    kind = ("parquet" if not local or path.is_dir() or path.suffix.lower() in (".parquet", ".pq")
+            else "csv")
+    where = source if not local else str(path.resolve())
+    result = build_pack(out, loaded=_StreamedSource(path.name, kind, stats.rows_read, fp, notes),
+                        source_name=path.name,
+                        data=data, spec=spec, analysis=analysis, compare_orders=compare,
+                        progress=progress,
+                        load_options={"stream": True, "cluster": cluster,
+                                      "sample_rows": sample_rows},
+                        source_path=where, model_file_in_background=not cluster,
+                        **({"error_unit": error_unit} if error_unit else {}))
+    return result
 
 
 def command_run(args: argparse.Namespace) -> int:
@@ -605,7 +667,7 @@ def _run_into(args: argparse.Namespace, folder, penalties, decimal, renderer=Non
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,
                         load_options={"decimal": decimal, "sheet": args.sheet},
                         source_path=str(Path(args.data).resolve()),
-                        model_file_in_background=True)
+                        model_file_in_background=True, error_unit=args.errors)
     _report(result)
     return EXIT_OK
 
@@ -658,7 +720,8 @@ def _inside(path: Path, folder: Path) -> bool:
     return True
 
 
-def locate_recorded_data(rec: dict, record_path: Path, given: str | None) -> Path:
+def locate_recorded_data(rec: dict, record_path: Path, given: str | None,
+                         folder_ok: bool = False) -> Path:
     """The data file of a re-run, checked against the record before it is parsed.
 
     With ``given`` (``--data``) that file is used. Otherwise the recorded path
@@ -666,11 +729,18 @@ def locate_recorded_data(rec: dict, record_path: Path, given: str | None) -> Pat
     to the record) and refused when it lies outside that folder, so a record
     cannot make the command read files elsewhere. Either way the file must be
     a regular file of the recorded size whose SHA-256 matches the record; the
-    hash is computed before any parsing.
+    hash is computed before any parsing. With ``folder_ok`` (a streamed pack)
+    the data may be a folder of Parquet files, checked by its fingerprint
+    (`engine.fingerprint`).
     """
-    from .pack import file_sha256
+    from .fingerprint import source_fingerprint
 
     facts = rec["data"]
+    if facts.get("sha256") is None:
+        raise InputProblem(
+            "The record holds no SHA-256 of its data (they were read from a URL by a cluster), "
+            "so a re-run cannot prove it reads the same rows. Run 'fitladder run' on the data "
+            "again instead.", code="not_found")
     folder = record_path.parent.resolve()
     if given:
         path = Path(given)
@@ -700,10 +770,11 @@ def locate_recorded_data(rec: dict, record_path: Path, given: str | None) -> Pat
     if not path.exists():
         raise InputProblem(f"There is no data file '{shown}'. Give the file with --data PATH.",
                            code="not_found")
-    if not path.is_file():
+    if not (path.is_file() or (folder_ok and path.is_dir())):
         raise InputProblem(f"'{shown}' is not a regular file (a folder, device or pipe). Give "
                            "the data file with --data PATH.", code="not_found")
-    size = path.stat().st_size
+    fingerprint = source_fingerprint(path) if path.is_dir() else None
+    size = fingerprint.size_bytes if fingerprint else path.stat().st_size
     want_size = facts.get("size_bytes")
     want = facts["sha256"]
     if want_size is not None and size != want_size:
@@ -712,7 +783,7 @@ def locate_recorded_data(rec: dict, record_path: Path, given: str | None) -> Pat
             f"says {want_size:,} (file '{facts.get('file')}'). Give the original file with "
             "--data, or run 'fitladder run' to make a new pack from the changed data.",
             code="data_changed")
-    got = file_sha256(path)
+    got = (fingerprint or source_fingerprint(path)).sha256
     if got != want:
         raise InputProblem(
             f"The data file '{shown}' is not the one recorded: its SHA-256 is {got}, the record "
@@ -727,9 +798,29 @@ def command_rerun(args: argparse.Namespace) -> int:
 
     rec, record_path = read_record(args.record)
     spec = check_record(rec, str(record_path))
-    path = locate_recorded_data(rec, record_path, args.data)
+    opts = rec.get("load_options") or {}
+    streamed = bool(opts.get("stream"))
+    path = locate_recorded_data(rec, record_path, args.data, folder_ok=streamed)
     with _out_folder(args) as folder:
+        if streamed:
+            return _rerun_streamed(folder, rec, spec, path)
         return _rerun_into(args, folder, rec, spec, path)
+
+
+def _rerun_streamed(folder, rec: dict, spec, path: Path) -> int:
+    """Re-run a streamed (or cluster) pack by streaming the checked data on this machine."""
+    from .streaming import SAMPLE_ROWS
+
+    progress = _StderrProgress()
+    opts = rec.get("load_options") or {}
+    progress(0.0, f"Reading {path} in record batches")
+    cells = [(int(q), float(a)) for q, a in rec.get("compare_cells") or []] or None
+    result = _stream_pack(folder, str(path), spec,
+                          sample_rows=int(opts.get("sample_rows") or SAMPLE_ROWS), cluster=None,
+                          compare=cells, progress=progress, expect_sha256=rec["data"]["sha256"],
+                          error_unit=rec.get("error_unit"))
+    _report(result)
+    return EXIT_OK
 
 
 def _rerun_into(args: argparse.Namespace, folder, rec: dict, spec, path: Path) -> int:
@@ -757,7 +848,8 @@ def _rerun_into(args: argparse.Namespace, folder, rec: dict, spec, path: Path) -
                         [(int(q), float(a)) for q, a in cells] if cells else None,
                         progress=progress, load_options=opts,
                         source_path=str(Path(path).resolve()),
-                        model_file_in_background=True)
+                        model_file_in_background=True,
+                        error_unit=rec.get("error_unit") or DEFAULT_ERROR_UNIT)
     _report(result)
     return EXIT_OK
 

@@ -7,20 +7,23 @@ import pandas as pd
 from .analysis import DataLike, fit_cell
 from .design import PolynomialBasis
 from .summaries import LARGE_ROWS, summarise_rows
-from .final_fit import FinalModel
+from .final_fit import FinalModel, attach_text_inputs
 from .labels import penalty_text
 from .spec import SweepSpec
 from .threads import one_thread
 
 
 def fit_candidates(data: DataLike, spec: SweepSpec, cells: list[tuple[int, float]],
-                   family: str = "ridge",
-                   l1_ratio: float = 0.0) -> dict[tuple[int, float], FinalModel]:
+                   family: str = "ridge", l1_ratio: float = 0.0,
+                   summary=None) -> dict[tuple[int, float], FinalModel]:
     """Fit each (order, penalty) cell on all rows, all in one penalty family.
 
     From `engine.summaries.LARGE_ROWS` rows on, every cell is solved from one
     shared pass of cross-product summaries at the highest order asked for
     (`engine.final_fit.fit_final` with ``summary``); below, by QR on the rows.
+    ``summary``: all-rows summaries of ``data`` already formed (for example
+    `engine.analysis.Analysis.all_rows_summary`), used instead of that pass
+    when they reach the highest order asked for.
 
     Returns
     -------
@@ -29,15 +32,18 @@ def fit_candidates(data: DataLike, spec: SweepSpec, cells: list[tuple[int, float
     out: dict[tuple[int, float], FinalModel] = {}
     keys = list(dict.fromkeys((int(q), float(a)) for q, a in cells))
     with one_thread():
-        summary = None
-        if keys and np.asarray(data.y).size >= LARGE_ROWS:
+        large = keys and np.asarray(data.y).size >= LARGE_ROWS
+        if not large or summary is None or summary.basis.max_order < max(q for q, _ in keys):
+            summary = None
+        if large and summary is None:
             # one pass over the rows at the highest order serves every candidate
             basis = PolynomialBasis.fit(np.asarray(data.X, float), spec.inputs,
                                         max(q for q, _ in keys), spec.interactions)
             summary = summarise_rows(data.X, data.y, basis)
         for key in keys:
-            out[key] = fit_cell(data, spec, key[0], key[1], summary=summary, family=family,
-                                    l1_ratio=l1_ratio)
+            out[key] = attach_text_inputs(
+                fit_cell(data, spec, key[0], key[1], summary=summary, family=family,
+                         l1_ratio=l1_ratio), getattr(data, "factors", None))
     return out
 
 

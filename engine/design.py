@@ -77,7 +77,11 @@ def indicator_structure(X: np.ndarray) -> tuple[tuple[int, ...], tuple[tuple[int
     X = np.asarray(X, dtype=float)
     if X.ndim != 2 or not len(X):
         return (), ()
-    binary = [j for j in range(X.shape[1])
+    # a column with any value but 0 or 1 among its first rows cannot be 0/1: only the
+    # columns that pass on those rows are checked on every row
+    head = X[:256]
+    maybe = np.flatnonzero(np.all((head == 0) | (head == 1), axis=0))
+    binary = [int(j) for j in maybe
               if np.all((X[:, j] == 0) | (X[:, j] == 1)) and X[:, j].any() and not X[:, j].all()]
     pairs = [(a, b) for i, a in enumerate(binary) for b in binary[i + 1:]
              if not np.any((X[:, a] == 1) & (X[:, b] == 1))]

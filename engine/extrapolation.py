@@ -361,11 +361,12 @@ def rows_outlook(lc_folds: pd.DataFrame, lc_table: pd.DataFrame, recommended: tu
                        declined=declined, verdict=verdict, notes=notes)
 
 
-def more_rows(analysis, data, spec=None, factors=FACTORS) -> RowsOutlook:
+def more_rows(analysis, data, spec=None, factors=FACTORS, learning=None) -> RowsOutlook:
     """`rows_outlook` for the recommended cell of ``analysis`` and every order of its request.
 
     Runs `engine.analysis.learning_curve` on every order (one pass over the
-    rows per split).
+    rows per round of splits), unless ``learning`` (a `LearningCurve` of the
+    same data and request) already holds every order at the penalties needed.
     """
     from dataclasses import replace
 
@@ -382,8 +383,11 @@ def more_rows(analysis, data, spec=None, factors=FACTORS) -> RowsOutlook:
             r = g.sort_values(["validation_mse", "penalty"], ascending=[True, False]).iloc[0]
             cells.append((int(q), float(r["penalty"])))
     pens = tuple(sorted({a for _, a in cells}))
-    lc = learning_curve(data_w, replace(spec_w, penalties=pens),
-                        orders=sorted({q for q, _ in cells}))
+    orders = sorted({q for q, _ in cells})
+    if learning is not None and learning.covers(orders, pens):
+        lc = learning.restrict(orders, pens)
+    else:
+        lc = learning_curve(data_w, replace(spec_w, penalties=pens), orders=orders)
     out = rows_outlook(lc.folds, lc.table, (rec.order, rec.penalty), int(len(data_w.y)), factors,
                        cells=cells)
     if lc.note:

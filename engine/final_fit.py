@@ -71,6 +71,9 @@ class FinalModel:
     design_singular_values: np.ndarray | None = None
     family: str = "ridge"
     l1_ratio: float = 0.0
+    #: text inputs among the inputs: column -> (reference level, levels with a term);
+    #: their indicator columns ``column[level]`` are among ``input_names``
+    text_inputs: dict = field(default_factory=dict)
 
     def predict(self, X) -> np.ndarray:
         """Predictions for raw inputs ``X`` of shape (m, d) (or (m,) with one input)."""
@@ -101,6 +104,22 @@ class FinalModel:
                 term = powers[j][int(e[j])] if term is None else term * powers[j][int(e[j])]
             out += b * term
         return out
+
+
+def attach_text_inputs(model: FinalModel, factors: dict | None) -> FinalModel:
+    """Record on ``model`` the text inputs (`engine.categorical.Factor`) whose indicator
+    columns it uses, so a saved pipeline can one-hot encode the raw text column.
+
+    Parameters
+    ----------
+    model : a fitted model; changed in place and returned.
+    factors : ``{column: Factor}`` as `engine.loading.prepare` gives them (None: none).
+    """
+    names = set(model.input_names)
+    for col, f in (factors or {}).items():
+        if f.names and all(n in names for n in f.names):
+            model.text_inputs[str(col)] = (str(f.reference), tuple(str(v) for v in f.levels))
+    return model
 
 
 # ---------------------------------------------------------------------------

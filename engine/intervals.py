@@ -46,10 +46,11 @@ from scipy import stats
 from .design import PolynomialBasis
 from .errors import InputProblem
 from .families import RawMap, TermSummary, fit_family, sse
-from .moments import combine_batch
+from .moments import combine_batch, design_moments
 from .schemes import FoldPlan
 from .spec import SchemeSpec, SweepSpec
-from .sweep import piece_statistics
+from .summaries import CHUNK_ROWS, LARGE_ROWS
+from .threads import one_thread
 
 Progress = Callable[[float, str], None]
 
@@ -57,6 +58,9 @@ Progress = Callable[[float, str], None]
 LEVEL = 0.90
 _ONE_SPLIT = ("holdout", "column")
 _MAX_COVERAGE_ROWS = 5000
+#: Large tables, shuffled schemes: groups of rows per outer fold that each
+#: nested cross-validation repetition reshuffles (see `error_interval`).
+GROUPS_PER_FOLD = 40
 
 
 # ---------------------------------------------------------------------------
@@ -66,18 +70,36 @@ def _atoms(n: int, sets: list[np.ndarray]) -> tuple[np.ndarray, int, np.ndarray]
     """Split rows into atoms: rows that belong to exactly the same sets.
 
     Returns ``(labels (n,), n_atoms, member (len(sets), n_atoms) 0/1)``;
-    rows in no set get label -1.
+    rows in no set get label -1. Each row's membership pattern is built up one
+    set at a time as an integer code, renumbered to ``0..atoms-1`` before it
+    could overflow, so the work is a few passes over ``n`` integers per set.
     """
-    B = np.zeros((n, len(sets)), dtype=bool)
-    for j, s in enumerate(sets):
-        B[np.asarray(s, dtype=np.int64), j] = True
-    used = B.any(axis=1)
-    packed = np.packbits(B, axis=1)
-    uniq, inv = np.unique(packed, axis=0, return_inverse=True)
+    code = np.zeros(n, dtype=np.int64)
+    bits = 0
+    for s in sets:
+        if bits >= 40:
+            u, inv = np.unique(code, return_inverse=True)
+            code = inv.ravel().astype(np.int64) + (0 if u.size and u[0] == 0 else 1)
+            bits = int(code.max()).bit_length() if n else 0   # code 0 still: in no set
+        code *= 2
+        code[np.asarray(s, dtype=np.int64)] += 1
+        bits += 1
+    uniq, inv = np.unique(code, return_inverse=True)
     inv = inv.ravel()
-    member = np.unpackbits(uniq, axis=1, count=len(sets)).T.astype(np.int8)
-    labels = np.where(used, inv, -1).astype(np.int64)
-    return labels, int(uniq.shape[0]), member
+    used = uniq != 0            # code 0: the row is in no set
+    first = np.zeros(uniq.size, dtype=np.int64)
+    first[inv[::-1]] = np.arange(n - 1, -1, -1)     # one row of every atom
+    renum = np.cumsum(used) - 1
+    labels = np.where(used[inv], renum[inv], -1).astype(np.int64)
+    reps = first[used]
+    member = np.zeros((len(sets), reps.size), dtype=np.int8)
+    mask = np.zeros(n, dtype=bool)
+    for j, s in enumerate(sets):
+        s = np.asarray(s, dtype=np.int64)
+        mask[s] = True
+        member[j] = mask[reps]
+        mask[s] = False
+    return labels, int(reps.size), member
 
 
 @dataclass
@@ -91,6 +113,7 @@ class CellDesign:
     family: str = "ridge"
     l1_ratio: float = 0.0
     _F: np.ndarray | None = field(default=None, repr=False)
+    _U: np.ndarray | None = field(default=None, repr=False)
 
     @classmethod
     def make(cls, data, spec: SweepSpec, order: int, penalty: float, family: str = "ridge",
@@ -99,28 +122,95 @@ class CellDesign:
         basis = PolynomialBasis.fit(X, spec.inputs, int(order), spec.interactions)
         return cls(basis, X, np.asarray(data.y, float), float(penalty), family, float(l1_ratio))
 
+    def matches(self, order: int, penalty: float, family: str, l1_ratio: float) -> bool:
+        """True when this is the design of the cell ``(order, penalty, family, l1_ratio)``."""
+        return (self.basis.max_order == int(order) and self.penalty == float(penalty)
+                and self.family == family and self.l1_ratio == float(l1_ratio))
+
     @property
     def p(self) -> int:
         return int(self.basis.n_terms)
 
+    @property
+    def U(self) -> np.ndarray:
+        """Scaled inputs of every row (formed once)."""
+        if self._U is None:
+            self._U = np.ascontiguousarray(self.basis.scale(self.X))
+        return self._U
+
     def rows(self, idx: np.ndarray | None = None) -> np.ndarray:
-        """Working-basis terms of the given rows (all rows are expanded once, then kept)."""
+        """Working-basis terms of the given rows.
+
+        Small tables: all rows are expanded once, then kept. From
+        `engine.summaries.LARGE_ROWS` rows on only the rows asked for are
+        expanded (the full design is never held).
+        """
+        if self._F is None and idx is not None and self.y.size >= LARGE_ROWS:
+            return self.basis.expand_scaled(self.U[idx]) if self.p else np.zeros((len(idx), 0))
         if self._F is None:
-            self._F = self.basis.expand(self.X) if self.p else np.zeros((len(self.y), 0))
+            self._F = self.basis.expand_scaled(self.U) if self.p else np.zeros((len(self.y), 0))
         return self._F if idx is None else self._F[idx]
 
-    def fit_sets(self, sets: list[np.ndarray], keep_leverage: bool = False) -> "SetFits":
-        """Fit the cell on each row set (one pass over the rows for all of them)."""
+    def moments(self, labels: np.ndarray, n_sets: int):
+        """Per-label summaries of ``[terms, y]``: one chunked pass over the rows."""
+        return design_moments(self.U, self.y, labels, n_sets,
+                              lambda Uc, out: self.basis.expand_scaled(Uc, out=out), self.p,
+                              chunk_rows=CHUNK_ROWS)
+
+    def summaries(self, sets: list[np.ndarray]) -> TermSummary:
+        """Summaries of every row set (one pass over the rows for all of them)."""
         labels, n_atoms, member = _atoms(len(self.y), sets)
-        st = piece_statistics(self.basis, self.X, self.y, labels, n_atoms)
-        n, mean, M = combine_batch(st, member)
-        summary = TermSummary(n, mean, M)
+        n, mean, M = combine_batch(self.moments(labels, n_atoms), member)
+        return TermSummary(n, mean, M)
+
+    def fit_summary(self, summary: TermSummary, keep_leverage: bool = False) -> "SetFits":
+        """Fit the cell on each summarised row set (no pass over the rows)."""
         A, a0 = self.basis.raw_map()
         raw = RawMap.select(A, a0, np.arange(self.p), summary.n_sets)
         fit = fit_family(self.family, summary, raw, np.array([self.penalty]),
                          l1_ratio=self.l1_ratio, keep_leverage=keep_leverage)
         return SetFits(self, summary, fit.beta_u[:, :, 0], fit.edf[:, 0],
                        sse(summary, summary.mean, fit.beta_u)[:, 0], fit.lev_u, fit.lev_raw)
+
+    def fit_sets(self, sets: list[np.ndarray], keep_leverage: bool = False) -> "SetFits":
+        """Fit the cell on each row set (one pass over the rows for all of them)."""
+        return self.fit_summary(self.summaries(sets), keep_leverage)
+
+    def residuals(self, fits: "SetFits", assign: np.ndarray) -> np.ndarray:
+        """Residuals ``y - prediction`` of many fits in one chunked pass over the rows.
+
+        Parameters
+        ----------
+        fits : the fits.
+        assign : (A, n) integers: ``assign[a, i]`` is the fit whose residual
+            row ``i`` gets in output row ``a`` (``-1``: none, NaN out).
+
+        Returns
+        -------
+        (A, n) residuals.
+        """
+        assign = np.atleast_2d(np.asarray(assign, dtype=np.int64))
+        A_, n = assign.shape
+        out = np.full((A_, n), np.nan)
+        p = self.p
+        m = fits.summary.mean
+        B = np.ascontiguousarray(fits.beta_u.T)                       # (p, S)
+        c = m[:, -1] - np.einsum("sp,sp->s", m[:, :p], fits.beta_u)  # working-basis intercepts
+        step = int(max(256, min(CHUNK_ROWS, (8 << 20) // max(p, 1))))
+        buf = np.empty((min(step, n), p), order="F")
+        for c0 in range(0, n, step):
+            c1 = min(c0 + step, n)
+            if p:
+                P = self.basis.expand_scaled(self.U[c0:c1], out=buf[:c1 - c0]) @ B
+                P += c
+            else:
+                P = np.broadcast_to(c, (c1 - c0, c.size))
+            yc = self.y[c0:c1]
+            for a in range(A_):
+                s = assign[a, c0:c1]
+                at = np.flatnonzero(s >= 0)
+                out[a, c0 + at] = yc[at] - P[at, s[at]]
+        return out
 
 
 @dataclass
@@ -176,6 +266,16 @@ class SetFits:
             TQ = ((c @ As[s].T) / ds[s]) @ Q[s]
             return out + (TQ * TQ) @ (lam[s] / (lam[s] + a) ** 2)
         raise ValueError("no variance pieces for this fit")
+
+    def take(self, index) -> "SetFits":
+        """The fits of the sets ``index`` (an array of set numbers)."""
+        ix = np.asarray(index, dtype=np.int64)
+        summ = TermSummary(self.summary.n[ix], self.summary.mean[ix], self.summary.M[ix])
+
+        def cut(t):
+            return None if t is None else tuple(v[ix] for v in t)
+        return SetFits(self.design, summ, self.beta_u[ix], self.edf[ix], self.sse[ix],
+                       cut(self.lev_u), cut(self.lev_raw))
 
     def residual_df(self, s: int) -> float:
         return float(self.summary.n[s] - self.edf[s])
@@ -335,10 +435,87 @@ def _nested_outer(data, spec: SweepSpec, folds: int, seed: int):
     return outer_splits(data, replace(spec, seed=seed), folds)[0]
 
 
+def _cell_design(data, spec: SweepSpec, order: int, penalty: float, family: str,
+                 l1_ratio: float, design: CellDesign | None) -> CellDesign:
+    if design is not None and design.matches(order, penalty, family, l1_ratio):
+        return design
+    return CellDesign.make(data, spec, order, penalty, family, l1_ratio)
+
+
+def _shuffle_groups(n: int, n_groups: int, seed: int) -> np.ndarray:
+    """Rows dealt at random into ``n_groups`` groups of equal size (one row apart)."""
+    group = np.empty(n, dtype=np.int64)
+    group[np.random.default_rng(int(seed)).permutation(n)] = np.arange(n) % n_groups
+    return group
+
+
+def _grouped_outer_folds(design: CellDesign, k: int, R: int, seed: int):
+    """Nested cross-validation sets of ``R`` shuffled ``k``-fold repetitions, from group summaries.
+
+    The rows are dealt once at random into ``k * GROUPS_PER_FOLD`` equal groups
+    and summarised in one pass; each repetition deals the groups afresh into
+    ``k`` folds (seed ``seed + r``), so every fold is a random set of rows, as
+    with a row-level shuffle, and every set's summary is a merge of groups.
+
+    Returns ``(fold_of (R, n), fold summaries)``: the outer fold of every row in
+    each repetition, and per repetition the ``(n, mean, comoment)`` of its folds.
+    """
+    n = design.y.size
+    G = k * GROUPS_PER_FOLD
+    group = _shuffle_groups(n, G, seed)
+    st = design.moments(group, G)
+    folds = np.empty((R, n), dtype=np.int64)
+    fold_sum = []
+    for r in range(R):
+        of = np.empty(G, dtype=np.int64)
+        of[np.random.default_rng(int(seed) + r).permutation(G)] = np.arange(G) % k
+        folds[r] = of[group]
+        W = (of[None, :] == np.arange(k)[:, None]).astype(np.int8)
+        fold_sum.append(combine_batch(st, W))
+    return folds, fold_sum
+
+
+def _nested_cv_parts(design: CellDesign, fold_sum: list, k: int):
+    """Fits and inner errors of every repetition from its ``k`` fold summaries.
+
+    Returns ``(outer fits (R*k sets, repetition-major), s_in (R, k), n_in (R, k))``:
+    ``s_in[r, kk]`` the inner validation squared errors summed over the inner
+    folds of outer fold ``kk``, ``n_in`` their rows.
+    """
+    from .moments import Moments
+    sel_outer = 1 - np.eye(k, dtype=np.int8)
+    pairs = [(kk, j) for kk in range(k) for j in range(k) if j != kk]
+    sel_inner = np.ones((len(pairs), k), dtype=np.int8)
+    for i, (kk, j) in enumerate(pairs):
+        sel_inner[i, [kk, j]] = 0
+    sel = np.vstack([sel_outer, sel_inner])
+    parts = [combine_batch(Moments(*fs), sel) for fs in fold_sum]
+    n_t = np.concatenate([p_[0] for p_ in parts])
+    m_t = np.concatenate([p_[1] for p_ in parts])
+    M_t = np.concatenate([p_[2] for p_ in parts])
+    fits = design.fit_summary(TermSummary(n_t, m_t, M_t))
+    R = len(fold_sum)
+    per = sel.shape[0]
+    j_idx = np.array([j for _, j in pairs])
+    owner = np.array([kk for kk, _ in pairs])
+    t_idx = np.concatenate([r * per + k + np.arange(len(pairs)) for r in range(R)])
+    v_n = np.concatenate([fs[0][j_idx] for fs in fold_sum])
+    v_m = np.concatenate([fs[1][j_idx] for fs in fold_sum])
+    v_M = np.concatenate([fs[2][j_idx] for fs in fold_sum])
+    sse_in = sse(TermSummary(v_n, v_m, v_M), fits.summary.mean[t_idx],
+                 fits.beta_u[t_idx][:, :, None])[:, 0].reshape(R, len(pairs))
+    s_in = np.stack([np.bincount(owner, weights=sse_in[r], minlength=k) for r in range(R)])
+    n_in = np.stack([np.bincount(owner, weights=v_n.reshape(R, -1)[r], minlength=k)
+                     for r in range(R)])
+    outer = np.concatenate([r * per + np.arange(k) for r in range(R)])
+    return fits.take(outer), s_in, n_in
+
+
 def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: float = LEVEL,
                    repeats: int | None = None, folds: int | None = None,
                    family: str = "ridge", l1_ratio: float = 0.0,
-                   progress: Progress | None = None) -> ErrorInterval:
+                   progress: Progress | None = None,
+                   design: CellDesign | None = None) -> ErrorInterval:
     """Interval for the error of the cell ``(order, penalty)`` fitted on all rows.
 
     Parameters
@@ -352,12 +529,21 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
     folds : outer folds (default: the scheme's, at most 10).
     family, l1_ratio : the cell's penalty family.
     progress : called as ``progress(fraction_done, message)``.
+    design : the cell's `CellDesign` when the caller already has it.
 
     Returns
     -------
     ErrorInterval
+
+    Notes
+    -----
+    Every fit and every inner error comes from summaries; the outer errors of
+    single rows (for the spread) come from one pass over the rows that
+    predicts every outer fit at once. From `engine.summaries.LARGE_ROWS` rows
+    on, shuffled schemes deal the rows once into seeded groups of equal size
+    and each repetition reshuffles the groups into folds (said in the notes).
     """
-    design = CellDesign.make(data, spec, order, penalty, family, l1_ratio)
+    design = _cell_design(data, spec, order, penalty, family, l1_ratio, design)
     y = design.y
     n = y.size
     kind = spec.scheme.kind
@@ -367,7 +553,9 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
         plan = plan_for(data, spec.scheme, spec.seed)
         tr, va = plan.train_sets[0], plan.valid_sets[0]
         fits = design.fit_sets([tr])
-        e = (y[va] - fits.predict(0, design.rows(va))) ** 2
+        assign = np.full(n, -1, dtype=np.int64)
+        assign[va] = 0
+        e = design.residuals(fits, assign)[0, va] ** 2
         mean = float(e.mean())
         se = float(e.std(ddof=1) / math.sqrt(e.size)) if e.size > 1 else float("nan")
         note = (f"Mean of the {e.size} per-row squared errors on the validation rows of the "
@@ -383,39 +571,35 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
     shuffled = kind in ("kfold", "repeated", "loo")
     R = int(repeats if repeats is not None else (10 if shuffled else 1))
     R = R if shuffled else 1
-    a_list, b_list = [], []
-    inner_sse = inner_n = 0.0
-    out_errors = []
+    if progress:
+        progress(0.0, f"Nested cross-validation, {R} repetition{'s' if R > 1 else ''}")
+    grouped = shuffled and n >= LARGE_ROWS and n >= 2 * k * GROUPS_PER_FOLD
+    notes: list[str] = []
+    if grouped:
+        fold_of, fold_sum = _grouped_outer_folds(design, k, R, int(spec.seed))
+        outer_fits, s_in, n_in = _nested_cv_parts(design, fold_sum, k)
+        G = k * GROUPS_PER_FOLD
+        notes.append(f"With {n:,} rows the repetitions reshuffle groups, not single rows: the "
+                     f"rows were dealt once at random into {G} groups of about {n // G:,} rows "
+                     f"(seed {int(spec.seed)}), and each repetition deals the groups afresh "
+                     f"into {k} folds (seeds {int(spec.seed)} to {int(spec.seed) + R - 1}).")
+    else:
+        fold_of, fold_sum, outer_fits, s_in, n_in = _exact_nested(data, spec, design, k, R)
+    # outer errors of single rows: every outer fit predicted in one pass over the rows
+    assign = np.where(fold_of >= 0, fold_of + k * np.arange(R)[:, None], -1)
+    res = design.residuals(outer_fits, assign)
+    a_list, b_list, out_errors = [], [], []
     for r in range(R):
-        if progress:
-            progress(r / R, f"Nested cross-validation, repetition {r + 1} of {R}")
-        outer = _nested_outer(data, spec, k, int(spec.seed) + r)
-        sets, index = [], []
-        for kk, (tr, va) in enumerate(outer):
-            inner = _inner_splits(outer, kk)
-            sets.append(tr)
-            index.append([len(sets) - 1])
-            for itr, iva in inner:
-                sets += [itr, iva]
-                index[-1] += [len(sets) - 2, len(sets) - 1]
-        # training and validation summaries of every set in one pass
-        fits = design.fit_sets(sets)
-        # inner errors of every (outer fold, inner fold) pair in one batched call
-        t_idx = np.array([ix[q] for ix in index for q in range(1, len(ix), 2)])
-        v_idx = t_idx + 1
-        owner = np.array([kk for kk, ix in enumerate(index) for _ in range(1, len(ix), 2)])
-        sm = fits.summary
-        val = TermSummary(sm.n[v_idx], sm.mean[v_idx], sm.M[v_idx])
-        sse_in = sse(val, sm.mean[t_idx], fits.beta_u[t_idx][:, :, None])[:, 0]
-        s_in = np.bincount(owner, weights=sse_in, minlength=len(outer))
-        n_in = np.bincount(owner, weights=sm.n[v_idx], minlength=len(outer))
-        inner_sse += float(s_in.sum())
-        inner_n += float(n_in.sum())
-        for kk, (tr, va) in enumerate(outer):
-            e_out = (y[va] - fits.predict(index[kk][0], design.rows(va))) ** 2
+        e_r = res[r] ** 2
+        for kk in range(k):
+            e_out = e_r[fold_of[r] == kk]
+            if not e_out.size:
+                continue
             out_errors.append(e_out)
-            a_list.append((s_in[kk] / n_in[kk] - e_out.mean()) ** 2)
+            a_list.append((s_in[r, kk] / n_in[r, kk] - e_out.mean()) ** 2)
             b_list.append(e_out.var(ddof=1) / e_out.size if e_out.size > 1 else 0.0)
+    inner_sse = float(s_in.sum())
+    inner_n = float(n_in.sum())
     e_all = np.concatenate(out_errors)
     err_cv = float(e_all.mean())
     err_ncv = inner_sse / inner_n
@@ -427,11 +611,11 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
     bias = (1.0 + (k - 2) / k) * (err_ncv - err_cv)
     # the bias correction assumes exchangeable rows; contiguous blocks keep the plain estimate
     centre = err_cv if kind == "blocked" else err_ncv - bias
-    notes = [f"Nested cross-validation (Bates, Hastie and Tibshirani 2023): {k} outer folds"
-             + (f", repeated {R} times with fresh shuffles" if R > 1 else "")
-             + f"; the model is the fixed cell, refitted in every fold. Plain cross-validation "
-             f"gives {err_cv:.4g} with a naive standard error of {naive_se:.2g}; the nested "
-             f"estimate of its spread is {se:.2g}."]
+    notes.insert(0, f"Nested cross-validation (Bates, Hastie and Tibshirani 2023): {k} outer folds"
+                 + (f", repeated {R} times with fresh shuffles" if R > 1 else "")
+                 + f"; the model is the fixed cell, refitted in every fold. Plain cross-validation "
+                 f"gives {err_cv:.4g} with a naive standard error of {naive_se:.2g}; the nested "
+                 f"estimate of its spread is {se:.2g}.")
     if kind == "blocked":
         notes.append("Folds are contiguous blocks in row order with the scheme's gap; the "
                      "method assumes rows are exchangeable, so the interval is centred on the "
@@ -442,6 +626,56 @@ def error_interval(data, spec: SweepSpec, order: int, penalty: float, level: flo
     return ErrorInterval("nested cross-validation", level, float(centre),
                          float(max(centre - z * se, 0.0)), float(centre + z * se), err_cv,
                          float(se), naive_se, k, R, int(n), notes)
+
+
+def _exact_nested(data, spec: SweepSpec, design: CellDesign, k: int, R: int):
+    """Nested cross-validation sets on the scheme's own outer splits (row-level shuffles).
+
+    Per repetition: outer training sets and inner (training, validation) sets
+    as `_inner_splits` builds them, all summarised in one pass over the rows.
+
+    Returns ``(fold_of (R, n), None, outer fits (R*k), s_in (R, k), n_in (R, k))``.
+    """
+    n = design.y.size
+    fold_of = np.full((R, n), -1, dtype=np.int64)
+    train_parts, val_parts, owners, counts = [], [], [], []
+    for r in range(R):
+        outer = _nested_outer(data, spec, k, int(spec.seed) + r)
+        sets, t_pos, v_pos, own = [], [], [], []
+        for kk, (tr, va) in enumerate(outer):
+            fold_of[r, va] = kk
+            sets.append(tr)
+        for kk in range(len(outer)):
+            for itr, iva in _inner_splits(outer, kk):
+                t_pos.append(len(sets))
+                sets.append(itr)
+                v_pos.append(len(sets))
+                sets.append(iva)
+                own.append(kk)
+        summ = design.summaries(sets)
+        tr_idx = np.r_[np.arange(len(outer)), np.asarray(t_pos, dtype=np.int64)]
+        train_parts.append(TermSummary(summ.n[tr_idx], summ.mean[tr_idx], summ.M[tr_idx]))
+        v = np.asarray(v_pos, dtype=np.int64)
+        val_parts.append(TermSummary(summ.n[v], summ.mean[v], summ.M[v]))
+        owners.append(np.asarray(own, dtype=np.int64))
+        counts.append((len(outer), len(t_pos)))
+    n_t = np.concatenate([t.n for t in train_parts])
+    m_t = np.concatenate([t.mean for t in train_parts])
+    M_t = np.concatenate([t.M for t in train_parts])
+    fits = design.fit_summary(TermSummary(n_t, m_t, M_t))
+    s_in = np.zeros((R, k))
+    n_in = np.zeros((R, k))
+    outer_idx = []
+    start = 0
+    for r, (n_out, n_inner) in enumerate(counts):
+        outer_idx.append(start + np.arange(n_out))
+        t_idx = start + n_out + np.arange(n_inner)
+        val = val_parts[r]
+        e = sse(val, fits.summary.mean[t_idx], fits.beta_u[t_idx][:, :, None])[:, 0]
+        s_in[r, :n_out] = np.bincount(owners[r], weights=e, minlength=n_out)
+        n_in[r, :n_out] = np.bincount(owners[r], weights=val.n, minlength=n_out)
+        start += n_out + n_inner
+    return fold_of, None, fits.take(np.concatenate(outer_idx)), s_in, n_in
 
 
 # ---------------------------------------------------------------------------
@@ -462,6 +696,8 @@ class PredictionIntervals:
     checked_on : ``'validation rows'`` or ``'later period'``.
     per_split : one row per split: rows, coverage of each interval.
     notes : plain sentences.
+    oof : ridge and least squares: ``(rows, residuals)`` of the first round's
+        validation rows (ascending) under their split models.
     """
 
     level: float
@@ -477,6 +713,7 @@ class PredictionIntervals:
     final: SetFits | None = field(default=None, repr=False)
     split_fits: SetFits | None = field(default=None, repr=False)
     radii: list[np.ndarray] = field(default_factory=list, repr=False)
+    oof: tuple | None = field(default=None, repr=False)
 
     def bounds(self, X_new) -> pd.DataFrame:
         """Intervals at new input rows ``X_new`` (raw units).
@@ -515,10 +752,60 @@ def _sample(idx: np.ndarray, limit: int, rng: np.random.Generator) -> np.ndarray
     return idx if idx.size <= limit else np.sort(rng.choice(idx, size=limit, replace=False))
 
 
+def _from_pieces(plan: FoldPlan, pieces: list, basis: PolynomialBasis | None,
+                 design: CellDesign):
+    """Inner splits and the summaries `prediction_intervals` needs, merged from piece summaries.
+
+    Returns ``(inner_all, summary)`` in the order splits, all rows, inner
+    training sets, or None when the pieces cannot give them (another design,
+    rows outside round 0's pieces, or a split with fewer than two inner folds).
+    """
+    b = design.basis
+    if (basis is None or b.max_order > basis.max_order or b.interactions != basis.interactions
+            or b.centre.shape != basis.centre.shape
+            or not np.array_equal(b.centre, basis.centre)
+            or not np.array_equal(b.half_range, basis.half_range)
+            or not np.array_equal(b.terms, basis.terms[:b.n_terms])
+            or len(pieces) != len(plan.rounds) or np.any(plan.rounds[0].pieces < 0)):
+        return None
+    idx = np.r_[np.arange(design.p), basis.n_terms]
+    picks: list[tuple[int, np.ndarray]] = []
+    for r, j in plan.split_round:
+        picks.append((r, plan.rounds[r].train[j] > 0))
+    picks.append((0, np.ones(plan.rounds[0].n_pieces, dtype=bool)))
+    inner_all = []
+    for r, j in plan.split_round:
+        rnd = plan.rounds[r]
+        tr = rnd.train[j] > 0
+        inner = []
+        for j2 in range(rnd.train.shape[0]):
+            va_sel = (rnd.valid[j2] > 0) & tr
+            if j2 == j or pieces[r].n[va_sel].sum() == 0:
+                continue
+            lut = np.r_[va_sel, False]            # piece -1 (unused rows) -> False
+            inner.append(((tr & (rnd.train[j2] > 0)), np.flatnonzero(lut[rnd.pieces])))
+        if len(inner) < 2:
+            return None
+        picks += [(r, sel) for sel, _ in inner]
+        inner_all.append([(None, iva) for _, iva in inner])
+    n_out = np.zeros(len(picks))
+    m_out = np.zeros((len(picks), idx.size))
+    M_out = np.zeros((len(picks), idx.size, idx.size))
+    for r in range(len(plan.rounds)):
+        at = [i for i, (rr, _) in enumerate(picks) if rr == r]
+        if not at:
+            continue
+        n_r, m_r, M_r = combine_batch(pieces[r], np.stack([picks[i][1] for i in at]))
+        n_out[at], m_out[at], M_out[at] = n_r, m_r[:, idx], M_r[:, idx][:, :, idx]
+    return inner_all, TermSummary(n_out, m_out, M_out)
+
+
 def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
                          level: float = LEVEL, plan: FoldPlan | None = None,
                          family: str = "ridge", l1_ratio: float = 0.0,
-                         max_checked_rows: int = _MAX_COVERAGE_ROWS) -> PredictionIntervals:
+                         max_checked_rows: int = _MAX_COVERAGE_ROWS,
+                         design: CellDesign | None = None, pieces: list | None = None,
+                         pieces_basis: PolynomialBasis | None = None) -> PredictionIntervals:
     """Analytic and CV+ prediction intervals of one cell, with their coverage on unseen rows.
 
     Parameters
@@ -532,10 +819,23 @@ def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
         for ridge and least squares only).
     max_checked_rows : at most this many validation rows (a seeded sample) are
         checked for coverage.
+    design : the cell's `CellDesign` when the caller already has it.
+    pieces, pieces_basis : per round of ``plan``, the piece summaries of the
+        design ``pieces_basis`` (target last) that the sweep formed
+        (`engine.analysis.Analysis.pieces`); every training set is then merged
+        from them instead of summarised in a pass over the rows (used when the
+        cell's design is a leading block of ``pieces_basis``).
 
     Returns
     -------
     PredictionIntervals
+
+    Notes
+    -----
+    Every model (the scheme's split models, the model on all rows, and the
+    models on the folds inside each split's training rows) is fitted from
+    summaries formed in one pass over the rows; the residuals of every
+    validation row under every model that needs them come from one more pass.
     """
     from .analysis import plan_for
     notes: list[str] = []
@@ -545,7 +845,7 @@ def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
             scheme = replace(scheme, kind="kfold", folds=min(10, len(data.y)))
             notes.append("Intervals use shuffled 10-fold splits (the sweep used leave-one-out).")
         plan = plan_for(data, scheme, spec.seed)
-    design = CellDesign.make(data, spec, order, penalty, family, l1_ratio)
+    design = _cell_design(data, spec, order, penalty, family, l1_ratio, design)
     y = design.y
     n = y.size
     analytic = family == "ridge"
@@ -555,10 +855,40 @@ def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
     # scheme's split models + validation residuals (for CV+ at new points)
     trains = [tr for rnd in rounds for tr, _ in rnd]
     valids = [va for rnd in rounds for _, va in rnd]
-    split_fits = design.fit_sets(trains + [np.arange(n)], keep_leverage=analytic)
     S = len(trains)
-    radii = [np.sort(np.abs(y[va] - split_fits.predict(s, design.rows(va))))
-             for s, va in enumerate(valids)]
+    shared = _from_pieces(plan, pieces, pieces_basis, design) if pieces is not None else None
+    if shared is not None:
+        # every training set is a union of the sweep's pieces: no pass over the rows
+        inner_all, summ = shared
+    else:
+        inner_all = [_inner_splits(rnd, kk) for rnd in rounds for kk in range(len(rnd))]
+        # every training set (splits, all rows, folds inside each split) from one pass
+        summ = design.summaries(trains + [np.arange(n)]
+                                + [itr for inner in inner_all for itr, _ in inner])
+    inner_first = np.cumsum([0] + [len(inner) for inner in inner_all])
+    split_fits = design.fit_summary(TermSummary(summ.n[:S + 1], summ.mean[:S + 1],
+                                                summ.M[:S + 1]), keep_leverage=analytic)
+    rest = np.arange(S + 1, summ.n.shape[0])
+    inner_fits = design.fit_summary(TermSummary(summ.n[rest], summ.mean[rest], summ.M[rest]))
+    # residuals: each round's validation rows under their split model, and each split's
+    # inner validation rows under their inner model (fits numbered split, then inner)
+    assign = np.full((len(rounds) + S, n), -1, dtype=np.int64)
+    s0 = 0
+    for r, rnd in enumerate(rounds):
+        for kk in range(len(rnd)):
+            assign[r, valids[s0 + kk]] = s0 + kk
+        s0 += len(rnd)
+    for s, inner in enumerate(inner_all):
+        for j, (_, iva) in enumerate(inner):
+            assign[len(rounds) + s, iva] = S + 1 + inner_first[s] + j
+    both = SetFits(design, summ, np.vstack([split_fits.beta_u, inner_fits.beta_u]),
+                   np.r_[split_fits.edf, inner_fits.edf], np.r_[split_fits.sse, inner_fits.sse])
+    res = design.residuals(both, assign)
+    round_of = [r for r, rnd in enumerate(rounds) for _ in rnd]
+    # out-of-fold residuals of the first round in row order (ridge: the checks' fits too)
+    rows0 = np.flatnonzero(assign[0] >= 0)
+    oof = (rows0, res[0, rows0]) if family == "ridge" else None
+    radii = [np.sort(np.abs(res[round_of[s], va])) for s, va in enumerate(valids)]
     # coverage on unseen rows: rebuild each interval from a split's training rows alone
     per_split = []
     per_round_budget = max(1, max_checked_rows // max(1, S))
@@ -567,10 +897,9 @@ def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
     for rnd in rounds:
         for kk, (tr, va) in enumerate(rnd):
             s = s0 + kk
-            inner = _inner_splits(rnd, kk)
-            ifits = design.fit_sets([itr for itr, _ in inner])
-            iradii = [np.sort(np.abs(y[iva] - ifits.predict(j, design.rows(iva))))
-                      for j, (_, iva) in enumerate(inner)]
+            inner = inner_all[s]
+            ifits = inner_fits.take(inner_first[s] + np.arange(len(inner)))
+            iradii = [np.sort(np.abs(res[len(rounds) + s, iva])) for _, iva in inner]
             rows = _sample(va, per_round_budget, rng)
             F = design.rows(rows)
             centres = np.column_stack([ifits.predict(j, F) for j in range(len(inner))])
@@ -596,6 +925,10 @@ def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
         f"Coverage checked on {checked:,} {'later-period' if later else 'validation'} rows: "
         "each split's intervals were rebuilt from its training rows alone (CV+ with folds "
         "inside the training rows) and tested on rows they never saw.")
+    if checked < sum(va.size for va in valids):
+        notes.append(f"The checked rows are a seeded sample (seed {int(spec.seed)}) of at most "
+                     f"{per_round_budget:,} validation rows per split; the CV+ intervals use "
+                     "the residuals of every validation row.")
     if analytic and penalty > 0:
         notes.append("The analytic interval counts the variance of the penalised fit but not "
                      "the bias the penalty adds; CV+ needs no such assumption.")
@@ -603,29 +936,14 @@ def prediction_intervals(data, spec: SweepSpec, order: int, penalty: float,
         notes.append("The analytic interval assumes independent errors of constant spread "
                      "with a normal shape; CV+ assumes only that new rows are exchangeable "
                      "with the old.")
-    final = SetFits(design, *(_slice(split_fits, S)))
-    split_only = SetFits(design, *(_slice(split_fits, slice(0, S))))
+    final = split_fits.take([S])
+    split_only = split_fits.take(np.arange(S))
     return PredictionIntervals(
         level=level, analytic_coverage=a_cov, cvplus_coverage=float(cov_c_all.mean()),
         analytic_width=a_w, cvplus_width=float(np.median(np.concatenate(wid_c))),
         checked_rows=checked, checked_on="later period" if later else "validation rows",
         per_split=pd.DataFrame(per_split), notes=notes, design=design, final=final,
-        split_fits=split_only, radii=radii)
-
-
-def _slice(f: SetFits, s) -> tuple:
-    """Fields of ``f`` after `design`, for set(s) ``s`` (an int keeps one set)."""
-    sl = slice(s, s + 1) if isinstance(s, int) else s
-    summ = TermSummary(f.summary.n[sl], f.summary.mean[sl], f.summary.M[sl])
-
-    def cut(t):
-        return None if t is None else tuple(v[sl] if np.ndim(v) and v.shape[0] == f.edf.shape[0]
-                                            else v for v in t)
-    lev_raw = None
-    if f.lev_raw is not None:
-        As, ds, Q, lam = f.lev_raw
-        lev_raw = (As[sl], ds[sl], Q[sl], lam[sl])
-    return summ, f.beta_u[sl], f.edf[sl], f.sse[sl], cut(f.lev_u), lev_raw
+        split_fits=split_only, radii=radii, oof=oof)
 
 
 # ---------------------------------------------------------------------------
@@ -695,10 +1013,18 @@ def how_sure(analysis, data, spec: SweepSpec | None = None, level: float = LEVEL
     family = str(getattr(rec, "family", None) or "ridge")
     l1 = float(getattr(rec, "l1_ratio", None) or 0.0)
     try:
-        err = error_interval(data_w, spec_w, rec.order, rec.penalty, level, family=family,
-                             l1_ratio=l1, progress=progress)
-        pred = prediction_intervals(data_w, spec_w, rec.order, rec.penalty, level,
-                                    family=family, l1_ratio=l1)
+        # one design (scaled inputs kept) serves both; BLAS on one thread for the many
+        # small solves, the row passes pick their own
+        with one_thread():
+            design = CellDesign.make(data_w, spec_w, rec.order, rec.penalty, family, l1)
+            err = error_interval(data_w, spec_w, rec.order, rec.penalty, level, family=family,
+                                 l1_ratio=l1, progress=progress, design=design)
+            # the sweep's piece summaries give every training set (plain analyses)
+            shared = analysis.pieces if analysis.model_data is None else None
+            pred = prediction_intervals(data_w, spec_w, rec.order, rec.penalty, level,
+                                        plan=analysis.plan if shared else None,
+                                        family=family, l1_ratio=l1, design=design,
+                                        pieces=shared, pieces_basis=analysis.basis)
     except InputProblem:
         raise
     except (ValueError, np.linalg.LinAlgError) as exc:

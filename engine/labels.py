@@ -20,6 +20,7 @@ column or option adds its name here.
 from __future__ import annotations
 
 import math
+import re
 from typing import Any
 
 import numpy as np
@@ -104,8 +105,12 @@ def se_text(x: Any) -> str:
     return number_text(x, 2)
 
 
-#: Error units a user may choose; the page, its sentences and its charts use one.
+#: Error units a user may choose; the page, its sentences and its charts use one,
+#: and so do the pack's headline (``build_pack(error_unit=...)``) and ``--errors``.
 ERROR_UNITS = {"mse": "MSE", "rmse": "RMSE"}
+
+#: The unit errors are shown in unless the user chooses (page and command line).
+DEFAULT_ERROR_UNIT = "mse"
 
 
 def error_in_unit(mse: float, unit: str) -> float:
@@ -247,6 +252,7 @@ OPTIONS = {
     "rule": ("How to pick the recommended cell", "--rule"),
     "seed": ("Seed for the shuffles", "--seed"),
     "rows_in_time_order": ("Are the rows in time order?", "--rows-in-time-order"),
+    "error_unit": ("Errors shown as", "--errors"),
 }
 
 #: Answers to "are the rows in time order?" (asked when no order column is
@@ -393,34 +399,62 @@ def severity_rank(severity: Any) -> int:
     return SEVERITY_ORDER.index(s) if s in SEVERITY_ORDER else len(SEVERITY_ORDER)
 
 
+def _number(text: str) -> float:
+    try:
+        return float(text)
+    except ValueError:
+        return float("nan")
+
+
 def reason_in_unit(reason: str, cell_mse: float, best_mse: float, best_se: float,
-                   unit: str) -> str:
+                   unit: str, diff_se: float | None = None) -> str:
     """A recommendation's reason with its errors written in ``unit``.
 
     The rule works on mean squared errors; for ``'rmse'`` the cell's and the
-    best cell's errors are written as their roots, and the best cell's
-    one-standard-error bound as the root of (best + SE). Sentences whose
-    numbers cannot be found are returned with "(MSE)" marked, never mixed
-    silently.
+    best cell's errors are written as their roots; the unpaired rule's bound as
+    the root of (best + SE); a paired difference ``a - b`` as ``√a - √b`` with
+    its standard error ``diff_se`` (read from the sentence when not given)
+    divided by the same factor ``√a + √b``, so the difference is still that
+    many standard errors from zero and the sentence's verdict still holds; a
+    best cell's ``MSE m ± s`` as ``RMSE √m ± s / (2√m)`` (delta method).
+    Sentences whose numbers cannot be found are returned with "(errors in MSE)"
+    marked, never mixed silently.
     """
     if unit != "rmse":
         return reason
     out = reason
+    ra, rb = error_in_unit(cell_mse, "rmse"), error_in_unit(best_mse, "rmse")
     bound = f"{float(best_mse):.4g} + {float(best_se):.2g}"
     hit = False
     if bound in out:
-        out = out.replace(bound, f"{error_text(error_in_unit(best_mse, 'rmse'))}; bound "
+        out = out.replace(bound, f"{error_text(rb)}; bound "
                                  f"{error_text(error_in_unit(best_mse + best_se, 'rmse'))}")
         hit = True
+    paired = re.search(r"is (\S+) ± (.+?) above the best", out)
+    if paired:
+        s = _number(paired.group(2)) if diff_se is None else float(diff_se)
+        scale = ra + rb
+        d_txt = number_text(ra - rb, 3)
+        s_txt = (se_text(s / scale) if math.isfinite(s) and scale > 0 else "not available")
+        out = out[:paired.start()] + f"is {d_txt} ± {s_txt} above the best" + out[paired.end():]
     for v in (cell_mse, best_mse):
+        r = error_in_unit(v, "rmse")
+        spread = re.search(re.escape(f"MSE {float(v):.4g} ± ") + r"(\S+?)(?=[ )]|$)", out)
+        if spread:
+            se = _number(spread.group(1))
+            out = out.replace(spread.group(0), f"RMSE {error_text(r)} ± "
+                              f"{se_text(se / (2.0 * r)) if r > 0 else 'not available'}")
+            hit = True
         old = f"({float(v):.4g})"
         if old in out:
-            out = out.replace(old, f"({error_text(error_in_unit(v, 'rmse'))})")
+            out = out.replace(old, f"({error_text(r)})")
             hit = True
         old = f"MSE {float(v):.4g}"
         if old in out:
-            out = out.replace(old, f"RMSE {error_text(error_in_unit(v, 'rmse'))}")
+            out = out.replace(old, f"RMSE {error_text(r)}")
             hit = True
     if not hit:
-        return reason + " (errors in MSE)"
+        if re.search(r"\d", out):
+            return reason + " (errors in MSE)"
+        return reason
     return out.replace("validation error (", "validation RMSE (")

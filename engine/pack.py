@@ -39,14 +39,15 @@ from .jsonable import json_ready
 from .analysis import Analysis, DataLike, analyse, learning_curve
 from .compare import cell_label, fit_candidates
 from .errors import InputProblem
-from .final_fit import FinalModel
+from .final_fit import FinalModel, attach_text_inputs
 from .markup import escape_name, escape_text
 from .packdir import PackFolder, write_problem
 from .record import RECORD_FORMAT, request_fingerprint
 from .recommend import Cell
 from .render import ChartRenderer
-from .labels import (CHARTS, number_text, penalty_text, penalty_words, rung_text, scheme_name,
-                     severity_rank)
+from .labels import (CHARTS, DEFAULT_ERROR_UNIT, ERROR_UNITS, error_in_unit, number_text,
+                     penalty_text, penalty_words, reason_in_unit, rung_text, scheme_name,
+                     se_in_unit, severity_rank)
 from .spec import SCHEME_HELP, SweepSpec
 
 Progress = Callable[[float, str], None]
@@ -61,8 +62,8 @@ CHART_FILES = dict(CHARTS)
 PACK_FILES = (
     "summary.html", "summary.md", "summary.json", "record.json",
     *[f"{stem}.{ext}" for stem in CHART_FILES for ext in ("png", "svg")],
-    "validation_grid.csv", "learning_curve.csv", "coefficients.csv", "warnings.csv",
-    "model_coefficients.csv", "interval_coverage.csv", "more_rows.csv", "model.skops",
+    "validation_grid.csv", "validation_per_split.csv", "learning_curve.csv", "coefficients.csv",
+    "warnings.csv", "model_coefficients.csv", "interval_coverage.csv", "more_rows.csv", "model.skops",
 )
 
 #: several targets: the side-by-side table at the top of the pack
@@ -88,6 +89,7 @@ EXPECTED_MODEL_TYPES = frozenset({
     "sklearn.preprocessing._polynomial.PolynomialFeatures",
     "sklearn.compose._column_transformer.ColumnTransformer",
     "sklearn.linear_model._base.LinearRegression",
+    "sklearn.preprocessing._encoders.OneHotEncoder",
 })
 
 _NUMPY_TYPES = frozenset({"numpy.float64", "numpy.int64", "numpy.int32", "numpy.bool_",
@@ -189,7 +191,9 @@ _penalty_short = penalty_text
 def sklearn_pipeline(model: FinalModel):
     """The fitted model as a scikit-learn `Pipeline` that predicts as ``model.predict``.
 
-    Steps: ``scale`` (a `StandardScaler` holding the model's centre and
+    Steps: ``encode`` only with text inputs (`text_encoder`: the raw text
+    column one-hot encoded, so the pipeline takes the table as the user has it),
+    ``scale`` (a `StandardScaler` holding the model's centre and
     half-range), ``terms`` (`PolynomialFeatures`; one per input in a
     `ColumnTransformer` when the model has no products of inputs) and ``fit``
     (`LinearRegression` with the coefficients on scaled-input powers). Terms the
@@ -217,9 +221,12 @@ def sklearn_pipeline(model: FinalModel):
     scaler.scale_ = np.asarray(model.half_range, float).copy()
     scaler.var_ = scaler.scale_ ** 2
     scaler.n_features_in_ = d
-    # predicting from a DataFrame with these columns raises no feature-name warning
-    scaler.feature_names_in_ = np.asarray([str(c) for c in model.input_names], dtype=object)
-    steps: list[tuple[str, Any]] = [("scale", scaler)]
+    encode = text_encoder(model)
+    if encode is None:
+        # predicting from a DataFrame with these columns raises no feature-name warning
+        scaler.feature_names_in_ = np.asarray([str(c) for c in model.input_names], dtype=object)
+    steps: list[tuple[str, Any]] = ([("encode", encode)] if encode is not None else []) + [
+        ("scale", scaler)]
     exps = np.asarray(model.exponents, dtype=np.int64).reshape(-1, d)
     interactions = bool(np.any((exps > 0).sum(axis=1) > 1)) if exps.size else False
     if q == 0:
@@ -256,6 +263,85 @@ def sklearn_pipeline(model: FinalModel):
     reg.n_features_in_ = n_out
     steps.append(("fit", reg))
     return Pipeline(steps)
+
+
+def text_encoder(model: FinalModel):
+    """The pipeline's first step for a model with text inputs, else None.
+
+    A `ColumnTransformer` that takes the table as the user has it (a DataFrame
+    with the raw text column, e.g. ``site`` = ``'north'``) and gives the model's
+    input columns in order: each text column through a `OneHotEncoder` whose
+    categories are the reference level and the levels with a term, dropping the
+    reference (treatment coding, as the fit), other columns unchanged. A
+    level the model never saw raises scikit-learn's error (``handle_unknown=
+    'error'``): the model has no term for it. Text is compared as written
+    (the engine strips spaces at the ends of cells before choosing levels).
+    """
+    from sklearn.compose import ColumnTransformer
+    from sklearn.preprocessing import OneHotEncoder, StandardScaler
+
+    text = dict(getattr(model, "text_inputs", None) or {})
+    if not text:
+        return None
+    owner = {}
+    for col, (_, levels) in text.items():
+        for lv in levels:
+            owner[f"{col}[{lv}]"] = col
+    parts: list[tuple[str, Any, list[str]]] = []
+    columns: list[str] = []
+    for name in (str(c) for c in model.input_names):
+        col = owner.get(name)
+        if col is None:
+            if parts and parts[-1][0].startswith("numbers"):
+                parts[-1][2].append(name)
+            else:   # unchanged: an identity scaler (a "passthrough" would be saved as a
+                    # FunctionTransformer, a type that can carry any function)
+                parts.append((f"numbers_{len(parts) + 1}",
+                              StandardScaler(with_mean=False, with_std=False), [name]))
+            columns.append(name)
+        elif not (parts and parts[-1][2] == [col] and parts[-1][0].startswith("text")):
+            ref, levels = text[col]
+            if col in columns:  # pragma: no cover - a factor's terms are always adjacent
+                raise InputProblem(f"The terms of text input '{col}' are not adjacent.",
+                                   code="export_failed")
+            parts.append((f"text_{len(parts) + 1}",
+                          OneHotEncoder(categories=[[ref, *levels]], drop=[ref],
+                                        handle_unknown="error", sparse_output=False,
+                                        dtype=np.float64), [col]))
+            columns.append(col)
+    # fitted on a table of the levels (the encoder learns nothing else from it)
+    rows = max(len(levels) + 1 for _, levels in text.values())
+    frame = {}
+    for c in columns:
+        if c in text:
+            cycle = [text[c][0], *text[c][1]]
+            frame[c] = [cycle[i % len(cycle)] for i in range(rows)]
+        else:
+            frame[c] = np.zeros(rows)
+    encode = ColumnTransformer(parts, remainder="drop", sparse_threshold=0.0,
+                               verbose_feature_names_out=False)
+    encode.fit(pd.DataFrame(frame))
+    return encode
+
+
+def _type_name(obj: Any) -> str:
+    return f"{type(obj).__module__}.{type(obj).__qualname__}"
+
+
+def pipeline_types(model: FinalModel) -> list[str]:
+    """The scikit-learn types the saved pipeline of ``model`` holds, in step order.
+
+    The "Use this model" snippet passes them to ``skops.io.load(trusted=...)`` as an
+    explicit allow-list (each is one of `EXPECTED_MODEL_TYPES`, which
+    `load_pipeline` checks).
+    """
+    pipe = sklearn_pipeline(model)
+    out = [_type_name(pipe)]
+    for _, step in pipe.steps:
+        for obj in [step] + [t for _, t, _ in getattr(step, "transformers", []) or []]:
+            if not isinstance(obj, str) and _type_name(obj) not in out:
+                out.append(_type_name(obj))
+    return out
 
 
 def warm() -> None:
@@ -687,22 +773,40 @@ def model_formula(model: FinalModel, digits: int = 7, max_terms: int = 12) -> st
 def usage(model: FinalModel, file: str = "model.skops") -> dict:
     """How to use the recommended model elsewhere: three lines of Python, the
     formula and the input range it was fitted on."""
-    # the middle of each input's range; indicator terms of a text input (column[level]) at 0
-    example = {name: [0.0 if (str(name).endswith("]") and "[" in str(name) and lo == 0
-                              and hi == 1) else float(np.round((lo + hi) / 2, 6))]
-               for name, lo, hi in zip(model.input_names, model.x_min, model.x_max)}
-    frame = ", ".join(f"{name!r}: {vals!r}" for name, vals in list(example.items())[:4])
-    if len(example) > 4:
-        frame += ", ..."
+    # the middle of each input's range; a text input (column[level] terms) at its
+    # reference level, as the column is written in the table
+    text = dict(getattr(model, "text_inputs", None) or {})
+    owner = {f"{c}[{lv}]": c for c, (_, levels) in text.items() for lv in levels}
+    example: dict[str, list] = {}
+    for name, lo, hi in zip(model.input_names, model.x_min, model.x_max):
+        col = owner.get(str(name))
+        if col is not None:
+            example.setdefault(col, [text[col][0]])
+        else:
+            example[name] = [float(np.round((lo + hi) / 2, 6))]
+    if len(example) <= 4 or text:
+        frame = ", ".join(f"{name!r}: {vals!r}" for name, vals in list(example.items())[:4])
+        if len(example) > 4:
+            frame += ", ..."
+        predict = f"model.predict(pd.DataFrame({{{frame}}}))"
+    else:   # many inputs: one row at the middle of every input's range (the scaler's centre)
+        predict = "model.predict(pd.DataFrame([model[0].mean_], columns=model.feature_names_in_))"
     python = ["import pandas as pd, skops.io as sio",
-              f"model = sio.load({file!r}, trusted=sio.get_untrusted_types(file={file!r}))",
-              f"model.predict(pd.DataFrame({{{frame}}}))"]
+              f"model = sio.load({file!r}, trusted={pipeline_types(model)!r})",
+              predict]
     return {"python": python,
-            "trust_note": f"Load only the {file} of this pack: loading trusts the scikit-learn "
-                          "types the file names. engine.pack.load_pipeline checks them first.",
+            "trust_note": f"Load only the {file} of this pack. The list names the scikit-learn "
+                          "types this model is made of; loading refuses any other type the "
+                          "file might hold. engine.pack.load_pipeline checks the same.",
             "formula": model_formula(model),
             "input_range": {name: [float(lo), float(hi)] for name, lo, hi in
-                            zip(model.input_names, model.x_min, model.x_max)}}
+                            zip(model.input_names, model.x_min, model.x_max)},
+            "text_inputs": {c: {"reference": ref, "levels": [ref, *levels]}
+                            for c, (ref, levels) in text.items()},
+            "text_note": " ".join(
+                f"Text input {c} takes the values {', '.join([ref, *levels])} as written; "
+                "any other value stops predict with an error (the model has no term for it)."
+                for c, (ref, levels) in text.items())}
 
 
 def _versions() -> dict:
@@ -713,8 +817,18 @@ def _versions() -> dict:
             "numpy": np.__version__, "pandas": pd.__version__, "scikit-learn": sklearn.__version__}
 
 
+def _recorded_load_options(load_options: dict | None) -> dict:
+    """How the data were read, as a re-run needs it (streamed packs also say so)."""
+    opts = load_options or {}
+    out = {"decimal": opts.get("decimal"), "sheet": opts.get("sheet")}
+    if opts.get("stream"):
+        out.update(stream=True, sample_rows=opts.get("sample_rows"))
+    return out
+
+
 def record_dict(spec: SweepSpec, data_facts: dict, roles: dict, cells: list[tuple[int, float]],
-                load_options: dict | None, source_path: str | None) -> dict:
+                load_options: dict | None, source_path: str | None,
+                error_unit: str = DEFAULT_ERROR_UNIT) -> dict:
     """The content of ``record.json``: what is needed to run the pack again."""
     rec = plain({
         "format": RECORD_FORMAT,
@@ -725,10 +839,10 @@ def record_dict(spec: SweepSpec, data_facts: dict, roles: dict, cells: list[tupl
                  "size_bytes": data_facts["size_bytes"], "rows_in": data_facts["rows_in"],
                  "rows_used": data_facts["rows_used"],
                  "rows_dropped": data_facts["rows_dropped"]},
-        "load_options": {"decimal": (load_options or {}).get("decimal"),
-                         "sheet": (load_options or {}).get("sheet")},
+        "load_options": _recorded_load_options(load_options),
         "roles": roles,
         "compare_cells": [[q, a] for q, a in cells],
+        "error_unit": error_unit,
         "versions": _versions(),
     })
     rec["request_sha256"] = request_fingerprint(rec)  # lets a re-run notice hand edits
@@ -890,6 +1004,49 @@ def _mse_words(c: dict, se_name: str = "") -> str:
     return f"{_num(c['validation_mse'])} ± {_num(c['validation_mse_se'], 2)}{tail}"
 
 
+def _error_words(c: dict, unit: str, se_name: str = "") -> str:
+    """`_mse_words` in ``unit``: ``0.9397 ± 0.12 (1 SE)`` for RMSE (delta-method SE)."""
+    v = error_in_unit(c["validation_mse"], unit)
+    if c.get("validation_mse_se") is None:
+        return f"{_num(v)}, one split so no standard error"
+    se = se_in_unit(c["validation_mse"], c["validation_mse_se"], unit)
+    tail = f" ({se_name})" if se_name else ""
+    return f"{_num(v)} ± {_num(se, 2)}{tail}"
+
+
+def headline_dict(s: dict, unit: str = DEFAULT_ERROR_UNIT) -> dict:
+    """The headline of the summary with every error in one unit (``'mse'`` or ``'rmse'``).
+
+    ``summary.json`` carries it as ``headline``; ``summary.md`` and ``summary.html``
+    write their headline sentence and figures from it, so all three agree.
+    """
+    if unit not in ERROR_UNITS:
+        raise InputProblem(f"Unknown error unit '{unit}'; choose one of "
+                           f"{', '.join(ERROR_UNITS)}.", code="bad_error_unit")
+    r, b = s["recommended"], s["best"]
+    name = ERROR_UNITS[unit]
+    se = r.get("validation_mse_se")
+    b_se = b.get("validation_mse_se")
+    reason = reason_in_unit(r["reason"], r["validation_mse"], b["validation_mse"],
+                            b_se if b_se is not None else float("nan"), unit,
+                            diff_se=r.get("paired_difference_se"))
+    figures = (f"Validation {name} {_error_words(r, unit, 'one standard error')}; "
+               f"validation R² {_num(r['validation_r2'])}; "
+               f"{_num(r['effective_df'], 3)} effective parameters")
+    best = (f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}"
+            f"{rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used'))}: "
+            f"validation {name} {_error_words(b, unit)}")
+    return {"unit": unit, "unit_name": name,
+            "validation_error": error_in_unit(r["validation_mse"], unit),
+            "validation_error_se": None if se is None else
+            se_in_unit(r["validation_mse"], se, unit),
+            "best_error": error_in_unit(b["validation_mse"], unit),
+            "best_error_se": None if b_se is None else
+            se_in_unit(b["validation_mse"], b_se, unit),
+            "sentence": f"Recommended: {_headline(s)}. {figures}.",
+            "figures": figures, "reason": reason, "best": best}
+
+
 def _se_method_words(s: dict) -> str:
     """``; standard errors from ...`` for the paired rule, else nothing."""
     m = s.get("rule_se_method")
@@ -941,14 +1098,10 @@ def render_markdown(s: dict) -> str:
     d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
     tgt = escape_name(roles["target"])
     lines = [f"# Model choice for {tgt}", ""]
-    lines += [f"**Recommended: {_headline(s)}.** Validation RMSE {_num(r['validation_rmse'])}; "
-              f"MSE {_mse_words(r, 'one standard error')}; validation R² "
-              f"{_num(r['validation_r2'])}; "
-              f"{_num(r['effective_df'], 3)} effective parameters.", "",
-              f"Why: {md_escape(r['reason'])}", "",
-              f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}"
-              f"{rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used'))}: validation MSE "
-              f"{_mse_words(b)}. "
+    h = s.get("headline") or headline_dict(s)
+    lines += [f"**Recommended: {_headline(s)}.** {h['figures']}.", "",
+              f"Why: {md_escape(h['reason'])}", "",
+              f"{h['best']}. "
               f"Rule: {md_escape(s['rule'])}{_se_method_words(s)}.", ""]
     lines += ["## Data", "",
               f"- File: {escape_name(d['file'])}",
@@ -1022,16 +1175,18 @@ def render_markdown(s: dict) -> str:
         lines += ["", md_escape(line)]
     lines += ["", "## Caution", "", CAUTION, "",
               "Charts: " + ", ".join(f"{stem}.png" for stem in CHART_FILES) + ". Tables: "
-              "validation_grid.csv, learning_curve.csv, coefficients.csv, warnings.csv, "
-              "model_coefficients.csv, interval_coverage.csv, more_rows.csv. Model: "
+              "validation_grid.csv, validation_per_split.csv, learning_curve.csv, coefficients.csv, "
+              "warnings.csv, model_coefficients.csv, interval_coverage.csv, more_rows.csv. Model: "
               "model.skops (scikit-learn pipeline).", ""]
     return "\n".join(lines)
 
 
-def sureness(analysis: Analysis, data: DataLike, spec: SweepSpec) -> tuple[Any, Any, list[str]]:
+def sureness(analysis: Analysis, data: DataLike, spec: SweepSpec,
+             learning: Any | None = None) -> tuple[Any, Any, list[str]]:
     """Intervals (`engine.intervals.how_sure`) and the larger-table outlook
     (`engine.extrapolation.more_rows`) of the recommended cell; a part that cannot be
-    computed is None, with the reason in the returned notes."""
+    computed is None, with the reason in the returned notes. ``learning``: a learning
+    curve of every order already made, reused by the outlook."""
     from .extrapolation import more_rows
     from .intervals import how_sure
     notes: list[str] = []
@@ -1041,7 +1196,7 @@ def sureness(analysis: Analysis, data: DataLike, spec: SweepSpec) -> tuple[Any, 
     except InputProblem as exc:
         notes.append(f"Intervals not computed: {exc.message}")
     try:
-        outlook = more_rows(analysis, data, spec)
+        outlook = more_rows(analysis, data, spec, learning=learning)
     except InputProblem as exc:
         notes.append(f"Larger-table outlook not computed: {exc.message}")
     return sure, outlook, notes
@@ -1278,12 +1433,16 @@ def _use_html(s: dict) -> str:
     return (f"<div class=\"use\"><b>Use this model.</b> In Python, with pandas, scikit-learn "
             f"and skops:<pre>{code}</pre><b>Formula</b> (7 significant digits; full precision "
             f"in model_coefficients.csv): {_h(u['formula'])}. <b>Valid for</b> inputs inside "
-            f"the range it was fitted on: {ranges}. Predictions outside it were not checked.</div>")
+            f"the range it was fitted on: {ranges}. Predictions outside it were not checked."
+            + (f" {_h(u['text_note'])}" if u.get("text_note") else "") + "</div>")
 
 
 def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
     """``summary.html``: one printed page; charts embedded as base64 PNG; user text escaped."""
     d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
+    hd = s.get("headline") or headline_dict(s)
+    hd_se = (", one split so no standard error" if hd["validation_error_se"] is None
+             else f" ± {_num(hd['validation_error_se'], 2)} (1 SE)")
     tgt = _h(roles["target"])
     inputs = ", ".join(_h(c) for c in roles["inputs"])
     if len(roles["inputs"]) > 8:
@@ -1339,12 +1498,10 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
 <div class="top">
  <div class="verdict">
   <div class="big">Recommended: {_h(_headline(s))}</div>
-  <div class="fig">Validation RMSE <b>{_num(r['validation_rmse'])}</b> ·
-   MSE {_h(_mse_words(r, '1 SE'))} · R² {_num(r['validation_r2'])} ·
-   {_num(r['effective_df'], 3)} effective parameters</div>
-  <div>{_h(r['reason'])}</div>
-  <div style="margin-top:.8mm">Best cell: order {b['order']}, {_h(_penalty_words(b['penalty']))}{_h(rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used')))}
-   (MSE {_h(_mse_words(b))}).
+  <div class="fig">Validation {_h(hd['unit_name'])} <b>{_num(hd['validation_error'])}</b>{hd_se} ·
+   R² {_num(r['validation_r2'])} · {_num(r['effective_df'], 3)} effective parameters</div>
+  <div>{_h(hd['reason'])}</div>
+  <div style="margin-top:.8mm">{_h(hd['best'])}.
    Chosen by the {_h(s['rule'].split(':')[0].replace('one-standard-error', 'one-SE'))}.</div>
  </div>
  <div>
@@ -1457,6 +1614,8 @@ def _write_files(work: Path, summary: dict, record: dict, pngs: dict[str, bytes]
         (work / f"{stem}.png").write_bytes(pngs[stem])
         put_text(f"{stem}.svg", svgs[stem])
     write_csv(full.validation, work / "validation_grid.csv")
+    # one row per (cell, split); leave-one-out: one row per (cell, held-out row)
+    write_csv(full.sweep.fold_table(), work / "validation_per_split.csv")
     write_csv(lc.table, work / "learning_curve.csv")
     write_csv(full.sweep.coefficient_table(), work / "coefficients.csv")
     write_csv(pd.DataFrame(findings, columns=["number", "code", "severity", "message", "value",
@@ -1477,7 +1636,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                model_file_in_background: bool = False, analyses: list[Analysis] | None = None,
                targets: pd.DataFrame | None = None, models: dict | None = None,
                learning: Any | None = None, trust: tuple | None = None,
-               overwrite: bool = False, sure: tuple | None = None) -> PackResult:
+               overwrite: bool = False, sure: tuple | None = None,
+               error_unit: str = DEFAULT_ERROR_UNIT) -> PackResult:
     """Write the meeting pack for one request into ``out_dir``.
 
     Whatever the caller already computed (the dashboard: its sweep, checks,
@@ -1521,6 +1681,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     sure : ``(HowSure or None, RowsOutlook or None, notes)`` as `sureness`
         returns it (or a future of it), already computed for this analysis;
         computed when None.
+    error_unit : ``'mse'`` or ``'rmse'`` (`engine.labels.ERROR_UNITS`): the one unit
+        of every error in the headline of ``summary.md``, ``summary.html`` and
+        ``summary.json`` (``headline``); the page's choice or ``--errors``.
 
     Returns
     -------
@@ -1532,6 +1695,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         For a request or data that cannot be analysed, or a compare order
         outside the sweep.
     """
+    if error_unit not in ERROR_UNITS:
+        raise InputProblem(f"Unknown error unit '{error_unit}'; choose one of "
+                           f"{', '.join(ERROR_UNITS)}.", code="bad_error_unit")
     direct = isinstance(out_dir, _Direct)
     opened = out_dir if isinstance(out_dir, PackFolder) else None
     out = out_dir.path if direct else opened.out if opened is not None else Path(out_dir)
@@ -1543,7 +1709,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                                    checks=checks, compare_orders=compare_orders, renderer=renderer,
                                    load_options=load_options, source_path=source_path,
                                    model_file_in_background=model_file_in_background,
-                                   overwrite=overwrite)
+                                   overwrite=overwrite, error_unit=error_unit)
     if analysis is None:
         analysis = analyse(data, spec, progress=_stage(progress, 0.0, 0.55))
     elif (getattr(analysis, "request", None) or analysis.spec) != spec:
@@ -1563,8 +1729,11 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     missing = [c for c in cells if c not in given]
     if missing:
         given.update(fit_candidates(data, analysis.spec, missing, family=rec.family,
-                                    l1_ratio=rec.l1_ratio))
+                                    l1_ratio=rec.l1_ratio, summary=analysis.all_rows_summary()))
     models = {c: given[c] for c in cells}
+    for m in models.values():   # fits made elsewhere: the text inputs for the saved pipeline
+        if not m.text_inputs:
+            attach_text_inputs(m, getattr(source_data, "factors", None))
     model = models[_cell_key(rec.order, rec.penalty)]
     # the pack is made in a hidden sibling of `out` and moved into place when complete
     with ExitStack() as stack:
@@ -1590,8 +1759,13 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             progress(0.62, "Learning curve")
         lc_orders = sorted({q for q, _ in learning_cells(cells)})
         lc = learning
+        lc_all = None
         if lc is None or not set(lc_orders) <= {int(q) for q in lc.table["order"]}:
-            lc = learning_curve(data, analysis.spec, orders=lc_orders)
+            # every order at once (one pass): the larger-table outlook reads the same curve
+            lc_all = learning_curve(data, analysis.spec,
+                                    orders=sorted(set(analysis.spec.order_list()) | set(lc_orders)),
+                                    pieces=analysis.learning_pieces)
+            lc = lc_all.restrict(orders=lc_orders)
         if progress:
             progress(0.66, "Intervals and the larger-table outlook")
         drawing.append(renderer.submit({stem: _charts.for_print(ch, 75) for stem, ch in make_charts(
@@ -1602,7 +1776,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             except Exception:  # noqa: BLE001 - computed here instead
                 sure = None
         sure, outlook, sure_notes = sure if sure is not None else sureness(analysis, data,
-                                                                            analysis.spec)
+                                                                            analysis.spec, lc_all)
         band = None
         if sure is not None and (sure.order, sure.penalty) in {_cell_key(q, a) for q, a in cells}:
             from .intervals import band_table
@@ -1619,8 +1793,10 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             if progress:
                 progress(0.72, "Checks")
             from .checks import run_checks
+            shared = (sure.prediction.oof if sure is not None and (sure.order, sure.penalty)
+                      == _cell_key(rec.order, rec.penalty) else None)
             checks = run_checks(data, analysis, cells, progress=_stage(progress, 0.72, 0.76),
-                                models=models)
+                                models=models, oof=shared)
         findings = _finding_dicts(checks)
         facts = _data_facts(source_data, loaded, source_name)
         if full.rows_left_out:
@@ -1643,7 +1819,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                               "selection_stability": _stability_dict(stability, analysis),
                               "use": usage(model)}))
         summary.update(sureness_dict(sure, outlook, sure_notes))
-        record = record_dict(spec, facts, roles, cells, load_options, source_path)
+        summary["headline"] = plain(headline_dict(summary, error_unit))
+        record = record_dict(spec, facts, roles, cells, load_options, source_path, error_unit)
         if progress:
             progress(0.90, "Writing files")
         try:

@@ -68,7 +68,9 @@ def _spec_schema() -> dict:
                              {"type": "array", "items": _ORDER, "minItems": 1,
                               "maxItems": 31}]},
         "interactions": {"type": "boolean"},
-        "penalties": {"type": "array", "items": _PENALTY, "minItems": 1, "maxItems": 1000},
+        # empty: zero plus a range fitted to the data (`engine.penalty_range`), found again
+        # by a re-run from the same rows
+        "penalties": {"type": "array", "items": _PENALTY, "minItems": 0, "maxItems": 1000},
         "scheme": _scheme_schema(),
         "seed": {"type": "integer", "minimum": 0, "maximum": 2**63 - 1},
         "learning_sizes": {"type": "array", "minItems": 1, "maxItems": 100,
@@ -104,13 +106,16 @@ RECORD_SCHEMA: dict = {
                 "file": _OPT_NAME,
                 "path": {"anyOf": [{"type": "null"},
                                    {"type": "string", "minLength": 1, "maxLength": 4096}]},
-                "sha256": {"type": "string", "pattern": "^[0-9a-f]{64}$"},
+                "sha256": {"anyOf": [{"type": "null"},   # a URL read by a cluster
+                                     {"type": "string", "pattern": "^[0-9a-f]{64}$"}]},
                 "size_bytes": {"anyOf": [{"type": "null"}, _COUNT]},
                 "rows_in": _COUNT, "rows_used": _COUNT, "rows_dropped": _COUNT,
             }},
         "load_options": {
             "type": "object", "additionalProperties": False,
             "properties": {"decimal": {"enum": [None, ".", ","]},
+                           "stream": {"type": "boolean"},
+                           "sample_rows": {"anyOf": [{"type": "null"}, _COUNT]},
                            "sheet": {"anyOf": [{"type": "null"}, _NAME,
                                                {"type": "integer", "minimum": 0,
                                                 "maximum": 10_000}]}}},
@@ -125,6 +130,7 @@ RECORD_SCHEMA: dict = {
             "type": "array", "maxItems": 50,
             "items": {"type": "array", "prefixItems": [_ORDER, _PENALTY],
                       "minItems": 2, "maxItems": 2}},
+        "error_unit": {"enum": ["mse", "rmse"]},
         "versions": {"type": "object",
                      "additionalProperties": {"type": ["string", "null"], "maxLength": 200}},
     },

@@ -153,15 +153,22 @@ def screen_inputs(frame: pd.DataFrame, target: str, candidates: Iterable[str]
     cands = [c for c in candidates if c != target]
     left: dict[str, str] = {}
     for c in cands:
-        if column_kind(_values(frame, c), c) == "row_number":
+        # only a row-number name can hold a row number: look at the values of those only
+        if ROW_NUMBER_NAMES.match(str(c) or "#") and \
+                column_kind(_values(frame, c), c) == "row_number":
             left[c] = _KIND_WHY["row_number"]
     rest = [c for c in cands if c not in left]
     if rest:
         y = _values(frame, target)
-        X = np.column_stack([_values(frame, c) for c in rest])
-        ok = np.isfinite(y) & np.all(np.isfinite(X), axis=1)
-        if ok.sum() >= SCREEN_MIN_ROWS and np.ptp(y[ok]) > 0:
-            found = leakage.find_reproductions(X[ok], y[ok], rest, str(target))
+        X = np.empty((y.size, len(rest)), order="F")     # columns written and read whole
+        ok = np.isfinite(y)
+        for j, c in enumerate(rest):
+            X[:, j] = _values(frame, c)
+            ok &= np.isfinite(X[:, j])
+        if not ok.all():
+            X, y = X[ok], y[ok]
+        if ok.sum() >= SCREEN_MIN_ROWS and np.ptp(y) > 0:
+            found = leakage.find_reproductions(X, y, rest, str(target))
             named = {c for r in found for c in r.columns}
             others = [c for c in rest if c not in named]
             for r in found:

@@ -31,6 +31,7 @@ import numpy as np
 
 from .design import PolynomialBasis
 from .errors import InputProblem
+from .fingerprint import folder_files
 from .moments import Moments, design_moments, merge_into
 
 #: Rows per record batch read from a file.
@@ -103,8 +104,7 @@ def accumulate_batches(batches: Iterable[tuple[np.ndarray, np.ndarray, np.ndarra
 # ---------------------------------------------------------------------------
 def _files(path: Path) -> tuple[str, list[Path]]:
     if path.is_dir():
-        files = sorted(p for p in path.rglob("*") if p.is_file()
-                       and p.suffix.lower() in (".parquet", ".pq"))
+        files = folder_files(path)   # the order the folder's fingerprint uses too
         if not files:
             raise InputProblem(f"The folder '{path}' holds no Parquet files (.parquet).",
                                code="not_found")

@@ -98,6 +98,10 @@ class SweepResult:
     row_comoment: np.ndarray | None = None   # (O*K, O*K) centred co-moment of squared errors
     statistics: tuple | None = field(default=None, repr=False)   # split summaries
     row_fits: list | None = field(default=None, repr=False)      # one split: fits for the row pass
+    pieces: list | None = field(default=None, repr=False)        # per-round piece summaries
+    # leave-one-out: (n, cells) squared error of each held-out row (NaN where undefined),
+    # columns in validation-table order
+    loo_rows: np.ndarray | None = field(default=None, repr=False)
 
     def __post_init__(self) -> None:
         K = int(np.asarray(self.penalties).size)
@@ -136,7 +140,17 @@ class SweepResult:
             loo=self.loo, loo_se=None if self.loo_se is None else self.loo_se[:, pick],
             plan_description=self.plan_description, notes=list(self.notes),
             families=[self.families[k] for k in pick], l1_ratios=np.asarray(self.l1_ratios)[pick],
-            rung_keys=self.rung_keys)
+            rung_keys=self.rung_keys,
+            loo_rows=None if self.loo_rows is None else self.loo_rows.reshape(
+                self.loo_rows.shape[0], len(self.orders), -1)[:, :, pick].reshape(
+                self.loo_rows.shape[0], -1))
+
+    @property
+    def n_splits(self) -> int:
+        """Number of train/validation splits: for leave-one-out, one per held-out row."""
+        if self.loo:
+            return int(self.n_train[0]) + 1
+        return int(self.n_train.size)
 
     def validation_errors(self) -> np.ndarray:
         """(cells, splits) validation MSE, rows aligned with `validation_table`."""
@@ -190,13 +204,36 @@ class SweepResult:
             "validation_mse_se": np.asarray(v_se).ravel(),
             "validation_rmse": np.sqrt(vm).ravel(),
             "validation_r2": r2m.ravel(),
-            "folds": int(self.n_train.size),
+            "folds": self.n_splits,
             **{k: v for k, v in cols.items() if k not in ("order", "penalty")},
         })
 
     def fold_table(self) -> pd.DataFrame:
-        """Long table: one row per (order, penalty, split)."""
+        """Long table: one row per (cell, split).
+
+        For leave-one-out a split is one held-out row: one row per (cell, held-out
+        row), ``fold`` the row's number (1-based, in the order of the prepared data),
+        ``validation_mse`` its squared leave-one-out error (empty where the model
+        passes through the row exactly), ``validation_r2`` empty (one row has no R²)
+        and ``train_mse`` that of the fit on all rows, as in the validation table.
+        """
         O, K, S = self.valid_mse.shape
+        if self.loo and self.loo_rows is not None:
+            n = self.loo_rows.shape[0]
+            cell = np.repeat(np.arange(O * K), n)
+            oi, ki = cell // K, cell % K
+            cols = self._cell_columns(oi, ki)
+            return pd.DataFrame({
+                "order": cols["order"],
+                "penalty": cols["penalty"],
+                "fold": np.tile(np.arange(1, n + 1), O * K),
+                "train_mse": self.train_mse[oi, ki, 0],
+                "validation_mse": self.loo_rows.T.ravel(),
+                "validation_r2": np.full(cell.size, np.nan),
+                "n_train": np.full(cell.size, n - 1),
+                "n_validation": np.ones(cell.size, dtype=int),
+                **{k: v for k, v in cols.items() if k not in ("order", "penalty")},
+            })
         oi, ki, si = np.meshgrid(np.arange(O), np.arange(K), np.arange(S), indexing="ij")
         cols = self._cell_columns(oi.ravel(), ki.ravel())
         return pd.DataFrame({
@@ -330,6 +367,7 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     if plan.loo:
         return _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress,
                           plan.description)
+    stats = None
     if statistics is None:
         stats = []
         for r, rnd in enumerate(plan.rounds):
@@ -347,6 +385,7 @@ def run_sweep(X: np.ndarray, y: np.ndarray, basis: PolynomialBasis, plan: FoldPl
     res = sweep_summaries(statistics, term_sets, A, a0, pen, families,
                           plan.description, progress)
     res.repeats = len(plan.rounds) if plan.kind == "repeated" else 1
+    res.pieces = stats
     add_row_errors(res, X, y, basis, plan)
     return res
 
@@ -542,6 +581,7 @@ def _loo_sweep(X, y, basis, term_sets, pen, families, A, a0, progress, desc) -> 
             progress((i + 1) / len(term_sets), "Leave-one-out, " + _fit_message(ts)[8:])
     Z = np.hstack(per_row)
     del per_row
+    res.loo_rows = Z.copy()    # each held-out row's squared error: the per-split table
     clean = np.all(np.isfinite(Z), axis=1)
     if clean.sum() > 1:
         Z = Z[clean]

@@ -102,6 +102,25 @@ def test_rerun_reproduces_summary_json_exactly(cli_pack, tmp_path):
         assert (again / name).read_bytes() == (out / name).read_bytes(), name
 
 
+def test_rerun_of_the_default_penalty_range_finds_the_same_grid(tmp_path, demo_dir, capsys):
+    """With no --penalties the record asks for a range fitted to the data (an empty list);
+    a re-run fits it again from the same rows and reproduces the pack."""
+    data = demo_dir / "calibration_curve.csv"
+    out = tmp_path / "pack"
+    code, _, err = _call(["run", str(data), "--target", "bath_temp_C", "--out", str(out)],
+                         capsys)
+    assert code == 0, err
+    rec = json.loads((out / "record.json").read_text())
+    assert rec["spec"]["penalties"] == []
+    code, _, err = _call(["rerun", str(out / "record.json"), "--data", str(data), "--out",
+                          str(tmp_path / "again")], capsys)
+    assert code == 0, err
+    assert (tmp_path / "again" / "summary.json").read_bytes() == \
+        (out / "summary.json").read_bytes()
+    assert (tmp_path / "again" / "validation_grid.csv").read_bytes() == \
+        (out / "validation_grid.csv").read_bytes()
+
+
 def test_rerun_with_changed_data_is_refused(cli_pack, tmp_path, capsys):
     proc, out, data = cli_pack
     assert proc.returncode == 0, proc.stderr

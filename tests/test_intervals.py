@@ -258,3 +258,138 @@ def test_extrapolation_declines_in_plain_words_when_the_curve_does_not_fall():
     assert out.declined and out.supported_order[5.0] is None
     assert "does not fall steadily" in out.verdict[0]
     assert "rises from 0.802 at 40 rows to 1.602 at 60" in out.verdict[0]
+
+
+# ---------------------------------------------------------------------------
+# large tables: the same quantities from group summaries and one residual pass
+# ---------------------------------------------------------------------------
+def test_row_sets_split_into_atoms_like_numpy_unique_on_membership_rows():
+    # Reference: numpy.unique over the rows of the explicit (rows x sets) membership
+    # matrix; the atoms must be exactly its distinct non-empty rows.
+    from engine.intervals import _atoms
+    rng = np.random.default_rng(3)
+    n = 500
+    sets = [np.flatnonzero(rng.random(n) < 0.5) for _ in range(90)]   # > 40 sets: renumbering
+    labels, n_atoms, member = _atoms(n, sets + [np.arange(0)])
+    B = np.zeros((n, len(sets) + 1), dtype=bool)
+    for j, s in enumerate(sets):
+        B[s, j] = True
+    uniq, inv = np.unique(B, axis=0, return_inverse=True)
+    used = B.any(axis=1)
+    assert n_atoms == int(uniq.any(axis=1).sum())
+    assert np.all((labels >= 0) == used)
+    # same partition of the used rows, and each atom's membership is its rows' membership
+    pairs = set(zip(labels[used].tolist(), inv.ravel()[used].tolist()))
+    assert len(pairs) == n_atoms
+    np.testing.assert_array_equal(member[:, labels[used]].T.astype(bool), B[used])
+
+
+def test_grouped_nested_cv_of_a_large_table_matches_scikit_learn_on_the_same_folds(monkeypatch):
+    # Reference: Bates, Hastie, Tibshirani (JASA 2023), Algorithm 1, with scikit-learn
+    # LinearRegression fitted row by row on exactly the folds the large-table route uses
+    # (rows dealt once into seeded groups, groups dealt afresh into folds per repetition).
+    import engine.intervals as iv
+    monkeypatch.setattr(iv, "LARGE_ROWS", 100)
+    n, K, R, seed = 600, 3, 2, 11
+    x, y = _cubic(n, 21)
+    spec = _spec(seed=seed)
+    ei = error_interval(ArrayData(x, y), spec, 3, 0.0, repeats=R, folds=K, level=0.9)
+    assert "groups" in ei.notes[-1] and f"seed {seed}" in ei.notes[-1]
+    X = np.column_stack([x ** k for k in (1, 2, 3)])
+    G = K * iv.GROUPS_PER_FOLD
+    group = np.empty(n, dtype=np.int64)
+    group[np.random.default_rng(seed).permutation(n)] = np.arange(n) % G
+    a_list, b_list, e_in_all, e_out_all = [], [], [], []
+    for r in range(R):
+        of = np.empty(G, dtype=np.int64)
+        of[np.random.default_rng(seed + r).permutation(G)] = np.arange(G) % K
+        fold = of[group]
+        for k in range(K):
+            te, tr = np.flatnonzero(fold == k), np.flatnonzero(fold != k)
+            e_out = (y[te] - LinearRegression().fit(X[tr], y[tr]).predict(X[te])) ** 2
+            e_in = []
+            for j in range(K):
+                if j == k:
+                    continue
+                itr = np.flatnonzero((fold != k) & (fold != j))
+                iva = np.flatnonzero(fold == j)
+                m = LinearRegression().fit(X[itr], y[itr])
+                e_in.append((y[iva] - m.predict(X[iva])) ** 2)
+            e_in = np.concatenate(e_in)
+            a_list.append((e_in.mean() - e_out.mean()) ** 2)
+            b_list.append(e_out.var(ddof=1) / e_out.size)
+            e_in_all.append(e_in)
+            e_out_all.append(e_out)
+    err_ncv = np.concatenate(e_in_all).mean()
+    e_all = np.concatenate(e_out_all)
+    err_cv = e_all.mean()
+    naive = e_all.std(ddof=1) / math.sqrt(n)
+    se = math.sqrt(max(np.mean(a_list) - np.mean(b_list), 0) * (K - 1) / K)
+    se = min(max(se, naive), math.sqrt(K) * naive)
+    centre = err_ncv - (1 + (K - 2) / K) * (err_ncv - err_cv)
+    assert ei.cv_estimate == pytest.approx(err_cv, rel=1e-9)
+    assert ei.naive_se == pytest.approx(naive, rel=1e-9)
+    assert ei.se == pytest.approx(se, rel=1e-9)
+    assert ei.estimate == pytest.approx(centre, rel=1e-9)
+    assert ei.repeats == R and ei.folds == K
+
+
+def test_large_table_prediction_intervals_match_row_by_row_fits(monkeypatch):
+    # Reference: scikit-learn Ridge on PolynomialFeatures -> StandardScaler, fitted row by
+    # row on each split's training rows; the CV+ radii are the sorted absolute validation
+    # residuals (Barber et al. 2021), here formed from summaries and one residual pass.
+    import engine.intervals as iv
+    monkeypatch.setattr(iv, "LARGE_ROWS", 100)
+    x, y = _cubic(400, 22)
+    a = 0.3
+    spec = _spec(penalty=a, seed=5)
+    pi = prediction_intervals(ArrayData(x, y), spec, 3, a)
+    from engine.analysis import plan_for
+    plan = plan_for(ArrayData(x, y), spec.scheme, spec.seed)
+    for s, (tr, va) in enumerate(zip(plan.train_sets, plan.valid_sets)):
+        m = make_pipeline(PolynomialFeatures(3, include_bias=False), StandardScaler(),
+                          Ridge(alpha=a)).fit(x[tr, None], y[tr])
+        want = np.sort(np.abs(y[va] - m.predict(x[va, None])))
+        np.testing.assert_allclose(pi.radii[s], want, rtol=1e-8, atol=1e-10)
+
+
+def test_outlook_from_a_shared_learning_curve_equals_its_own_run():
+    # The pack runs one learning curve of every order and every penalty and the outlook
+    # reads its rows; each row is computed on its own, so the outlook must equal the one
+    # that runs its own curve at just the penalties it needs.
+    from engine.extrapolation import more_rows
+    x, y = _cubic(600, 12)
+    spec = SweepSpec("y", ("x",), orders=(1, 2, 3, 4), penalties=(0.0, 0.1, 1.0),
+                     scheme=SchemeSpec("kfold", folds=4))
+    data = ArrayData(x, y)
+    an = analyse(data, spec)
+    own = more_rows(an, data)
+    shared = more_rows(an, data, learning=learning_curve(data, an.spec))
+    pd.testing.assert_frame_equal(shared.table, own.table, check_exact=False, rtol=1e-9)
+    assert shared.verdict == own.verdict
+
+
+@pytest.mark.parametrize("scheme", [SchemeSpec("kfold", folds=5), SchemeSpec("blocked", folds=4, gap=5)])
+def test_prediction_intervals_from_the_sweep_pieces_match_row_by_row_fits(scheme):
+    # Every training set of the intervals is a union of the sweep's pieces. Reference:
+    # scikit-learn StandardScaler -> Ridge on the raw powers, fitted row by row on each
+    # split's training rows (CV+ radii) and on the folds inside them (coverage).
+    x, y = _cubic(500, 23)
+    a = 0.2
+    spec = SweepSpec("y", ("x",), orders=(1, 2, 3, 4), penalties=(0.0, a), scheme=scheme, seed=3)
+    data = ArrayData(x, y)
+    an = analyse(data, spec)
+    from engine.intervals import CellDesign, _from_pieces
+    assert _from_pieces(an.plan, an.sweep.pieces, an.basis,
+                        CellDesign.make(data, spec, 3, a)) is not None   # the pieces route runs
+    rows = prediction_intervals(data, spec, 3, a)
+    shared = prediction_intervals(data, spec, 3, a, plan=an.plan, pieces=an.sweep.pieces,
+                                  pieces_basis=an.basis)
+    P = np.column_stack([x ** k for k in (1, 2, 3)])
+    for s, (tr, va) in enumerate(zip(an.plan.train_sets, an.plan.valid_sets)):
+        m = make_pipeline(StandardScaler(), Ridge(alpha=a)).fit(P[tr], y[tr])
+        want = np.sort(np.abs(y[va] - m.predict(P[va])))
+        np.testing.assert_allclose(shared.radii[s], want, rtol=1e-8, atol=1e-10)
+    pd.testing.assert_frame_equal(shared.per_split, rows.per_split, check_exact=False, rtol=1e-9)
+    assert shared.cvplus_width == pytest.approx(rows.cvplus_width, rel=1e-9)
+    assert shared.analytic_width == pytest.approx(rows.analytic_width, rel=1e-9)

@@ -337,6 +337,38 @@ def test_parquet_round_trip(tmp_path):
     assert table.frame["site"].tolist()[:2] == ["n", "s"]
 
 
+def test_parquet_decimal_columns_are_read_as_numbers(tmp_path):
+    # fixed-point columns (pyarrow decimal128 / decimal256, as databases and Spark write
+    # them) are numbers: each value equals Python's float() of the exact decimal
+    # (the reference is the standard library's decimal module, not the loader)
+    import decimal
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+    D = decimal.Decimal
+    price = [D("12.50"), D("-0.01"), None, D("99999999.99"), D("0.10")]
+    mass = [D("1.0000000001"), D("2.5"), D("-3.1415926535"), D("0"), None]
+    wide = [D("123456789012345678901234.5"), D("1"), D("-2"), D("3"), D("4")]
+    table = pa.table({"unit price": pa.array(price, pa.decimal128(10, 2)),
+                      "mass_kg": pa.array(mass, pa.decimal128(38, 10)),
+                      "big": pa.array(wide, pa.decimal256(40, 1)),
+                      "y": [1.0, 2.0, 3.0, 4.5, 5.0]})
+    path = tmp_path / "fixed_point.parquet"
+    pq.write_table(table, path)
+    loaded = load_table(path)
+    assert loaded.report.numeric_columns == ["unit price", "mass_kg", "big", "y"]
+    assert loaded.report.ignored_columns == []
+    for name, values in (("unit price", price), ("mass_kg", mass), ("big", wide)):
+        got = loaded.frame[name]
+        assert got.dtype == np.float64, name
+        expected = np.array([np.nan if v is None else float(v) for v in values])
+        np.testing.assert_array_equal(got.to_numpy(), expected, err_msg=name)
+    data = prepare(loaded.frame, "y", ["unit price", "mass_kg"])
+    assert data.rows_dropped == 2 and data.inputs == ("unit price", "mass_kg")
+    np.testing.assert_array_equal(data.X[:, 0], [12.5, -0.01, 99999999.99])
+    assert data.X[1, 1] == float(D("2.5"))
+
+
 def test_parquet_with_infinite_value(tmp_path):
     path = tmp_path / "inf.parquet"
     pd.DataFrame({"x": [1.0, 2.0], "y": [0.0, -np.inf]}).to_parquet(path, index=False)

@@ -108,6 +108,50 @@ def test_command_line_streams_a_folder_of_parquet_files(tmp_path, capsys):
     assert status == 2 and "kfold only" in capsys.readouterr().err
 
 
+
+@pytest.mark.parametrize("kind", ["csv", "folder"])
+def test_streamed_pack_records_a_fingerprint_and_reruns(kind, tmp_path, capsys):
+    import hashlib
+
+    f = _table(3000, seed=4)
+    if kind == "csv":
+        source = tmp_path / "log.csv"
+        f.to_csv(source, index=False)
+        # the file's own SHA-256 (hashlib, the standard library's reference)
+        want = hashlib.sha256(source.read_bytes()).hexdigest()
+    else:
+        source = tmp_path / "parts"
+        source.mkdir()
+        for i in range(3):
+            f.iloc[i * 1000:(i + 1) * 1000].to_parquet(source / f"p{i}.parquet")
+        want = None
+    out = tmp_path / "pack"
+    assert main(["run", str(source), "--stream", "--target", "y", "--max-order", "3",
+                 "--sample-rows", "700", "--out", str(out)]) == 0, capsys.readouterr().err
+    rec = json.loads((out / "record.json").read_text())
+    sha = rec["data"]["sha256"]
+    assert isinstance(sha, str) and len(sha) == 64
+    if want is not None:
+        assert sha == want
+    assert rec["load_options"]["stream"] is True and rec["load_options"]["sample_rows"] == 700
+    again = tmp_path / "again"
+    assert main(["rerun", str(out / "record.json"), "--data", str(source), "--out",
+                 str(again)]) == 0, capsys.readouterr().err
+    assert (again / "summary.json").read_bytes() == (out / "summary.json").read_bytes()
+    # one changed value in one file: the fingerprint no longer matches and nothing is read
+    if kind == "csv":
+        source.write_text(source.read_text().replace("\n", "\n", 1) + "\n")
+    else:
+        g = f.iloc[1000:2000].copy()
+        g.iloc[0, 0] += 1.0
+        g.to_parquet(source / "p1.parquet")
+    capsys.readouterr()
+    assert main(["rerun", str(out / "record.json"), "--data", str(source), "--out",
+                 str(tmp_path / "third")]) == 2
+    err = capsys.readouterr().err
+    assert "not the one recorded" in err and "--data" in err
+    assert not (tmp_path / "third" / "summary.json").exists()
+
 @pytest.mark.cluster
 def test_dask_partitions_give_the_streamed_statistics(tmp_path):
     distributed = pytest.importorskip("distributed")
