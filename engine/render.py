@@ -7,7 +7,7 @@ a loop of Python work ran at about a tenth of its speed while a thread drew).
 process with a single thread that has not started vl-convert itself, such as
 the command line): the child starts vl-convert at once, while the caller
 still computes, and draws every batch of charts sent to it. Elsewhere (the
-dashboard's server runs threads) it draws in a background thread, as before.
+dashboard's server runs threads) one background thread draws the batches.
 Either way each chart is laid out once: the PNG is rasterised from the SVG.
 
 This module imports neither Altair nor vl-convert until it draws.
