@@ -1,8 +1,9 @@
 """Meeting-pack preparation on the 24-row calibration demo, after the page has run.
 
 The dashboard has already computed the sweep, the checks, the side-by-side
-fits and the learning curve when the user clicks "Meeting pack"; it also
-warms the chart renderer and imports skops in its background worker. This
+fits, the learning curve and the intervals with the larger-table outlook
+(its "How sure" job) when the user clicks "Meeting pack"; it also warms the
+chart renderer and imports skops in its background worker. This
 script does the same "page" work first (untimed), then times the pack built
 from those results (one `engine.pack.build_pack` call plus the ZIP), and, for
 comparison, a pack built from scratch as before (every step recomputed).
@@ -45,6 +46,7 @@ def main() -> None:
     models = fit_candidates(data, spec, cells)
     lc = learning_curve(data, spec, orders=sorted({q for q, _ in pack.learning_cells(cells)}))
     checks = run_checks(data, analysis)
+    sure = pack.sureness(analysis, data, spec)   # the page's "How sure" job
     pack.warm()
     C.warm_renderer()
 
@@ -57,7 +59,7 @@ def main() -> None:
             pack.build_pack(Path(tmp) / "fitladder_pack", loaded=loaded,
                             source_name=loaded.report.source_name, data=data, spec=spec,
                             analysis=analysis, checks=checks, compare_orders=cells,
-                            models=models, learning=lc)
+                            models=models, learning=lc, sure=sure)
             pack.pack_zip_bytes(Path(tmp) / "fitladder_pack")
             cpu.append(time.process_time() - c)
             return time.perf_counter() - t

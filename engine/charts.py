@@ -1129,4 +1129,7 @@ def render_charts(charts: dict[str, alt.TopLevelMixin], scale: float = 2):
     """
     from .render import ChartRenderer
 
-    return ChartRenderer().submit(charts, scale)
+    renderer = ChartRenderer()
+    future = renderer.submit(charts, scale)
+    renderer.close()    # the thread finishes this batch, then ends
+    return future

@@ -641,8 +641,11 @@ def command_run(args: argparse.Namespace) -> int:
             return command_stream(args, folder)
     penalties = _penalty_grid(args)
     decimal = "," if args.decimal_comma else None
-    with _out_folder(args) as folder:
-        return _run_into(args, folder, penalties, decimal)
+    from .render import ChartRenderer
+
+    # vl-convert starts in a child process while the table is read and analysed
+    with _out_folder(args) as folder, ChartRenderer(fork=True) as renderer:
+        return _run_into(args, folder, penalties, decimal, renderer)
 
 
 def _out_folder(args: argparse.Namespace):
@@ -680,7 +683,7 @@ def _check_budget(args: argparse.Namespace, inputs: tuple, penalties, more: tupl
         print(f"{PROG}: request: {budget.text()}.", file=sys.stderr, flush=True)
 
 
-def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
+def _run_into(args: argparse.Namespace, folder, penalties, decimal, renderer=None) -> int:
     from .loading import prepare
     from .pack import build_pack
 
@@ -712,6 +715,7 @@ def _run_into(args: argparse.Namespace, folder, penalties, decimal) -> int:
                      extra_targets=more, families=args.families, rule=args.rule,
                      **({"l1_ratios": args.l1_ratios} if args.l1_ratios else {}))
     result = build_pack(folder, loaded=loaded, source_name=loaded.report.source_name,
+                        renderer=renderer,
                         data=data, spec=spec, compare_orders=args.compare, progress=progress,
                         load_options={"decimal": decimal, "sheet": args.sheet},
                         source_path=str(Path(args.data).resolve()),

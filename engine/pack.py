@@ -384,6 +384,9 @@ class _ModelFileWriter:
 
         self.model, self.path, self.proc = model, Path(path), None
         if background and threading.active_count() == 1 and "fork" in mp.get_all_start_methods():
+            # scikit-learn's core, which this process needs too (outer splits of the
+            # intervals), is imported once here rather than again in the child
+            import sklearn.base  # noqa: F401
             self.proc = mp.get_context("fork").Process(target=_save_in_child,
                                                        args=(model, self.path), daemon=True)
             self.proc.start()
@@ -918,25 +921,34 @@ def _paths_charts(paths, analysis: Analysis, full: Analysis) -> dict:
     return out
 
 
-def make_charts(analysis: Analysis, lc_table: pd.DataFrame, models: dict, data: DataLike,
-                cells: list[tuple[int, float]], lc_note: str = "",
-                band: pd.DataFrame | None = None) -> dict:
-    """Altair charts of the pack, keyed by the stems of `CHART_FILES`."""
+#: Charts drawn from the sweep alone (no learning curve, fits on all rows or intervals).
+SWEEP_CHARTS = ("validation_curve", "order_penalty_heatmap", "coefficient_magnitudes")
+
+
+def make_charts(analysis: Analysis, lc_table: pd.DataFrame | None, models: dict | None,
+                data: DataLike | None, cells: list[tuple[int, float]], lc_note: str = "",
+                band: pd.DataFrame | None = None, stems: Sequence[str] | None = None) -> dict:
+    """Altair charts of the pack, keyed by the stems of `CHART_FILES`.
+
+    ``stems``: only these charts (`SWEEP_CHARTS` need only ``analysis``).
+    """
     from . import charts
 
     rec = analysis.recommendation.recommended
     best = analysis.recommendation.best
     target = analysis.spec.target
-    coef = analysis.sweep.coefficient_table()
-    return {
-        "validation_curve": charts.validation_curve_chart(analysis.validation, rec.penalty,
-                                                          best, rec, target),
-        "order_penalty_heatmap": charts.heatmap_chart(analysis.validation, best, rec, target),
-        "learning_curve": charts.learning_curve_chart(lc_table, learning_cells(cells), target,
-                                                      note=lc_note),
-        "order_comparison": charts.comparison_chart(data, models, target, band=band),
-        "coefficient_magnitudes": charts.coefficient_chart(coef, rec.order, rec.penalty),
+    makers = {
+        "validation_curve": lambda: charts.validation_curve_chart(analysis.validation,
+                                                                  rec.penalty, best, rec, target),
+        "order_penalty_heatmap": lambda: charts.heatmap_chart(analysis.validation, best, rec,
+                                                              target),
+        "learning_curve": lambda: charts.learning_curve_chart(lc_table, learning_cells(cells),
+                                                              target, note=lc_note),
+        "order_comparison": lambda: charts.comparison_chart(data, models, target, band=band),
+        "coefficient_magnitudes": lambda: charts.coefficient_chart(
+            analysis.sweep.coefficient_table(), rec.order, rec.penalty),
     }
+    return {stem: make() for stem, make in makers.items() if stems is None or stem in stems}
 
 
 # ---------------------------------------------------------------------------
@@ -1630,7 +1642,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                spec: SweepSpec, analysis: Analysis | None = None, checks: Any | None = None,
                compare_orders: Sequence[int | tuple[int, float]] | None = None,
                progress: Progress | None = None, load_options: dict | None = None,
-               source_path: str | None = None,
+               source_path: str | None = None, renderer: ChartRenderer | None = None,
                model_file_in_background: bool = False, analyses: list[Analysis] | None = None,
                targets: pd.DataFrame | None = None, models: dict | None = None,
                learning: Any | None = None, trust: tuple | None = None,
@@ -1665,6 +1677,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         child processes while the rest of the pack is computed (for the command
         line; a server with threads writes the file in-process and draws in a
         thread).
+    renderer : an `engine.render.ChartRenderer` started earlier (the command line
+        starts it first thing, so vl-convert is ready when the charts are); one
+        is started here when None.
     models : ``{(order, penalty): FinalModel}`` fits on all rows already made
         (`engine.compare.fit_candidates`); cells missing from it are fitted.
     learning : a `LearningCurve` already made; used when it covers the orders
@@ -1701,7 +1716,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
     if spec.extra_targets and targets is None:
         return _build_target_packs(opened or out, data=data, spec=spec, analyses=analyses,
                                    progress=progress, loaded=loaded, source_name=source_name,
-                                   checks=checks, compare_orders=compare_orders,
+                                   checks=checks, compare_orders=compare_orders, renderer=renderer,
                                    load_options=load_options, source_path=source_path,
                                    model_file_in_background=model_file_in_background,
                                    overwrite=overwrite, error_unit=error_unit)
@@ -1744,8 +1759,12 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                 pack_folder(out, overwrite))
             work = folder.work
         model_writer = _ModelFileWriter(model, work / "model.skops", model_file_in_background)
-        # a forked child starts the chart renderer now and draws while this process computes
-        renderer = stack.enter_context(ChartRenderer(fork=model_file_in_background))
+        if renderer is None:  # a forked child starts vl-convert now and draws meanwhile
+            renderer = stack.enter_context(ChartRenderer(fork=model_file_in_background))
+        from . import charts as _charts
+        # the sweep's charts need nothing more: drawn while the rest is computed
+        drawing = [renderer.submit({stem: _charts.for_print(ch, 75) for stem, ch in make_charts(
+            analysis, None, None, None, cells, stems=SWEEP_CHARTS).items()})]
         if progress:
             progress(0.62, "Learning curve")
         lc_orders = sorted({q for q, _ in learning_cells(cells)})
@@ -1759,6 +1778,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             lc = lc_all.restrict(orders=lc_orders)
         if progress:
             progress(0.66, "Intervals and the larger-table outlook")
+        drawing.append(renderer.submit({stem: _charts.for_print(ch, 75) for stem, ch in make_charts(
+            analysis, lc.table, None, None, cells, lc.note, stems=("learning_curve",)).items()}))
         if sure is not None and hasattr(sure, "result"):  # the page's background job
             try:
                 sure = sure.result()
@@ -1773,11 +1794,11 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         # the charts need nothing from the checks: draw them in the background meanwhile
         if progress:
             progress(0.70, "Drawing charts")
-        from . import charts as _charts
-        chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note,
-                                 band=band)
-        rendering = renderer.submit({stem: _charts.for_print(ch, 75)
-                                     for stem, ch in chart_objs.items()})
+        chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note, band=band,
+                                 stems=[s for s in CHART_FILES
+                                        if s not in SWEEP_CHARTS and s != "learning_curve"])
+        drawing.append(renderer.submit({stem: _charts.for_print(ch, 75)
+                                        for stem, ch in chart_objs.items()}))
         if checks is None:
             if progress:
                 progress(0.72, "Checks")
@@ -1815,7 +1836,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         try:
             # the model file first: its imports (scikit-learn, skops) overlap the drawing
             model_writer.finish()
-            drawn = rendering.result()
+            drawn = {stem: d for job in drawing for stem, d in job.result().items()}
             pngs = {stem: png for stem, (png, _) in drawn.items()}
             svgs = {stem: svg for stem, (_, svg) in drawn.items()}
             _write_files(work, summary, record, pngs, svgs, full, lc, findings, model)

@@ -7,7 +7,7 @@ a loop of Python work ran at about a tenth of its speed while a thread drew).
 process with a single thread that has not started vl-convert itself, such as
 the command line): the child starts vl-convert at once, while the caller
 still computes, and draws every batch of charts sent to it. Elsewhere (the
-dashboard's server runs threads) it draws in a background thread, as before.
+dashboard's server runs threads) one background thread draws the batches.
 Either way each chart is laid out once: the PNG is rasterised from the SVG.
 
 This module imports neither Altair nor vl-convert until it draws.
@@ -54,24 +54,35 @@ def _render_all(specs: dict[str, dict], scale: float) -> Drawn:
     return {stem: render_spec(spec, scale) for stem, spec in specs.items()}
 
 
-def _child_loop(conn) -> None:
-    """Child-process body: start vl-convert, then draw each batch received until told to stop.
+def _child_loop(jobs, answers, parent_ends) -> None:
+    """Child-process body: start vl-convert, then draw each batch received.
 
-    Any failure ends the child with status 1 and no output; the parent then
-    draws what is missing itself.
+    Drawings are sent back by a second thread, so the next batch is drawn
+    while the parent has not yet collected the last. Any failure ends the
+    child with status 1 and no output; the parent then draws what is missing
+    itself.
     """
+    import queue
+
+    for conn in parent_ends:   # so that the jobs pipe ends when the parent goes
+        conn.close()
+    done: queue.Queue = queue.Queue()
+
+    def send() -> None:
+        try:
+            while True:
+                answers.send(done.get())
+        except BaseException:  # noqa: BLE001 - the parent draws instead
+            os._exit(1)
+
+    threading.Thread(target=send, daemon=True).start()
     try:
         warm()
         while True:
-            job = conn.recv()
-            if job is None:
-                break
-            specs, scale = job
-            conn.send(_render_all(specs, scale))
-    except BaseException:  # noqa: BLE001 - the parent draws instead
+            specs, scale = jobs.recv()
+            done.put(_render_all(specs, scale))
+    except BaseException:  # noqa: BLE001 - the parent draws instead (or has gone)
         os._exit(1)
-    finally:
-        conn.close()
 
 
 def _may_fork() -> bool:
@@ -105,18 +116,22 @@ class ChartRenderer:
     """
 
     def __init__(self, fork: bool = False) -> None:
-        self._proc = self._conn = None
+        self._proc = self._jobs = self._answers_out = None
+        self._pool: ThreadPoolExecutor | None = None
         self._answers: list[Drawn] = []
         self._sent = 0
         if fork and _may_fork():
             import multiprocessing as mp
 
             ctx = mp.get_context("fork")
-            self._conn, child = ctx.Pipe()
-            self._proc = ctx.Process(target=_child_loop, args=(child,), daemon=True,
-                                     name="fitladder-charts")
+            jobs_in, self._jobs = ctx.Pipe(duplex=False)
+            self._answers_out, answers_in = ctx.Pipe(duplex=False)
+            self._proc = ctx.Process(
+                target=_child_loop, name="fitladder-charts", daemon=True,
+                args=(jobs_in, answers_in, (self._jobs, self._answers_out)))
             self._proc.start()
-            child.close()
+            jobs_in.close()
+            answers_in.close()
 
     @property
     def in_child(self) -> bool:
@@ -125,16 +140,17 @@ class ChartRenderer:
 
     def submit(self, charts: dict[str, Any], scale: float = 2):
         """Start drawing ``charts`` (Altair charts or Vega-Lite dicts); returns a future."""
-        if self._proc is None:
-            pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="fitladder-charts")
-            future: Future = pool.submit(
+        if self._proc is None:  # one thread draws the batches in turn
+            if self._pool is None:
+                self._pool = ThreadPoolExecutor(max_workers=1,
+                                                thread_name_prefix="fitladder-charts")
+            future: Future = self._pool.submit(
                 lambda: _render_all({s: _as_spec(c) for s, c in charts.items()}, scale))
-            pool.shutdown(wait=False)
             return future
         specs = {stem: _as_spec(ch) for stem, ch in charts.items()}
         index = self._sent
         try:
-            self._conn.send((specs, scale))
+            self._jobs.send((specs, scale))
             self._sent += 1
         except (OSError, ValueError):
             self._stop()
@@ -143,7 +159,7 @@ class ChartRenderer:
     def _collect(self, index: int, specs: dict, scale: float) -> Drawn:
         while self._proc is not None and len(self._answers) <= index:
             try:
-                self._answers.append(self._conn.recv())
+                self._answers.append(self._answers_out.recv())
             except (EOFError, OSError):  # the child failed: draw here
                 self._stop()
         if index < len(self._answers):
@@ -157,24 +173,22 @@ class ChartRenderer:
                 self._proc.kill()
                 self._proc.join()
         self._proc = None
-        if self._conn is not None:
-            self._conn.close()
-            self._conn = None
+        for conn in (self._jobs, self._answers_out):
+            if conn is not None:
+                conn.close()
+        self._jobs = self._answers_out = None
 
     def close(self) -> None:
-        """Stop the child and wait for it (nothing to do for a thread).
+        """End the child and wait for it; a thread finishes the batches sent and ends.
 
-        A child still drawing batches nobody collected is ended at once.
+        The child holds no files, so it is simply ended; drawings nobody
+        collected are not needed.
         """
-        if self._proc is None:
-            return
-        if len(self._answers) < self._sent:
+        if self._pool is not None:
+            self._pool.shutdown(wait=False)
+            self._pool = None
+        if self._proc is not None:
             self._proc.kill()
-        else:
-            try:
-                self._conn.send(None)
-            except (OSError, ValueError):
-                pass
         self._stop()
 
     def __enter__(self) -> "ChartRenderer":

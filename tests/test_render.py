@@ -102,7 +102,7 @@ def test_uncollected_batches_end_the_child_at_close():
     proc = subprocess.run([sys.executable, "-c", script], input=json.dumps(SPECS),
                           capture_output=True, text=True, env=env, cwd=REPO, timeout=120)
     assert proc.returncode == 0, proc.stderr
-    assert int(proc.stdout.strip()) == -9     # killed (SIGKILL), not waited for
+    assert int(proc.stdout.strip()) == -9     # ended (SIGKILL), not waited for
 
 
 @pytest.mark.parametrize("scale", [1, 2])
@@ -113,3 +113,46 @@ def test_render_spec_scales_the_png(scale):
     width = struct.unpack(">I", png[16:20])[0]   # IHDR width, ISO/IEC 15948 section 11.2.2
     base, _ = render.render_spec(SPECS["bars"], 1)
     assert width == scale * struct.unpack(">I", base[16:20])[0]
+
+
+def test_thread_batches_are_drawn_by_one_thread_in_turn():
+    import threading
+
+    render.warm()
+    seen = []
+    real = render._render_all
+
+    def recording(specs, scale):
+        seen.append((threading.current_thread().name, sorted(specs)))
+        return real(specs, scale)
+
+    render._render_all = recording
+    try:
+        r = render.ChartRenderer()
+        jobs = [r.submit({stem: spec}) for stem, spec in SPECS.items()]
+        r.close()                       # batches already sent are still drawn
+        drawn = [j.result() for j in jobs]
+    finally:
+        render._render_all = real
+    assert [sorted(d) for d in drawn] == [[s] for s in SPECS]
+    assert [names for _, names in seen] == [[s] for s in SPECS]      # in the order sent
+    assert len({name for name, _ in seen}) == 1                      # by one thread
+
+
+def test_command_line_draws_its_charts_in_a_child_process(tmp_path, demo_dir):
+    """`fitladder run` never starts vl-convert itself; the pack still holds every chart."""
+    out = tmp_path / "pack"
+    script = ("import sys\n"
+              "from engine.cli import main\n"
+              f"rc = main(['run', {str(demo_dir / 'calibration_curve.csv')!r}, '--target', "
+              f"'bath_temp_C', '--out', {str(out)!r}])\n"
+              "print('RESULT', rc, 'vl_convert' in sys.modules)\n")
+    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
+                          env=dict(os.environ, PYTHONPATH=str(REPO)), cwd=REPO, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.strip().splitlines()[-1] == "RESULT 0 False"
+    from engine.pack import CHART_FILES
+
+    for stem in CHART_FILES:
+        _check_drawing((out / f"{stem}.png").read_bytes(),
+                       (out / f"{stem}.svg").read_text(encoding="utf-8"))
