@@ -924,27 +924,24 @@ def _read_text(raw: bytes, display: str, decimal: str, wanted: Iterable[str] | N
     keep = _chosen_positions(names, wanted)
     if keep is not None and not _fields_line_up(text, sep):
         keep = None   # lines that do not match the header: read everything, to name them
+    def read_body(usecols):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            return pd.read_csv(io.StringIO(body_text), sep=sep, header=None,
+                               keep_default_na=False, na_values=_na_tokens(),
+                               decimal=decimal, skipinitialspace=True,
+                               skip_blank_lines=True, engine="c", quotechar='"',
+                               low_memory=False, usecols=usecols)
+
     body = None
     if keep is not None:
         try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                body = pd.read_csv(io.StringIO(body_text), sep=sep, header=None,
-                                   keep_default_na=False, na_values=_na_tokens(),
-                                   decimal=decimal, skipinitialspace=True,
-                                   skip_blank_lines=True, engine="c", quotechar='"',
-                                   low_memory=False, usecols=keep)
+            body = read_body(keep)
         except Exception:  # noqa: BLE001 - read everything below, with its messages
             body, keep = None, None
     try:
         if body is None:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                body = pd.read_csv(io.StringIO(body_text), sep=sep, header=None,
-                                   keep_default_na=False, na_values=_na_tokens(),
-                                   decimal=decimal, skipinitialspace=True,
-                                   skip_blank_lines=True, engine="c", quotechar='"',
-                                   low_memory=False)
+            body = read_body(None)
     except pd.errors.EmptyDataError:
         body = pd.DataFrame({i: pd.Series([], dtype=float) for i in range(len(names))})
         keep = None
