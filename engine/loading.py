@@ -1426,6 +1426,30 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
     return _load_raw(raw, display, dec, sheet, columns=columns)
 
 
+def _sha256_alongside(raw: bytes):
+    """Hex SHA-256 of ``raw``; for large inputs computed in a thread while the caller parses.
+
+    Returns a function that gives the digest (waiting for the thread when needed).
+    `hashlib` releases the interpreter lock on large buffers, so on a machine with
+    a second core the hash costs no wall time beside the parser.
+    """
+    if len(raw) < (8 << 20):
+        value = hashlib.sha256(raw).hexdigest()
+        return lambda: value
+    import threading
+
+    box: dict[str, str] = {}
+    worker = threading.Thread(target=lambda: box.__setitem__("d",
+                              hashlib.sha256(raw).hexdigest()), daemon=True)
+    worker.start()
+
+    def result() -> str:
+        worker.join()
+        return box["d"]
+
+    return result
+
+
 def _load_raw(raw: bytes, display: str, dec: str, sheet: str | int | None, *,
               columns: Iterable[str] | None = None, max_rows: int | None = None,
               digest: str | None = None, file_format: str | None = None,
@@ -1440,7 +1464,7 @@ def _load_raw(raw: bytes, display: str, dec: str, sheet: str | int | None, *,
         file_format, notes = _choose_format(raw, display)
     if columns is not None:
         columns = [str(c) for c in columns]
-    digest = digest or hashlib.sha256(raw).hexdigest()
+    sha256 = (lambda: digest) if digest else _sha256_alongside(raw)
     delimiter: str | None = None
     try:
         if file_format == "csv":
@@ -1494,7 +1518,7 @@ def _load_raw(raw: bytes, display: str, dec: str, sheet: str | int | None, *,
         source_name=display, file_format=file_format, delimiter=delimiter, decimal=dec,
         rows_read=int(len(frame)), columns_read=int(frame.shape[1]),
         numeric_columns=list(numeric), ignored_columns=list(ignored),
-        ignored_reasons=dict(reasons), sha256=digest,
+        ignored_reasons=dict(reasons), sha256=sha256(),
         size_bytes=raw.stat().st_size if isinstance(raw, Path) else len(raw), notes=notes)
     return LoadedTable(frame=frame, report=report)
 
