@@ -1014,6 +1014,13 @@ def _error_words(c: dict, unit: str, se_name: str = "") -> str:
     return f"{_num(v)} ± {_num(se, 2)}{tail}"
 
 
+def _cell_error(c: dict, unit: str) -> tuple[float, float | None]:
+    """A candidate's validation error and its standard error in ``unit`` (delta method)."""
+    se = c.get("validation_mse_se")
+    return (error_in_unit(c["validation_mse"], unit),
+            None if se is None else se_in_unit(c["validation_mse"], se, unit))
+
+
 def headline_dict(s: dict, unit: str = DEFAULT_ERROR_UNIT) -> dict:
     """The headline of the summary with every error in one unit (``'mse'`` or ``'rmse'``).
 
@@ -1129,13 +1136,16 @@ def render_markdown(s: dict) -> str:
                          f"{_num(t['validation_mse'])} | {_num(t['validation_mse_se'], 2)} | "
                          f"{_num(t['validation_r2'])} | {md_escape(t.get('section', ''))} |")
         lines += [""]
+    unit = h.get("unit", DEFAULT_ERROR_UNIT)
     lines += ["## Leading candidates", "",
-              "| order | penalty | validation MSE | ± SE | validation R² | eff. parameters | role |",
+              f"| order | penalty | validation {ERROR_UNITS[unit]} | ± SE | validation R² | "
+              "eff. parameters | role |",
               "|---:|---:|---:|---:|---:|---:|---|"]
     for c in s["candidates"]:
         c = {**c, "role": _role_words(c)}
+        err, se = _cell_error(c, unit)
         lines.append(f"| {int(c['order'])} | {_penalty_short(c['penalty'])} | "
-                     f"{_num(c['validation_mse'])} | {_num(c['validation_mse_se'], 2)} | "
+                     f"{_num(err)} | {_num(se, 2)} | "
                      f"{_num(c['validation_r2'])} | {_num(c['effective_df'], 3)} | {c['role']} |")
     lines += ["", "## Recommended model fitted on all rows", "",
               f"R² {_num(s['final_fit']['r2'])}, residual SD {_num(s['final_fit']['residual_sd'])}, "
@@ -1472,8 +1482,9 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
              len([x for x in s["candidates"][:s["candidates"].index(c)] if not x["role"]]) < 2]
     for c in shown:
         cls = " class=\"rec\"" if "recommended" in c["role"] else ""
+        err, se = _cell_error(c, hd.get("unit", DEFAULT_ERROR_UNIT))
         rows.append(f"<tr{cls}><td>{int(c['order'])}</td><td>{_penalty_short(c['penalty'])}</td>"
-                    f"<td>{_num(c['validation_mse'])}</td><td>{_num(c['validation_mse_se'], 2)}</td>"
+                    f"<td>{_num(err)}</td><td>{_num(se, 2)}</td>"
                     f"<td>{_num(c['validation_r2'])}</td><td>{_num(c['effective_df'], 3)}</td>"
                     f"<td class=\"l\">{_h(_role_words(c))}</td></tr>")
     figs = []
@@ -1487,7 +1498,8 @@ def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
                         f"src=\"data:image/png;base64,{b64}\">{tail}</div>")
     ff = s["final_fit"]
     figs.append("<figure><figcaption>Leading candidates (by mean validation error)</figcaption>"
-                "<table><tr><th>order</th><th>penalty</th><th>val. MSE</th><th>± SE</th>"
+                "<table><tr><th>order</th><th>penalty</th>"
+                f"<th>val. {ERROR_UNITS[hd.get('unit', DEFAULT_ERROR_UNIT)]}</th><th>± SE</th>"
                 "<th>val. R²</th><th>eff. par.</th><th class=\"l\">role</th></tr>"
                 + "".join(rows) + "</table>"
                 f"<p style=\"margin:1mm 0 0 0\">Recommended model refitted on all {ff['rows']} "

@@ -144,6 +144,26 @@ def test_every_error_in_the_headline_is_in_the_chosen_unit(loo_packs, unit):
     assert not (_forbidden_numbers(s, unit) & set(re.findall(r"\d+(?:\.\d+)?", verdict)))
 
 
+@pytest.mark.parametrize("unit", list(ERROR_UNITS))
+def test_candidates_tables_use_the_headline_unit(loo_packs, unit):
+    res = loo_packs[unit]
+    s = res.summary
+    name = ERROR_UNITS[unit]
+    md = (res.out_dir / "summary.md").read_text(encoding="utf-8")
+    table = md.split("## Leading candidates")[1].split("##")[0]
+    assert f"validation {name} |" in table
+    for c in s["candidates"]:
+        want = f"{error_in_unit(c['validation_mse'], unit):.4g}"
+        assert f"| {want} |" in table, (want, table)
+    html = (res.out_dir / "summary.html").read_text(encoding="utf-8")
+    box = html.split("Leading candidates")[1].split("</table>")[0]
+    assert f"<th>val. {name}</th>" in box
+    r = s["recommended"]
+    assert f"<td>{error_in_unit(r['validation_mse'], unit):.4g}</td>" in box
+    if unit == "rmse" and r["validation_mse"] != 1.0:   # the MSE itself is not shown
+        assert f"<td>{r['validation_mse']:.4g}</td>" not in box
+
+
 def test_headline_renders_the_same_from_the_summary_for_both_units(loo_packs):
     s = dict(loo_packs["mse"].summary)
     for unit in ERROR_UNITS:
