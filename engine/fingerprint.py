@@ -19,9 +19,10 @@ import hashlib
 import threading
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable
+from typing import Callable, TypeVar
 
 _BLOCK = 1 << 20
+T = TypeVar("T")
 
 
 @dataclass(frozen=True)
@@ -86,8 +87,8 @@ def source_fingerprint(path: str | Path) -> SourceFingerprint:
     return SourceFingerprint(file_digest(p), p.stat().st_size, 1, "file")
 
 
-def fingerprint_in_background(path: str | Path) -> Callable[[], SourceFingerprint]:
-    """Start fingerprinting ``path`` in a thread; returns a function that waits for it.
+def in_background(fn: Callable[..., T], *args) -> Callable[[], T]:
+    """Start ``fn(*args)`` in a daemon thread; returns a function that waits for its result.
 
     The returned function re-raises any error the thread met (a file removed
     while it was read, say).
@@ -96,17 +97,40 @@ def fingerprint_in_background(path: str | Path) -> Callable[[], SourceFingerprin
 
     def work() -> None:
         try:
-            box["value"] = source_fingerprint(path)
+            box["value"] = fn(*args)
         except BaseException as exc:  # noqa: BLE001 - handed back to the caller
             box["error"] = exc
 
     thread = threading.Thread(target=work, name="fitladder-fingerprint", daemon=True)
     thread.start()
 
-    def result() -> SourceFingerprint:
+    def result() -> T:
         thread.join()
         if "error" in box:
             raise box["error"]
         return box["value"]
 
     return result
+
+
+def fingerprint_in_background(path: str | Path) -> Callable[[], SourceFingerprint]:
+    """Start fingerprinting ``path`` in a thread (`source_fingerprint`); returns a function
+    that waits for it."""
+    return in_background(source_fingerprint, path)
+
+
+#: Bytes from which `digest_alongside` hashes in a thread rather than at once.
+THREADED_DIGEST_BYTES = 8 << 20
+
+
+def digest_alongside(raw: bytes) -> Callable[[], str]:
+    """Hex SHA-256 of ``raw``; for large inputs computed in a thread while the caller parses.
+
+    Returns a function that gives the digest (waiting for the thread when needed).
+    `hashlib` releases the interpreter lock on large buffers, so on a machine with
+    a second core the hash costs no wall time beside the parser.
+    """
+    if len(raw) < THREADED_DIGEST_BYTES:
+        value = hashlib.sha256(raw).hexdigest()
+        return lambda: value
+    return in_background(lambda: hashlib.sha256(raw).hexdigest())

@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import csv
 import decimal
-import hashlib
 import io
 import os
 import re
@@ -28,6 +27,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputProblem
+from .fingerprint import digest_alongside
 
 __all__ = [
     "DEFAULT_MAX_BYTES",
@@ -1426,30 +1426,6 @@ def load_table(source: Source, *, name: str | None = None, decimal: str | None =
     return _load_raw(raw, display, dec, sheet, columns=columns)
 
 
-def _sha256_alongside(raw: bytes):
-    """Hex SHA-256 of ``raw``; for large inputs computed in a thread while the caller parses.
-
-    Returns a function that gives the digest (waiting for the thread when needed).
-    `hashlib` releases the interpreter lock on large buffers, so on a machine with
-    a second core the hash costs no wall time beside the parser.
-    """
-    if len(raw) < (8 << 20):
-        value = hashlib.sha256(raw).hexdigest()
-        return lambda: value
-    import threading
-
-    box: dict[str, str] = {}
-    worker = threading.Thread(target=lambda: box.__setitem__("d",
-                              hashlib.sha256(raw).hexdigest()), daemon=True)
-    worker.start()
-
-    def result() -> str:
-        worker.join()
-        return box["d"]
-
-    return result
-
-
 def _load_raw(raw: bytes, display: str, dec: str, sheet: str | int | None, *,
               columns: Iterable[str] | None = None, max_rows: int | None = None,
               digest: str | None = None, file_format: str | None = None,
@@ -1464,7 +1440,7 @@ def _load_raw(raw: bytes, display: str, dec: str, sheet: str | int | None, *,
         file_format, notes = _choose_format(raw, display)
     if columns is not None:
         columns = [str(c) for c in columns]
-    sha256 = (lambda: digest) if digest else _sha256_alongside(raw)
+    sha256 = (lambda: digest) if digest else digest_alongside(raw)
     delimiter: str | None = None
     try:
         if file_format == "csv":

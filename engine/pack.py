@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import base64
 import datetime as _dt
-import hashlib
 import html
 import io
 import json
@@ -1897,12 +1896,3 @@ def pack_zip_bytes(out_dir: str | Path) -> bytes:
                     if (sub / name).is_file():
                         zf.write(sub / name, arcname=f"{top}/{sub.name}/{name}")
     return buf.getvalue()
-
-
-def file_sha256(path: str | Path) -> str:
-    """Hex SHA-256 of a file's bytes."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
