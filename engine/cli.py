@@ -445,6 +445,7 @@ def _load_for_request(args: argparse.Namespace, decimal, penalties, more: tuple,
     head = None
     if path.is_file():
         head = peek_table(path, decimal=decimal, sheet=sheet)
+    chosen = None   # every column
     if head is not None and (path.stat().st_size > SAMPLE_BYTES
                              or head.report.columns_read >= CHOSEN_COLUMNS_FROM_WIDTH):
         rep = head.report
@@ -453,24 +454,17 @@ def _load_for_request(args: argparse.Namespace, decimal, penalties, more: tuple,
         inputs = (list(args.inputs) if args.inputs is not None else
                   [c for c in names if c not in skip and (c in rep.numeric_columns or
                                                           rep.ignored_reasons.get(c) == "no values")])
-        chosen = list(dict.fromkeys([args.target, *[c for c in roles if c], *inputs]))
-        if inputs and set(chosen) <= set(names):
+        wanted = list(dict.fromkeys([args.target, *[c for c in roles if c], *inputs]))
+        if inputs and set(wanted) <= set(names):
             _check_budget(args, tuple(inputs), penalties, more,
                           rep.rows_estimate or rep.rows_read,
                           estimated=True if rep.rows_estimate else "at least")
-            loaded = _load(args.data, decimal=decimal, sheet=args.sheet, columns=chosen)
-            progress(0.0, "Preparing the chosen columns")
-            left: dict[str, str] = {}
-            if args.inputs is None:
-                inputs, left = _default_inputs(loaded, args.target, roles)
-            return loaded, inputs, left
-    loaded = _load(args.data, decimal=decimal, sheet=args.sheet)
+            chosen = wanted
+    loaded = _load(args.data, decimal=decimal, sheet=args.sheet, columns=chosen)
     progress(0.0, "Preparing the chosen columns")
-    left = {}
     if args.inputs is not None:
-        inputs = args.inputs
-    else:
-        inputs, left = _default_inputs(loaded, args.target, roles)
+        return loaded, args.inputs, {}
+    inputs, left = _default_inputs(loaded, args.target, roles)
     return loaded, inputs, left
 
 
