@@ -13,7 +13,6 @@ validation standards apply.
 from __future__ import annotations
 
 import math
-from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from typing import Any, Callable
 
@@ -33,18 +32,6 @@ from .summaries import (LARGE_ROWS, SAMPLE_ROWS, SHIFT_SAMPLE_ROWS, fold_summari
                         out_of_fold_from_summaries, seeded_sample, split_leverage)
 
 Progress = Callable[[float, str], None]
-
-
-@contextmanager
-def single_threaded_blas():
-    """Run linear algebra on one thread inside the block (`engine.threads.one_thread`).
-
-    The checks factor many small matrices; on a busy machine a threaded BLAS
-    spends far longer coordinating threads than computing (measured: a QR of
-    2,400 x 18 took 0.12 s on two threads under load against 0.003 s on one).
-    """
-    with one_thread():
-        yield
 
 
 # ---------------------------------------------------------------------------
@@ -1560,7 +1547,10 @@ def run_checks(data: DataLike, analysis: Analysis,
         extrapolation, leverage, rows per parameter, conditioning,
         train/validation gap; tables for each.
     """
-    with single_threaded_blas():
+    # many small factorisations: on a busy machine a threaded BLAS spends far longer
+    # coordinating threads than computing (measured: a QR of 2,400 x 18 took 0.12 s on
+    # two threads under load against 0.003 s on one)
+    with one_thread():
         return _run_checks(data, analysis, candidates, progress, models, oof)
 
 

@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 
 from .analysis import Analysis, ArrayData, DataLike, analyse, data_grid
-from .checks import single_threaded_blas
+from .threads import one_thread
 from .compare import cell_label
 from .schemes import label_codes
 from .errors import InputProblem
@@ -189,7 +189,7 @@ def nested_cv(data: DataLike, spec: SweepSpec, outer_folds: int = 5,
     -------
     NestedResult
     """
-    with single_threaded_blas():
+    with one_thread():
         return _nested_cv(data, spec, outer_folds, progress, analysis)
 
 
@@ -308,7 +308,7 @@ def selection_stability(data: DataLike, spec: SweepSpec, resamples: int = 20,
     -------
     StabilityResult
     """
-    with single_threaded_blas():
+    with one_thread():
         return _selection_stability(data, spec, resamples, method, seed, progress, block_length)
 
 

@@ -7,7 +7,6 @@ import pytest
 threadpoolctl = pytest.importorskip("threadpoolctl")
 
 from engine import threads  # noqa: E402
-from engine.checks import single_threaded_blas  # noqa: E402
 
 
 def _blas_threads() -> dict[str, int]:
@@ -26,7 +25,7 @@ def test_controller_holds_numpy_and_scipy_blas():
     assert ours, "numpy's BLAS should be found"
 
 
-@pytest.mark.parametrize("limit", [threads.one_thread, single_threaded_blas])
+@pytest.mark.parametrize("limit", [threads.one_thread, lambda: threads.blas_threads(1)])
 def test_one_thread_limits_every_blas_and_restores(limit):
     before = _blas_threads()
     with limit():
@@ -60,6 +59,6 @@ def test_libraries_are_scanned_once(monkeypatch):
     for _ in range(5):
         with threads.one_thread():
             pass
-        with single_threaded_blas():
+        with threads.blas_threads(2):
             pass
     assert made == []
