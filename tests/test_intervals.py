@@ -113,6 +113,43 @@ def test_split_models_reproduce_the_sweep_validation_errors():
 # ---------------------------------------------------------------------------
 # error interval: nested cross-validation against a by-hand run
 # ---------------------------------------------------------------------------
+def _nested_cv_by_hand(X, y, folds: list, K: int, model) -> tuple[float, float, float, float]:
+    """Bates, Hastie, Tibshirani (JASA 2023), Algorithm 1 (nested CV), by hand.
+
+    ``folds`` holds one fold label per row for each repetition; ``model()`` makes a
+    scikit-learn regressor fitted afresh on every training set. Returns the plain CV
+    error, its naive standard error, the nested-CV standard error (bounded between
+    the naive one and sqrt(K) times it) and the bias-corrected centre.
+    """
+    n = len(y)
+    a_list, b_list, e_in_all, e_out_all = [], [], [], []
+    for fold in folds:
+        for k in range(K):
+            te, tr = np.flatnonzero(fold == k), np.flatnonzero(fold != k)
+            e_out = (y[te] - model().fit(X[tr], y[tr]).predict(X[te])) ** 2
+            e_in = []
+            for j in range(K):
+                if j == k:
+                    continue
+                itr = np.flatnonzero((fold != k) & (fold != j))
+                iva = np.flatnonzero(fold == j)
+                m = model().fit(X[itr], y[itr])
+                e_in.append((y[iva] - m.predict(X[iva])) ** 2)
+            e_in = np.concatenate(e_in)
+            a_list.append((e_in.mean() - e_out.mean()) ** 2)
+            b_list.append(e_out.var(ddof=1) / e_out.size)
+            e_in_all.append(e_in)
+            e_out_all.append(e_out)
+    err_ncv = np.concatenate(e_in_all).mean()
+    e_all = np.concatenate(e_out_all)
+    err_cv = e_all.mean()
+    naive = e_all.std(ddof=1) / math.sqrt(n)
+    se = math.sqrt(max(np.mean(a_list) - np.mean(b_list), 0) * (K - 1) / K)
+    se = min(max(se, naive), math.sqrt(K) * naive)
+    centre = err_ncv - (1 + (K - 2) / K) * (err_ncv - err_cv)
+    return err_cv, naive, se, centre
+
+
 def test_nested_cv_matches_a_by_hand_run_with_scikit_learn():
     # Reference: Bates, Hastie, Tibshirani (JASA 2023), Algorithm 1 (nested CV) with
     # scikit-learn LinearRegression fits on the same shuffled KFold outer folds.
@@ -121,30 +158,10 @@ def test_nested_cv_matches_a_by_hand_run_with_scikit_learn():
     spec = _spec(seed=7)
     ei = error_interval(ArrayData(x, y), spec, 3, 0.0, repeats=1, folds=K, level=0.9)
     X = np.column_stack([x ** k for k in (1, 2, 3)])
-    folds = [te for _, te in KFold(K, shuffle=True, random_state=7).split(X)]
-    a_list, b_list, e_in_all, e_out_all = [], [], [], []
-    for k in range(K):
-        tr = np.setdiff1d(np.arange(90), folds[k])
-        e_out = (y[folds[k]] - LinearRegression().fit(X[tr], y[tr]).predict(X[folds[k]])) ** 2
-        e_in = []
-        for j in range(K):
-            if j == k:
-                continue
-            itr = np.setdiff1d(tr, folds[j])
-            m = LinearRegression().fit(X[itr], y[itr])
-            e_in.append((y[folds[j]] - m.predict(X[folds[j]])) ** 2)
-        e_in = np.concatenate(e_in)
-        a_list.append((e_in.mean() - e_out.mean()) ** 2)
-        b_list.append(e_out.var(ddof=1) / e_out.size)
-        e_in_all.append(e_in)
-        e_out_all.append(e_out)
-    err_ncv = np.concatenate(e_in_all).mean()
-    e_all = np.concatenate(e_out_all)
-    err_cv = e_all.mean()
-    naive = e_all.std(ddof=1) / math.sqrt(90)
-    se = math.sqrt(max(np.mean(a_list) - np.mean(b_list), 0) * (K - 1) / K)
-    se = min(max(se, naive), math.sqrt(K) * naive)
-    centre = err_ncv - (1 + (K - 2) / K) * (err_ncv - err_cv)
+    fold = np.empty(90, dtype=np.int64)
+    for k, (_, te) in enumerate(KFold(K, shuffle=True, random_state=7).split(X)):
+        fold[te] = k
+    err_cv, naive, se, centre = _nested_cv_by_hand(X, y, [fold], K, LinearRegression)
     z = stats.norm.ppf(0.95)
     assert ei.cv_estimate == pytest.approx(err_cv, rel=1e-9)
     assert ei.naive_se == pytest.approx(naive, rel=1e-9)
@@ -316,34 +333,12 @@ def test_grouped_nested_cv_of_a_large_table_matches_scikit_learn_on_the_same_fol
         G = K * iv.GROUPS_PER_FOLD
         group = np.empty(n, dtype=np.int64)
         group[np.random.default_rng(seed).permutation(n)] = np.arange(n) % G
-    a_list, b_list, e_in_all, e_out_all = [], [], [], []
+    folds = []
     for r in range(R):
         of = np.empty(G, dtype=np.int64)
         of[np.random.default_rng(seed + r).permutation(G)] = np.arange(G) % K
-        fold = of[group]
-        for k in range(K):
-            te, tr = np.flatnonzero(fold == k), np.flatnonzero(fold != k)
-            e_out = (y[te] - model().fit(X[tr], y[tr]).predict(X[te])) ** 2
-            e_in = []
-            for j in range(K):
-                if j == k:
-                    continue
-                itr = np.flatnonzero((fold != k) & (fold != j))
-                iva = np.flatnonzero(fold == j)
-                m = model().fit(X[itr], y[itr])
-                e_in.append((y[iva] - m.predict(X[iva])) ** 2)
-            e_in = np.concatenate(e_in)
-            a_list.append((e_in.mean() - e_out.mean()) ** 2)
-            b_list.append(e_out.var(ddof=1) / e_out.size)
-            e_in_all.append(e_in)
-            e_out_all.append(e_out)
-    err_ncv = np.concatenate(e_in_all).mean()
-    e_all = np.concatenate(e_out_all)
-    err_cv = e_all.mean()
-    naive = e_all.std(ddof=1) / math.sqrt(n)
-    se = math.sqrt(max(np.mean(a_list) - np.mean(b_list), 0) * (K - 1) / K)
-    se = min(max(se, naive), math.sqrt(K) * naive)
-    centre = err_ncv - (1 + (K - 2) / K) * (err_ncv - err_cv)
+        folds.append(of[group])
+    err_cv, naive, se, centre = _nested_cv_by_hand(X, y, folds, K, model)
     assert ei.cv_estimate == pytest.approx(err_cv, rel=1e-9)
     assert ei.naive_se == pytest.approx(naive, rel=1e-9)
     assert ei.se == pytest.approx(se, rel=1e-9)
