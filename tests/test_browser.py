@@ -155,11 +155,11 @@ def _set_number(page, label: str, value: int) -> None:
     box.press("Enter")
 
 
-def _pick(page, label: str, option: str) -> None:
-    box = page.locator("[data-testid=stSidebar] [data-testid=stSelectbox]").filter(
-        has=page.get_by_text(label, exact=True)).first
-    for attempt in range(3):  # a rerun that redraws the box closes its list
-        box.click()
+def _choose_option(page, open_list, option: str) -> None:
+    """Open a list with ``open_list()`` and click ``option``; tried three times, because a
+    rerun that redraws the box closes its list."""
+    for attempt in range(3):
+        open_list()
         opt = page.get_by_role("option", name=option, exact=True).first
         try:
             opt.wait_for(timeout=8_000)
@@ -170,6 +170,12 @@ def _pick(page, label: str, option: str) -> None:
                 raise
             page.keyboard.press("Escape")
             page.wait_for_timeout(500)
+
+
+def _pick(page, label: str, option: str) -> None:
+    box = page.locator("[data-testid=stSidebar] [data-testid=stSelectbox]").filter(
+        has=page.get_by_text(label, exact=True)).first
+    _choose_option(page, box.click, option)
 
 
 class _Walk:
@@ -235,20 +241,12 @@ class _Walk:
             has=self.page.get_by_text(label, exact=True)).first
 
     def add(self, label: str, option: str) -> None:
+        def type_it():
+            self._multi(label).locator("input").first.click()
+            self.page.keyboard.type(option)
+
         def act():
-            for attempt in range(3):  # a rerun that redraws the box closes its list
-                self._multi(label).locator("input").first.click()
-                self.page.keyboard.type(option)
-                opt = self.page.get_by_role("option", name=option, exact=True).first
-                try:
-                    opt.wait_for(timeout=8_000)
-                    opt.click()
-                    break
-                except Exception:  # noqa: BLE001
-                    if attempt == 2:
-                        raise
-                    self.page.keyboard.press("Escape")
-                    self.page.wait_for_timeout(500)
+            _choose_option(self.page, type_it, option)
             self.page.keyboard.press("Escape")
         self.step(f"{label} + {option}", act)
 
