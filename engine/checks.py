@@ -706,9 +706,15 @@ def suggested_gap(r: float, n: int, folds: int) -> int:
 # ---------------------------------------------------------------------------
 # the checks
 # ---------------------------------------------------------------------------
+def final_fit_durbin_watson(data: DataLike, model: FinalModel) -> float:
+    """Durbin-Watson statistic of ``model``'s residuals on every row of ``data``, in order."""
+    return durbin_watson(np.asarray(data.y, float) - model.predict(np.asarray(data.X, float)))
+
+
 def check_serial_dependence(data: DataLike, analysis: Analysis,
                             final_model: FinalModel | None = None,
-                            basis: RowOrder | None = None, fold_stats=None, oof=None
+                            basis: RowOrder | None = None, fold_stats=None, oof=None,
+                            dw: float | None = None
                             ) -> tuple[Finding | None, pd.DataFrame, pd.DataFrame | None]:
     """Are neighbouring rows dependent, and does the scheme account for it?
 
@@ -727,6 +733,9 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
     order is only assumed to be time order, and none is raised when the rows
     are not in time order (`row_order_basis`).
 
+    ``dw``: the Durbin-Watson statistic of ``final_model``'s residuals on every
+    row, already computed (`final_fit_durbin_watson`).
+
     Returns
     -------
     (finding or None, serial table, scheme comparison table or None)
@@ -735,7 +744,7 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
     rec = analysis.recommendation.recommended
     X, y = np.asarray(data.X, float), np.asarray(data.y, float)
     n = y.size
-    if final_model is None:
+    if final_model is None and dw is None:
         final_model = fit_final(X, y, spec.inputs, rec.order, rec.penalty, spec.interactions,
                                 target=spec.target, family=rec.family, l1_ratio=rec.l1_ratio)
     r_target = lag1_autocorrelation(y)
@@ -752,7 +761,8 @@ def check_serial_dependence(data: DataLike, analysis: Analysis,
         d = full - np.nanmean(full)
         den = np.nansum(d * d)
         r_resid = float(np.sum(d[:-1][pairs] * d[1:][pairs]) / den) if den > 0 else float("nan")
-    dw = durbin_watson(y - final_model.predict(X))
+    if dw is None:
+        dw = final_fit_durbin_watson(data, final_model)
     r_use = r_resid if np.isfinite(r_resid) else 1.0 - dw / 2.0
     ess = effective_sample_size(n, r_use)
     folds = int(spec.scheme.folds) if spec.scheme.kind in ("kfold", "repeated", "blocked") else 5
@@ -936,16 +946,20 @@ def shift_table(X_before: np.ndarray, X_after: np.ndarray, inputs, bins: int = 1
     B = np.asarray(X_after, float)
     rows = []
     for j, name in enumerate(inputs):
-        a, b = A[:, j], B[:, j]
+        # each column sorted once: the quantile cuts, the KS test and the range share
+        # read the sorted copies (the same values as on the unsorted columns)
+        a, b = np.sort(A[:, j]), np.sort(B[:, j])
         psi = population_stability_index(a, b, bins)
         ks = ks_statistic(a, b)
         from scipy import stats as _stats   # imported only when a shift is tested
 
         p = float(_stats.ks_2samp(a, b).pvalue) if a.size and b.size else float("nan")
-        rows.append({"input": str(name), "mean_before": float(a.mean()),
-                     "mean_after": float(b.mean()),
-                     "smd": standardised_mean_difference(a, b), "ks": ks, "ks_p_value": p,
-                     "psi": psi, "share_outside": share_outside(a, b),
+        outside = (float(np.mean((b < a[0]) | (b > a[-1]))) if a.size and b.size
+                   else float("nan"))      # `share_outside` on the sorted columns
+        rows.append({"input": str(name), "mean_before": float(A[:, j].mean()),
+                     "mean_after": float(B[:, j].mean()),
+                     "smd": standardised_mean_difference(A[:, j], B[:, j]), "ks": ks,
+                     "ks_p_value": p, "psi": psi, "share_outside": outside,
                      "moved": bool(psi > PSI_MODERATE and p < SHIFT_P_VALUE)})
     t = pd.DataFrame(rows, columns=["input", "mean_before", "mean_after", "smd", "ks",
                                     "ks_p_value", "psi", "share_outside", "moved"])
@@ -954,19 +968,10 @@ def shift_table(X_before: np.ndarray, X_after: np.ndarray, inputs, bins: int = 1
     return t.drop(columns="_abs_smd").reset_index(drop=True)
 
 
-def check_period_shift(data: DataLike, analysis: Analysis,
-                       basis: RowOrder | None = None) -> tuple[Finding | None, pd.DataFrame]:
-    """Do the inputs of the later period differ from those of the earlier one?
-
-    Per input: standardised mean difference, Kolmogorov-Smirnov statistic,
-    population stability index on the earlier rows' decile bins and the share
-    of later rows outside the earlier range (`shift_table`). An input has
-    moved when its PSI exceeds 0.1 (common practice: 0.1-0.25 moderate, above
-    0.25 major) and the KS p-value is below 0.01 (a gate against noise in small
-    samples). Fires when any input moved; serious when one exceeds 0.25 and
-    the row order is known to be time order (`row_order_basis`), caution when
-    it is only assumed; quiet when the rows are not in time order.
-    """
+def period_shift_table(data: DataLike, analysis: Analysis) -> pd.DataFrame:
+    """`shift_table` of the earlier against the later rows (`period_rows`), with a
+    first column ``comparison`` saying which rows; on a stated, seeded sample of
+    each period when either holds more than `SHIFT_SAMPLE_ROWS` rows."""
     before, after, how = period_rows(data, analysis)
     X = np.asarray(data.X, float)
     if before.size > SHIFT_SAMPLE_ROWS or after.size > SHIFT_SAMPLE_ROWS:
@@ -978,6 +983,26 @@ def check_period_shift(data: DataLike, analysis: Analysis,
                 f"(seed {seed})")
     table = shift_table(X[before], X[after], analysis.spec.inputs)
     table.insert(0, "comparison", how)
+    return table
+
+
+def check_period_shift(data: DataLike, analysis: Analysis,
+                       basis: RowOrder | None = None, table: pd.DataFrame | None = None
+                       ) -> tuple[Finding | None, pd.DataFrame]:
+    """Do the inputs of the later period differ from those of the earlier one?
+
+    Per input: standardised mean difference, Kolmogorov-Smirnov statistic,
+    population stability index on the earlier rows' decile bins and the share
+    of later rows outside the earlier range (`shift_table`). An input has
+    moved when its PSI exceeds 0.1 (common practice: 0.1-0.25 moderate, above
+    0.25 major) and the KS p-value is below 0.01 (a gate against noise in small
+    samples). Fires when any input moved; serious when one exceeds 0.25 and
+    the row order is known to be time order (`row_order_basis`), caution when
+    it is only assumed; quiet when the rows are not in time order. ``table``:
+    `period_shift_table` already computed for this data and analysis.
+    """
+    table = period_shift_table(data, analysis) if table is None else table
+    how = str(table["comparison"].iloc[0]) if len(table) else period_rows(data, analysis)[2]
     moved = table[table["moved"]]
     basis = row_order_basis(data, analysis) if basis is None else basis
     if moved.empty or not basis.use:
@@ -1014,12 +1039,14 @@ def probe_points(X: np.ndarray) -> pd.DataFrame:
     ``'percentile'``), ``x`` and one column per input index (``_x0``...).
     """
     X = np.asarray(X, float)
-    lo, hi = X.min(axis=0), X.max(axis=0)
-    # one partial sort per column gives both percentiles and the median; each column is
-    # copied to contiguous memory first (partitioning a strided column of a row-major
-    # table is several times slower; the values are the same)
-    p1, med, p99 = np.array([np.percentile(np.ascontiguousarray(X[:, j]), [1, 50, 99])
-                             for j in range(X.shape[1])]).reshape(-1, 3).T
+    # one sort per column gives its ends, both percentiles and the median (sorting a
+    # contiguous copy is faster than partitioning the strided column, and the
+    # percentiles of the sorted values are the same numbers)
+    ends = np.empty((5, X.shape[1]))
+    for j in range(X.shape[1]):
+        s = np.sort(X[:, j])
+        ends[:, j] = (s[0], s[-1], *np.percentile(s, [1, 50, 99]))
+    lo, hi, p1, med, p99 = ends
     rows = []
     for j in range(X.shape[1]):
         span = hi[j] - lo[j] if hi[j] > lo[j] else max(abs(lo[j]), 1.0)
@@ -1040,7 +1067,8 @@ def probe_points(X: np.ndarray) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["input_index", "where", "push", "x", "point"])
 
 
-def check_extrapolation(data: DataLike, models: dict[tuple[int, float], FinalModel]
+def check_extrapolation(data: DataLike, models: dict[tuple[int, float], FinalModel],
+                        probes: pd.DataFrame | None = None
                         ) -> tuple[Finding | None, pd.DataFrame]:
     """Do candidates swing wildly just past (or near the ends of) the data?
 
@@ -1049,13 +1077,13 @@ def check_extrapolation(data: DataLike, models: dict[tuple[int, float], FinalMod
     inputs at their medians). A prediction fires when it lies beyond the
     target's observed range by more than half that range
     (`EXTRAPOLATION_MARGIN`, chosen here). Serious when more than twice the
-    range beyond.
+    range beyond. ``probes``: `probe_points` of ``data.X`` already computed.
     """
     X, y = np.asarray(data.X, float), np.asarray(data.y, float)
     inputs = tuple(getattr(data, "inputs", None) or next(iter(models.values())).input_names)
     y_lo, y_hi = float(y.min()), float(y.max())
     y_span = y_hi - y_lo if y_hi > y_lo else 1.0
-    probes = probe_points(X)
+    probes = probe_points(X) if probes is None else probes
     P = np.vstack(probes["point"].to_numpy()) if len(probes) else np.zeros((0, X.shape[1]))
     frames = []
     for (q, a), m in models.items():
@@ -1518,11 +1546,42 @@ def default_candidates(analysis: Analysis) -> list[tuple[int, float]]:
     return out
 
 
+@dataclass
+class ChecksAhead:
+    """The parts of `run_checks` that read every row but need no more than the data,
+    the analysis and the recommended model fitted on all rows, so they can be
+    computed beside other work (`checks_ahead`).
+
+    Attributes
+    ----------
+    shift : `period_shift_table`.
+    probes : `probe_points` of the inputs.
+    durbin_watson : `final_fit_durbin_watson` of the recommended model.
+    model : that model (its residuals are only used for the recommended cell).
+    """
+
+    shift: pd.DataFrame
+    probes: pd.DataFrame
+    durbin_watson: float | None
+    model: FinalModel
+
+
+def checks_ahead(data: DataLike, analysis: Analysis, model: FinalModel) -> ChecksAhead:
+    """`ChecksAhead` for ``data``, ``analysis`` and the recommended cell's ``model``.
+
+    Uses no BLAS routine and changes nothing shared, so it may run in a thread
+    while the caller computes something else; `run_checks` takes the result."""
+    return ChecksAhead(shift=period_shift_table(data, analysis),
+                       probes=probe_points(np.asarray(data.X, float)),
+                       durbin_watson=final_fit_durbin_watson(data, model), model=model)
+
+
 def run_checks(data: DataLike, analysis: Analysis,
                candidates: list[tuple[int, float]] | None = None,
                progress: Progress | None = None,
                models: dict[tuple[int, float], FinalModel] | None = None,
-               oof: tuple | None = None) -> CheckReport:
+               oof: tuple | None = None,
+               ahead: ChecksAhead | Callable[[], ChecksAhead] | None = None) -> CheckReport:
     """Run every warning-sign check on a finished analysis.
 
     Parameters
@@ -1539,6 +1598,8 @@ def run_checks(data: DataLike, analysis: Analysis,
     oof : ``(rows, residuals)``, the recommended cell's (ridge) out-of-fold residuals on
         the first round of splits already formed (`engine.intervals.PredictionIntervals.oof`);
         used for a large table instead of a pass of its own.
+    ahead : `checks_ahead` for this data and analysis, or a function that waits for it
+        (started in a thread beside other work); computed here when None.
 
     Returns
     -------
@@ -1551,11 +1612,11 @@ def run_checks(data: DataLike, analysis: Analysis,
     # coordinating threads than computing (measured: a QR of 2,400 x 18 took 0.12 s on
     # two threads under load against 0.003 s on one)
     with one_thread():
-        return _run_checks(data, analysis, candidates, progress, models, oof)
+        return _run_checks(data, analysis, candidates, progress, models, oof, ahead)
 
 
 def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
-                fitted=None, oof=None) -> CheckReport:
+                fitted=None, oof=None, ahead=None) -> CheckReport:
     def tick(f: float, msg: str) -> None:
         if progress:
             progress(f, msg)
@@ -1583,6 +1644,10 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
                                          spec.interactions)
             fold_stats = fold_summaries(data.X, data.y, design, analysis.plan)
     rec_model = models.get(rec_key) or fit_candidates(data, spec, [rec_key], **fam)[rec_key]
+    if callable(ahead):
+        ahead = ahead()
+    if ahead is not None and ahead.model is not rec_model:
+        ahead = replace(ahead, durbin_watson=None)   # residuals of another fit: not used
     report = CheckReport()
     summary = []
     basis = row_order_basis(data, analysis)
@@ -1603,7 +1668,8 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
     tick(0.15, "Checking for dependence between neighbouring rows")
     f, t_serial, comparison = check_serial_dependence(
         data, analysis, rec_model, basis, fold_stats=fold_stats,
-        oof=oof if fold_stats is not None and rec.family == "ridge" else None)
+        oof=oof if fold_stats is not None and rec.family == "ridge" else None,
+        dw=ahead.durbin_watson if ahead is not None else None)
     report.tables["serial"] = t_serial
     if comparison is not None:
         report.tables["scheme_comparison"] = comparison
@@ -1612,13 +1678,15 @@ def _run_checks(data: DataLike, analysis: Analysis, candidates, progress,
                     f"Durbin-Watson outside {DURBIN_WATSON_RANGE[0]:g}-{DURBIN_WATSON_RANGE[1]:g}"))
 
     tick(0.45, "Comparing the earlier and later rows")
-    f2, t_shift = check_period_shift(data, analysis, basis)
+    f2, t_shift = check_period_shift(data, analysis, basis,
+                                     table=ahead.shift if ahead is not None else None)
     report.tables["period_shift"] = t_shift
     summary.append(("period_shift", f2, float(t_shift["psi"].max()) if len(t_shift) else float("nan"),
                     f"an input with PSI above {PSI_MODERATE} and KS p-value below {SHIFT_P_VALUE}"))
 
     tick(0.6, "Probing predictions past the data")
-    f3, t_ext = check_extrapolation(data, models)
+    f3, t_ext = check_extrapolation(data, models,
+                                    probes=ahead.probes if ahead is not None else None)
     report.tables["extrapolation"] = t_ext
     summary.append(("extrapolation", f3, float(t_ext["beyond"].max()) if len(t_ext) else float("nan"),
                     "a prediction near or past the data more than half the target's "

@@ -1756,6 +1756,13 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         if not m.text_inputs:
             attach_text_inputs(m, getattr(source_data, "factors", None))
     model = models[_cell_key(rec.order, rec.penalty)]
+    ahead = None
+    if checks is None:
+        # the checks' passes over the rows that need only the data and this model run
+        # in a thread beside the learning curve, the intervals and the charts
+        from .checks import checks_ahead
+        from .fingerprint import in_background
+        ahead = in_background(checks_ahead, data, analysis, model)
     # the pack is made in a hidden sibling of `out` and moved into place when complete
     with ExitStack() as stack:
         if direct:
@@ -1817,7 +1824,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             shared = (sure.prediction.oof if sure is not None and (sure.order, sure.penalty)
                       == _cell_key(rec.order, rec.penalty) else None)
             checks = run_checks(data, analysis, cells, progress=_stage(progress, 0.72, 0.76),
-                                models=models, oof=shared)
+                                models=models, oof=shared, ahead=ahead)
         findings = _finding_dicts(checks)
         facts = _data_facts(source_data, loaded, source_name)
         if full.rows_left_out:

@@ -347,6 +347,51 @@ def test_drifting_demo_log_under_shuffled_folds():
             > comp.loc["your scheme, recommended model", "validation_mse"])
 
 
+def test_checks_computed_ahead_give_the_same_report():
+    # the row passes computed in a thread beside other work (`checks_ahead`) change nothing
+    from engine.checks import checks_ahead, default_candidates
+    from engine.compare import fit_candidates
+    from engine.fingerprint import in_background
+    data = _shift_data(seed=5, n=900)
+    spec = SweepSpec("y", ("u", "v", "w"), max_order=3,
+                     scheme=SchemeSpec("kfold", order_column="t"))
+    an = analyse(data, spec)
+    cells = default_candidates(an)
+    models = fit_candidates(data, spec, cells)
+    rec = models[cells[0]]
+    plain = run_checks(data, an, cells, models=models)
+    for ahead in (checks_ahead(data, an, rec), in_background(checks_ahead, data, an, rec)):
+        early = run_checks(data, an, cells, models=models, ahead=ahead)
+        assert early.codes() == plain.codes() and "period_shift" in early.codes()
+        assert [f.to_dict() for f in early.findings] == [f.to_dict() for f in plain.findings]
+        assert early.tables.keys() == plain.tables.keys()
+        for key, table in plain.tables.items():
+            assert early.tables[key].equals(table), key
+    # residuals of another fit than the one checked are not used for Durbin-Watson
+    other = fit_candidates(data, spec, [(1, 0.0)])[(1, 0.0)]
+    mixed = run_checks(data, an, cells, models=models, ahead=checks_ahead(data, an, other))
+    assert mixed.tables["serial"].equals(plain.tables["serial"])
+
+
+def test_probe_points_take_numpy_percentiles_and_ends():
+    # reference: numpy.percentile (linear interpolation), numpy.median, min and max
+    from engine.checks import probe_points
+    rng = np.random.default_rng(8)
+    X = np.column_stack([rng.normal(size=1001), np.round(rng.uniform(0, 3, 1001), 1),
+                         rng.exponential(size=1001)])
+    t = probe_points(X)
+    med = np.median(X, axis=0)
+    for j in range(X.shape[1]):
+        rows = t[t["input_index"] == j].set_index("where")
+        assert rows.loc["1st percentile", "x"] == np.percentile(X[:, j], 1)
+        assert rows.loc["99th percentile", "x"] == np.percentile(X[:, j], 99)
+        span = X[:, j].max() - X[:, j].min()
+        assert rows.loc["10% past the largest value", "x"] == X[:, j].max() + 0.1 * span
+        assert rows.loc["25% below the smallest value", "x"] == X[:, j].min() - 0.25 * span
+        for point in rows["point"]:
+            assert np.array_equal(np.delete(point, j), np.delete(med, j))
+
+
 def test_suggested_gap_is_capped_at_half_a_block():
     assert suggested_gap(0.0, 1000, 5) == 0
     assert suggested_gap(0.5, 1000, 5) == math.ceil(3 / math.log(2))
