@@ -1,6 +1,4 @@
 """``python -m engine``: the same command line as ``fitladder``."""
-import sys
+from .cli import entry
 
-from .cli import main
-
-sys.exit(main())
+entry()
