@@ -4,7 +4,8 @@ Writes an invented plant log (one input acting as a polynomial of order 6, 19
 more inputs acting linearly, noise) as CSV, runs ``fitladder run`` on it as a
 separate process (orders 0-6, ridge grid, 5 shuffled folds) and times each
 step from the progress lines the command prints on stderr. In the same run it
-times ``pandas.read_csv(engine="pyarrow")`` of the same file.
+times ``pandas.read_csv(engine="pyarrow")`` of the same file three times and
+takes the median (one read's time varies by up to 2x between runs here).
 
 Usage::
 
@@ -17,6 +18,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -27,6 +29,8 @@ import numpy as np
 import pandas as pd
 
 REPO = Path(__file__).resolve().parents[1]
+#: reads of the file with pandas' pyarrow engine; their median is the denominator
+READS = 3
 
 #: progress messages (prefix) -> step name
 STEPS = [
@@ -98,13 +102,17 @@ def main() -> None:
             if not path.exists():
                 make_table(rows).to_csv(path, index=False)
             size_mb = path.stat().st_size / 1e6
-            t = time.perf_counter()
-            frame = pd.read_csv(path, engine="pyarrow")
-            read_s = time.perf_counter() - t
-            del frame
+            reads = []
+            for _ in range(READS):   # the read's time varies from run to run: the median
+                t = time.perf_counter()
+                frame = pd.read_csv(path, engine="pyarrow")
+                reads.append(time.perf_counter() - t)
+                del frame
+            read_s = statistics.median(reads)
             total, steps = run_once(path, base / f"pack_{rows}")
-            print(f"rows {rows} ({size_mb:.0f} MB): pandas pyarrow read {read_s:.2f} s; "
-                  f"fitladder run {total:.2f} s")
+            print(f"rows {rows} ({size_mb:.0f} MB): pandas pyarrow read {read_s:.2f} s (median "
+                  f"of {', '.join(f'{r:.2f}' for r in reads)}); fitladder run {total:.2f} s "
+                  f"(load average before the run {os.getloadavg()[0]:.1f})")
             for name, sec in steps.items():
                 print(f"   {name:<22s} {sec:8.2f} s")
             ratio = total / read_s
