@@ -412,13 +412,27 @@ def data_grid(data: DataLike, spec: SweepSpec, basis: PolynomialBasis | None = N
 
 
 def fit_cell(data: DataLike, spec: SweepSpec, order: int, penalty: float,
-             summary=None, family: str = "ridge", l1_ratio: float = 0.0) -> FinalModel:
+             summary=None, family: str = "ridge", l1_ratio: float = 0.0,
+             x_range: tuple | None = None) -> FinalModel:
     """Fit one cell on all rows (see `engine.final_fit.fit_final`; ``summary``:
-    all-rows summaries to solve from, `engine.summaries.summarise_rows`)."""
-    _check_data(data, spec)
+    all-rows summaries to solve from, `engine.summaries.summarise_rows`;
+    ``x_range``: the inputs' minima and maxima from `checked_range`, which has
+    checked the data already)."""
+    if x_range is None:
+        _check_data(data, spec)
     return fit_final(data.X, data.y, spec.inputs, order, penalty, spec.interactions,
                      target=spec.target, summary=summary, family=family,
-                     l1_ratio=l1_ratio)
+                     l1_ratio=l1_ratio, x_range=x_range)
+
+
+def checked_range(data: DataLike, spec: SweepSpec) -> tuple[np.ndarray, np.ndarray]:
+    """The data checked as `fit_cell` checks them, and each input's minimum and maximum:
+    several cells fitted on the same rows (`fit_cell` with ``x_range``) look once."""
+    _check_data(data, spec)
+    X = np.asarray(data.X, float)
+    if X.ndim == 1:
+        X = X[:, None]
+    return X.min(axis=0), X.max(axis=0)
 
 
 def train_sizes(fractions, n_max: int) -> np.ndarray:

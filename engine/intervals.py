@@ -117,9 +117,15 @@ class CellDesign:
 
     @classmethod
     def make(cls, data, spec: SweepSpec, order: int, penalty: float, family: str = "ridge",
-             l1_ratio: float = 0.0) -> "CellDesign":
+             l1_ratio: float = 0.0, basis: PolynomialBasis | None = None) -> "CellDesign":
+        """The cell's design; ``basis``: the design of these rows at this or a higher
+        order already fitted (its leading block of ``order`` is taken)."""
         X = np.asarray(data.X, float)
-        basis = PolynomialBasis.fit(X, spec.inputs, int(order), spec.interactions)
+        if basis is not None and basis.max_order >= int(order):
+            basis = replace(basis, max_order=int(order),
+                            terms=basis.terms[:basis.n_terms_at(order)])
+        else:
+            basis = PolynomialBasis.fit(X, spec.inputs, int(order), spec.interactions)
         return cls(basis, X, np.asarray(data.y, float), float(penalty), family, float(l1_ratio))
 
     def matches(self, order: int, penalty: float, family: str, l1_ratio: float) -> bool:
@@ -360,23 +366,37 @@ def _kth_of_union(centres: np.ndarray, radii: list[np.ndarray], k: int, sign: fl
 
     ``centres`` (m, S); ``radii[s]`` sorted ascending. Solved by bisection on
     the value with counts from binary searches, so no (m x N) matrix is formed.
+    A row whose midpoint equals an end of its bracket can move no further; such
+    rows are set aside every few steps (the result is the same).
     """
     m, S = centres.shape
     rmax = max(float(r[-1]) if r.size else 0.0 for r in radii)
     lo = centres.min(axis=1) - rmax - 1.0
     hi = centres.max(axis=1) + rmax + 1.0
-    for _ in range(iterations):
-        mid = 0.5 * (lo + hi)
-        count = np.zeros(m)
+    live = np.arange(m)
+    C = np.ascontiguousarray(centres.T)        # (S, live rows)
+    L, H = lo, hi
+    for it in range(iterations):
+        mid = 0.5 * (L + H)
+        if it % 4 == 3:
+            moving = (mid != L) & (mid != H)
+            if not moving.all():
+                hi[live] = H
+                live = live[moving]
+                if live.size == 0:
+                    return hi
+                L, H, C, mid = L[moving], H[moving], C[:, moving], mid[moving]
+        count = np.zeros(live.size)
         for s in range(S):
             r = radii[s]
             if sign < 0:    # values c - r <= t  <=>  r >= c - t
-                count += r.size - np.searchsorted(r, centres[:, s] - mid, side="left")
+                count += r.size - np.searchsorted(r, C[s] - mid, side="left")
             else:           # values c + r <= t  <=>  r <= t - c
-                count += np.searchsorted(r, mid - centres[:, s], side="right")
+                count += np.searchsorted(r, mid - C[s], side="right")
         ok = count >= k
-        hi = np.where(ok, mid, hi)
-        lo = np.where(ok, lo, mid)
+        H = np.where(ok, mid, H)
+        L = np.where(ok, L, mid)
+    hi[live] = H
     return hi
 
 
@@ -1266,9 +1286,15 @@ def how_sure(analysis, data, spec: SweepSpec | None = None, level: float = LEVEL
         # one design (scaled inputs kept) serves both; BLAS on one thread for the many
         # small solves, the row passes pick their own
         with one_thread():
-            design = CellDesign.make(data_w, spec_w, rec.order, rec.penalty, family, l1)
             plain = analysis.model_data is None
             scaled = getattr(analysis, "scaled", None)
+            b = getattr(analysis, "basis", None)
+            # the sweep's design of these rows (large tables): no second look at every row
+            same = (plain and scaled is not None and b is not None
+                    and scaled.shape == np.shape(data_w.X) and b.input_names == spec_w.inputs
+                    and b.interactions == spec_w.interactions)
+            design = CellDesign.make(data_w, spec_w, rec.order, rec.penalty, family, l1,
+                                     basis=b if same else None)
             if (plain and scaled is not None and scaled.shape == design.X.shape
                     and np.array_equal(design.basis.centre, analysis.basis.centre)
                     and np.array_equal(design.basis.half_range, analysis.basis.half_range)):
