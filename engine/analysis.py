@@ -741,15 +741,28 @@ def _learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None,
                                  float(tr_mse[j, k]), float(va_mse[j, k])))
     folds = pd.DataFrame(rows, columns=["order", "penalty", "train_size", "rows_used", "fold",
                                         "train_mse", "validation_mse"])
-    g = folds.groupby(["order", "penalty", "train_size"], sort=True)
+    keys = ["order", "penalty", "train_size"]
+    g = folds.groupby(keys, sort=True)
     S = plan.n_splits
 
     def se(v):
         return float(np.std(v, ddof=1) / np.sqrt(len(v))) if len(v) > 1 else float("nan")
 
-    table = g.agg(train_mse=("train_mse", "mean"), train_mse_se=("train_mse", se),
-                  validation_mse=("validation_mse", "mean"),
-                  validation_mse_se=("validation_mse", se)).reset_index()
+    sizes_g = g.size().to_numpy()
+    if len(folds) and sizes_g.min() == sizes_g.max() > 1:
+        # every group has the same number of splits: the standard errors of all groups
+        # at once, each over its rows in table order (as the grouping takes them)
+        at = np.lexsort([folds[k].to_numpy() for k in reversed(keys)])
+        table = g.agg(train_mse=("train_mse", "mean"),
+                      validation_mse=("validation_mse", "mean")).reset_index()
+        for col in ("train_mse", "validation_mse"):
+            v = folds[col].to_numpy(float)[at].reshape(len(sizes_g), -1)
+            table.insert(table.columns.get_loc(col) + 1, f"{col}_se",
+                         np.std(v, axis=1, ddof=1) / np.sqrt(v.shape[1]))
+    else:
+        table = g.agg(train_mse=("train_mse", "mean"), train_mse_se=("train_mse", se),
+                      validation_mse=("validation_mse", "mean"),
+                      validation_mse_se=("validation_mse", se)).reset_index()
     table["fraction"] = table["train_size"] / len(plan.train_sets[0])
     table["folds"] = S
     return LearningCurve(folds=folds, table=table, note=note)
