@@ -240,8 +240,10 @@ class CellDesign:
 
 
 def _step(p: int) -> int:
-    """Rows per chunk of a pass that expands the design (about 8 MB of terms)."""
-    return int(max(256, min(CHUNK_ROWS, (8 << 20) // max(p, 1))))
+    """Rows per chunk of a pass that expands the design and multiplies it by a few fits:
+    about 4 MB of terms, so that the product reads them from cache (measured on 1e6 rows
+    x 120 terms: 0.45 s against 0.6 s with 64 MB chunks)."""
+    return int(max(256, min(CHUNK_ROWS, (1 << 19) // max(p, 1))))
 
 
 def _intercepts(fits: "SetFits") -> np.ndarray:
