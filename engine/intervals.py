@@ -256,19 +256,41 @@ def _intercepts(fits: "SetFits") -> np.ndarray:
 def _ridge_by_solve(summary: TermSummary, raw: RawMap, penalty: float):
     """Ridge at one positive penalty by ``(G + alpha I) w = c`` on the standardised raw terms
     (`engine.families.ridge` solves the same system through an eigen-decomposition);
-    None when a system is not positive definite."""
-    from .families.base import FamilyFit, fill_from_standardised, finish_intercepts, standardise
-    st = standardise(summary, raw)
-    Gs = st.G + penalty * np.eye(summary.p)[None, :, :]
+    None when a system is not positive definite. Only ``beta_u`` and ``edf`` (NaN) of the
+    returned fit are filled.
+
+    The standardisation is that of `engine.families.base.standardise`, with the raw map
+    scaled once when it is the same for every set (as `RawMap.select` gives it for one
+    term set) rather than once per set.
+    """
+    from .families.base import FamilyFit, standardise
+    p = summary.p
+    if raw.A.ndim == 3 and raw.A.shape[0] and raw.A.strides[0] == 0:
+        A = raw.A[0]
+        r = np.abs(A).max(axis=1)
+        r = np.where(r > 0, r, 1.0)
+        As = A / r[:, None]
+        Mff = summary.M[:, :p, :p]
+        Mfy = summary.M[:, :p, -1]
+        Mraw = As @ Mff @ As.T
+        craw = np.einsum("sj,sij->si", Mfy, np.broadcast_to(As, (summary.n_sets, p, p)))
+        var = np.clip(np.diagonal(Mraw, axis1=1, axis2=2), 0, None) / summary.n[:, None]
+        ds = np.where(~(var > 0), 1.0, np.sqrt(var))
+        G = Mraw / (ds[:, :, None] * ds[:, None, :])
+        c = craw / ds
+        AsT = As.T
+    else:
+        st = standardise(summary, raw)
+        G, c, ds, AsT = st.G, st.c, st.ds, st.As.transpose(0, 2, 1)
+    Gs = G + penalty * np.eye(p)[None, :, :]
     try:
         np.linalg.cholesky(Gs)          # positive definite, as the penalty makes it
     except np.linalg.LinAlgError:
         return None
     fit = FamilyFit.empty(summary, 1)
-    W = np.linalg.solve(Gs, st.c[:, :, None])
-    fill_from_standardised(fit, summary, raw, st, W, np.array([True]))
+    W = np.linalg.solve(Gs, c[:, :, None])
+    fit.beta_u[:, :, 0:1] = AsT @ (W / ds[:, :, None])
     fit.edf[:, 0] = np.nan
-    finish_intercepts(fit, summary, raw)
     return fit
 
 
