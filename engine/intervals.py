@@ -384,14 +384,75 @@ def analytic_bounds(fits: SetFits, s: int, F: np.ndarray,
     return pred, pred - half, pred + half
 
 
+def _union_count(C: np.ndarray, radii: list[np.ndarray], t: np.ndarray, sign: float) -> np.ndarray:
+    """How many of ``{C[s] + sign * r : r in radii[s]}`` are ``<= t``, per point (C is (S, m))."""
+    count = np.zeros(t.size)
+    for s, r in enumerate(radii):
+        if sign < 0:    # values c - r <= t  <=>  r >= c - t
+            count += r.size - np.searchsorted(r, C[s] - t, side="left")
+        else:           # values c + r <= t  <=>  r <= t - c
+            count += np.searchsorted(r, t - C[s], side="right")
+    return count
+
+
+def _settle(C: np.ndarray, radii: list[np.ndarray], L: np.ndarray, H: np.ndarray, k: int,
+            sign: float) -> tuple[np.ndarray, np.ndarray]:
+    """Points whose bracket ``(L, H]`` holds one value of the union (one residual of one
+    split, possibly repeated): the float at which that value is first counted.
+
+    Returns ``(settled (m,) bool, t (m,))``: for a settled point ``t`` is the least
+    float at which the count (`_union_count`) reaches ``k``, checked by counting at
+    ``t`` and at the float below it, so it is exactly where the bisection ends.
+    """
+    m = L.size
+    sets = np.zeros(m, dtype=np.int64)     # sets with values inside the bracket
+    single = np.ones(m, dtype=bool)        # ... each of them a single (repeated) value
+    which = np.zeros(m, dtype=np.int64)
+    rho = np.zeros(m)
+    for s, r in enumerate(radii):
+        if sign < 0:
+            a = np.searchsorted(r, C[s] - H, side="left")
+            b = np.searchsorted(r, C[s] - L, side="left")
+        else:
+            a = np.searchsorted(r, L - C[s], side="right")
+            b = np.searchsorted(r, H - C[s], side="right")
+        has = b > a
+        if r.size:
+            first = r[np.minimum(a, r.size - 1)]
+            single &= ~has | (first == r[np.maximum(b - 1, 0)])
+            which = np.where(has, s, which)
+            rho = np.where(has, first, rho)
+        sets += has
+    ok = (sets == 1) & single
+    if not ok.any():
+        return ok, H
+    c = np.take_along_axis(C, which[None, :], axis=0)[0]
+    # the least float t with the one value counted: r >= c - t (sign -) or r <= t - c (+)
+    t = c - rho if sign < 0 else rho + c
+
+    def counted(v):
+        return (c - v <= rho) if sign < 0 else (v - c >= rho)
+    for _ in range(4):
+        t = np.where(counted(t), t, np.nextafter(t, np.inf))
+    for _ in range(4):
+        below = np.nextafter(t, -np.inf)
+        t = np.where(counted(below), below, t)
+    ok &= (_union_count(C, radii, t, sign) >= k)
+    ok &= (_union_count(C, radii, np.nextafter(t, -np.inf), sign) < k)
+    return ok, t
+
+
 def _kth_of_union(centres: np.ndarray, radii: list[np.ndarray], k: int, sign: float,
                   iterations: int = 70) -> np.ndarray:
     """k-th smallest of ``{centres[:, s] + sign * r : r in radii[s], all s}`` per row.
 
     ``centres`` (m, S); ``radii[s]`` sorted ascending. Solved by bisection on
-    the value with counts from binary searches, so no (m x N) matrix is formed.
-    A row whose midpoint equals an end of its bracket can move no further; such
-    rows are set aside every few steps (the result is the same).
+    the value with counts from binary searches, so no (m x N) matrix is formed;
+    the bisection ends at the least float whose count reaches ``k``. Rows whose
+    bracket has narrowed to one value of the union take that float directly
+    (found from the value and checked by counting); rows whose midpoint equals
+    an end of their bracket can move no further. Both are set aside every few
+    steps (the result is the same).
     """
     m, S = centres.shape
     rmax = max(float(r[-1]) if r.size else 0.0 for r in radii)
@@ -404,20 +465,18 @@ def _kth_of_union(centres: np.ndarray, radii: list[np.ndarray], k: int, sign: fl
         mid = 0.5 * (L + H)
         if it % 4 == 3:
             moving = (mid != L) & (mid != H)
+            hi[live[~moving]] = H[~moving]          # adjacent floats: H is the answer
+            if it >= 23:
+                done, t = _settle(C, radii, L, H, k, sign)
+                done &= moving
+                hi[live[done]] = t[done]
+                moving &= ~done
             if not moving.all():
-                hi[live] = H
                 live = live[moving]
                 if live.size == 0:
                     return hi
                 L, H, C, mid = L[moving], H[moving], C[:, moving], mid[moving]
-        count = np.zeros(live.size)
-        for s in range(S):
-            r = radii[s]
-            if sign < 0:    # values c - r <= t  <=>  r >= c - t
-                count += r.size - np.searchsorted(r, C[s] - mid, side="left")
-            else:           # values c + r <= t  <=>  r <= t - c
-                count += np.searchsorted(r, mid - C[s], side="right")
-        ok = count >= k
+        ok = _union_count(C, radii, mid, sign) >= k
         H = np.where(ok, mid, H)
         L = np.where(ok, L, mid)
     hi[live] = H

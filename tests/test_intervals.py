@@ -97,6 +97,28 @@ def test_cvplus_bounds_match_the_definition_by_sorting():
     assert np.all(np.isinf(lo2)) and np.all(np.isinf(hi2))
 
 
+def test_cvplus_bounds_on_many_residuals_with_ties_match_sorting():
+    # Reference: the same definition (Barber et al. 2021) by brute-force sorting, on sets
+    # large enough that the bracket of most points narrows to a single value of the union
+    # before the float bisection ends, with repeated residuals and an offset centre.
+    rng = np.random.default_rng(11)
+    S, m = 5, 60
+    radii = [np.sort(np.round(np.abs(rng.standard_t(3, size=s)), 2)) for s in (400, 500, 600,
+                                                                                 700, 800)]
+    centres = 1e3 + rng.normal(size=(m, 1)) * 5 + rng.normal(size=(m, S)) * 0.05
+    for level in (0.5, 0.9):
+        lo, hi = cvplus_bounds(centres, radii, level=level)
+        N = sum(r.size for r in radii)
+        alpha = 1 - level
+        k_lo, k_hi = math.floor(alpha * (N + 1)), math.ceil((1 - alpha) * (N + 1))
+        for i in range(m):
+            lows = np.sort(np.concatenate([centres[i, s] - radii[s] for s in range(S)]))
+            highs = np.sort(np.concatenate([centres[i, s] + radii[s] for s in range(S)]))
+            # the bisection ends within one rounding of the sorted value
+            assert lo[i] == pytest.approx(lows[k_lo - 1], rel=4e-16, abs=0)
+            assert hi[i] == pytest.approx(highs[k_hi - 1], rel=4e-16, abs=0)
+
+
 def test_split_models_reproduce_the_sweep_validation_errors():
     # The intervals reuse the sweep's splits and solver: the validation residuals of each
     # split model give back the sweep's per-split validation MSE (scikit-learn parity of
