@@ -704,11 +704,12 @@ def _grouped_error_stats(design: CellDesign, beta_u: np.ndarray, c_out: np.ndarr
     R, G = of.shape
     n = design.y.size
     cnt, s1, s2 = np.zeros((R, k)), np.zeros((R, k)), np.zeros((R, k))
-    order = np.argsort(group, kind="stable")
+    # small labels sort by radix (the same stable order)
+    order = np.argsort(group.astype(np.int16) if G < (1 << 15) else group, kind="stable")
     bounds = np.r_[0, np.cumsum(np.bincount(group, minlength=G))]
     p = design.p
     step = _step(p)
-    buf = np.empty((step, p), order="F")
+    buf = np.empty((min(step, n), p), order="F")
     ar = np.arange(R)
     if extra is not None:
         beta_x, c_x, assign_x = extra
@@ -741,25 +742,26 @@ def _grouped_error_stats(design: CellDesign, beta_u: np.ndarray, c_out: np.ndarr
                 take = np.r_[cols, S1 + need]
             else:
                 take = cols
+            # predictions one fit per row of PT (each fit's values contiguous)
             if p:
-                P = design.basis.expand_scaled(design.U[rows], out=buf[:rows.size]) @ \
-                    np.ascontiguousarray(beta_all[take].T)
-                P += c_all[take]
+                F = design.basis.expand_scaled(design.U[rows], out=buf[:rows.size])
+                PT = beta_all[take] @ F.T
+                PT += c_all[take][:, None]
             else:
-                P = np.broadcast_to(c_all[take], (rows.size, take.size))
+                PT = np.broadcast_to(c_all[take][:, None], (take.size, rows.size))
             yr = design.y[rows]
-            e = (yr[:, None] - P[:, :R]) ** 2 - shift
+            e = (yr - PT[:R]) ** 2 - shift
             cnt[ar, of[:, g]] += rows.size
-            s1[ar, of[:, g]] += e.sum(axis=0)
-            s2[ar, of[:, g]] += (e * e).sum(axis=0)
+            s1[ar, of[:, g]] += e.sum(axis=1)
+            s2[ar, of[:, g]] += (e * e).sum(axis=1)
             if extra is not None:
                 for a in range(A_):
                     if one[a] >= 0:
-                        res[a, rows] = yr - P[:, pos[one[a]]]
+                        res[a, rows] = yr - PT[pos[one[a]]]
                     elif one[a] == -2:
                         s = sub[a]
                         at = np.flatnonzero(s >= 0)
-                        res[a, rows[at]] = yr[at] - P[at, pos[s[at]]]
+                        res[a, rows[at]] = yr[at] - PT[pos[s[at]], at]
     return (cnt, s1, s2), res
 
 
