@@ -412,13 +412,27 @@ def data_grid(data: DataLike, spec: SweepSpec, basis: PolynomialBasis | None = N
 
 
 def fit_cell(data: DataLike, spec: SweepSpec, order: int, penalty: float,
-             summary=None, family: str = "ridge", l1_ratio: float = 0.0) -> FinalModel:
+             summary=None, family: str = "ridge", l1_ratio: float = 0.0,
+             x_range: tuple | None = None) -> FinalModel:
     """Fit one cell on all rows (see `engine.final_fit.fit_final`; ``summary``:
-    all-rows summaries to solve from, `engine.summaries.summarise_rows`)."""
-    _check_data(data, spec)
+    all-rows summaries to solve from, `engine.summaries.summarise_rows`;
+    ``x_range``: the inputs' minima and maxima from `checked_range`, which has
+    checked the data already)."""
+    if x_range is None:
+        _check_data(data, spec)
     return fit_final(data.X, data.y, spec.inputs, order, penalty, spec.interactions,
                      target=spec.target, summary=summary, family=family,
-                     l1_ratio=l1_ratio)
+                     l1_ratio=l1_ratio, x_range=x_range)
+
+
+def checked_range(data: DataLike, spec: SweepSpec) -> tuple[np.ndarray, np.ndarray]:
+    """The data checked as `fit_cell` checks them, and each input's minimum and maximum:
+    several cells fitted on the same rows (`fit_cell` with ``x_range``) look once."""
+    _check_data(data, spec)
+    X = np.asarray(data.X, float)
+    if X.ndim == 1:
+        X = X[:, None]
+    return X.min(axis=0), X.max(axis=0)
 
 
 def train_sizes(fractions, n_max: int) -> np.ndarray:
@@ -727,15 +741,28 @@ def _learning_curve(data: DataLike, spec: SweepSpec, orders: list[int] | None,
                                  float(tr_mse[j, k]), float(va_mse[j, k])))
     folds = pd.DataFrame(rows, columns=["order", "penalty", "train_size", "rows_used", "fold",
                                         "train_mse", "validation_mse"])
-    g = folds.groupby(["order", "penalty", "train_size"], sort=True)
+    keys = ["order", "penalty", "train_size"]
+    g = folds.groupby(keys, sort=True)
     S = plan.n_splits
 
     def se(v):
         return float(np.std(v, ddof=1) / np.sqrt(len(v))) if len(v) > 1 else float("nan")
 
-    table = g.agg(train_mse=("train_mse", "mean"), train_mse_se=("train_mse", se),
-                  validation_mse=("validation_mse", "mean"),
-                  validation_mse_se=("validation_mse", se)).reset_index()
+    sizes_g = g.size().to_numpy()
+    if len(folds) and sizes_g.min() == sizes_g.max() > 1:
+        # every group has the same number of splits: the standard errors of all groups
+        # at once, each over its rows in table order (as the grouping takes them)
+        at = np.lexsort([folds[k].to_numpy() for k in reversed(keys)])
+        table = g.agg(train_mse=("train_mse", "mean"),
+                      validation_mse=("validation_mse", "mean")).reset_index()
+        for col in ("train_mse", "validation_mse"):
+            v = folds[col].to_numpy(float)[at].reshape(len(sizes_g), -1)
+            table.insert(table.columns.get_loc(col) + 1, f"{col}_se",
+                         np.std(v, axis=1, ddof=1) / np.sqrt(v.shape[1]))
+    else:
+        table = g.agg(train_mse=("train_mse", "mean"), train_mse_se=("train_mse", se),
+                      validation_mse=("validation_mse", "mean"),
+                      validation_mse_se=("validation_mse", se)).reset_index()
     table["fraction"] = table["train_size"] / len(plan.train_sets[0])
     table["folds"] = S
     return LearningCurve(folds=folds, table=table, note=note)

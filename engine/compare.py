@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .analysis import DataLike, fit_cell
+from .analysis import DataLike, checked_range, fit_cell
 from .design import PolynomialBasis
 from .summaries import LARGE_ROWS, summarise_rows
 from .final_fit import FinalModel, attach_text_inputs
@@ -40,10 +40,11 @@ def fit_candidates(data: DataLike, spec: SweepSpec, cells: list[tuple[int, float
             basis = PolynomialBasis.fit(np.asarray(data.X, float), spec.inputs,
                                         max(q for q, _ in keys), spec.interactions)
             summary = summarise_rows(data.X, data.y, basis)
+        x_range = checked_range(data, spec) if len(keys) > 1 else None
         for key in keys:
             out[key] = attach_text_inputs(
                 fit_cell(data, spec, key[0], key[1], summary=summary, family=family,
-                         l1_ratio=l1_ratio), getattr(data, "factors", None))
+                         l1_ratio=l1_ratio, x_range=x_range), getattr(data, "factors", None))
     return out
 
 

@@ -291,7 +291,7 @@ def _solve_from_summary(summary, X: np.ndarray, y: np.ndarray, order: int, penal
 def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: float = 0.0,
               interactions: bool = False, target: str = "y",
               basis: PolynomialBasis | None = None, summary=None, family: str = "ridge",
-              l1_ratio: float = 0.0) -> FinalModel:
+              l1_ratio: float = 0.0, x_range: tuple | None = None) -> FinalModel:
     """Fit the model of ``order`` and ``penalty`` on all rows.
 
     Parameters
@@ -308,6 +308,8 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         full design in memory) instead of by QR on the rows.
     family : ``"ridge"``, ``"lasso"`` or ``"elasticnet"`` (see `engine.families`).
     l1_ratio : elastic-net mixing parameter (1 for the lasso).
+    x_range : ``(X.min(axis=0), X.max(axis=0))`` when already known (several
+        cells fitted on the same rows look at every row once for it).
 
     Returns
     -------
@@ -350,7 +352,7 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
                                          [Fraction(float(v)) for v in g])
         return _finish(basis, X, y, order, penalty, input_names, target, E, poly_u,
                        scale_u, shift_u, dsd, cond, edf, notes, sv,
-                       sse=_summary_sse(summary, order, np.asarray(g, float)))
+                       sse=_summary_sse(summary, order, np.asarray(g, float)), x_range=x_range)
     U = basis.scale(X)          # the row route (small tables) only
     Fu = basis.expand_scaled(U, order=order) if p else np.zeros((n, 0))
     raw_s = Fu @ As.T + a0 / r if p else Fu
@@ -400,7 +402,7 @@ def fit_final(X: np.ndarray, y: np.ndarray, input_names, order: int, penalty: fl
         edf = (1.0 + float(np.sum(sv ** 2 / (sv ** 2 + penalty))) if family == "ridge"
                else edf_cd)
     model = _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u,
-                    shift_u, dsd, cond, edf, notes, sv if p else None)
+                    shift_u, dsd, cond, edf, notes, sv if p else None, x_range=x_range)
     if family != "ridge" and penalty > 0:
         model.family = str(family)
         model.l1_ratio = 1.0 if family == "lasso" else float(l1_ratio)
@@ -419,9 +421,11 @@ def _summary_sse(summary, order: int, g: np.ndarray) -> float | None:
 
 
 def _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u, shift_u,
-            dsd, cond, edf, notes, sv, sse: float | None = None) -> FinalModel:
+            dsd, cond, edf, notes, sv, sse: float | None = None,
+            x_range: tuple | None = None) -> FinalModel:
     """Exact map to raw powers, the model, and its fit summaries (``sse``: the training
-    sum of squared errors when already known from summaries; else from the rows)."""
+    sum of squared errors when already known from summaries; else from the rows;
+    ``x_range``: the inputs' minima and maxima when already known)."""
     n, d = X.shape
     ybar = float(np.mean(y))
     poly_x = _substitute(poly_u, scale_u, shift_u)
@@ -440,7 +444,8 @@ def _finish(basis, X, y, order, penalty, input_names, target, E, poly_u, scale_u
         centre=basis.centre.copy(), half_range=basis.half_range.copy(), exponents=E.copy(),
         scaled_intercept=su_int, scaled_coefficients=su, condition_number=cond, n_rows=n,
         r2=float("nan"), residual_sd=float("nan"), train_mse=float("nan"), effective_df=edf,
-        x_min=X.min(axis=0), x_max=X.max(axis=0), notes=notes,
+        x_min=X.min(axis=0) if x_range is None else np.array(x_range[0], float),
+        x_max=X.max(axis=0) if x_range is None else np.array(x_range[1], float), notes=notes,
         design_singular_values=None if sv is None else np.asarray(sv, float))
     if sse is None:
         resid = y - model.predict(X)

@@ -97,6 +97,28 @@ def test_cvplus_bounds_match_the_definition_by_sorting():
     assert np.all(np.isinf(lo2)) and np.all(np.isinf(hi2))
 
 
+def test_cvplus_bounds_on_many_residuals_with_ties_match_sorting():
+    # Reference: the same definition (Barber et al. 2021) by brute-force sorting, on sets
+    # large enough that the bracket of most points narrows to a single value of the union
+    # before the float bisection ends, with repeated residuals and an offset centre.
+    rng = np.random.default_rng(11)
+    S, m = 5, 60
+    radii = [np.sort(np.round(np.abs(rng.standard_t(3, size=s)), 2)) for s in (400, 500, 600,
+                                                                                 700, 800)]
+    centres = 1e3 + rng.normal(size=(m, 1)) * 5 + rng.normal(size=(m, S)) * 0.05
+    for level in (0.5, 0.9):
+        lo, hi = cvplus_bounds(centres, radii, level=level)
+        N = sum(r.size for r in radii)
+        alpha = 1 - level
+        k_lo, k_hi = math.floor(alpha * (N + 1)), math.ceil((1 - alpha) * (N + 1))
+        for i in range(m):
+            lows = np.sort(np.concatenate([centres[i, s] - radii[s] for s in range(S)]))
+            highs = np.sort(np.concatenate([centres[i, s] + radii[s] for s in range(S)]))
+            # the bisection ends within one rounding of the sorted value
+            assert lo[i] == pytest.approx(lows[k_lo - 1], rel=4e-16, abs=0)
+            assert hi[i] == pytest.approx(highs[k_hi - 1], rel=4e-16, abs=0)
+
+
 def test_split_models_reproduce_the_sweep_validation_errors():
     # The intervals reuse the sweep's splits and solver: the validation residuals of each
     # split model give back the sweep's per-split validation MSE (scikit-learn parity of
@@ -405,3 +427,37 @@ def test_prediction_intervals_from_the_sweep_pieces_match_row_by_row_fits(scheme
     pd.testing.assert_frame_equal(shared.per_split, rows.per_split, check_exact=False, rtol=1e-9)
     assert shared.cvplus_width == pytest.approx(rows.cvplus_width, rel=1e-9)
     assert shared.analytic_width == pytest.approx(rows.analytic_width, rel=1e-9)
+
+
+@pytest.mark.parametrize("scheme", [SchemeSpec("kfold", folds=4),
+                                    SchemeSpec("repeated", folds=4, repeats=2),
+                                    SchemeSpec("blocked", folds=4, gap=5)])
+def test_how_sure_one_pass_gives_the_separate_intervals(monkeypatch, scheme):
+    # how_sure reads the rows once for the nested cross-validation's outer errors and the
+    # prediction intervals' residuals; error_interval and prediction_intervals (checked
+    # against scikit-learn above) read them once each. The numbers must agree.
+    import engine.analysis as A
+    import engine.intervals as iv
+    monkeypatch.setattr(iv, "LARGE_ROWS", 100)
+    monkeypatch.setattr(A, "LARGE_ROWS", 100)
+    rng = np.random.default_rng(8)
+    X = rng.uniform(-2, 2, size=(900, 2))
+    y = 1 + X[:, 0] - 0.4 * X[:, 0] ** 3 + 0.5 * X[:, 1] ** 2 + rng.normal(0, 0.5, 900)
+    data = ArrayData(X, y, ("a", "b"))
+    spec = SweepSpec("y", ("a", "b"), orders=(1, 2, 3), penalties=(0.0, 0.5), scheme=scheme,
+                     seed=4)
+    an = analyse(data, spec)
+    rec = an.recommendation.recommended
+    sure = iv.how_sure(an, data)
+    ei = error_interval(data, an.spec, rec.order, rec.penalty, groups=an.row_groups)
+    pi = prediction_intervals(data, an.spec, rec.order, rec.penalty, plan=an.plan,
+                              pieces=an.pieces, pieces_basis=an.basis)
+    for key in ("estimate", "low", "high", "cv_estimate", "se", "naive_se"):
+        assert getattr(sure.error, key) == pytest.approx(getattr(ei, key), rel=1e-10)
+    assert sure.error.notes == ei.notes
+    for key in ("analytic_coverage", "cvplus_coverage", "analytic_width", "cvplus_width"):
+        assert getattr(sure.prediction, key) == pytest.approx(getattr(pi, key), rel=1e-10)
+    for mine, theirs in zip(sure.prediction.radii, pi.radii):
+        np.testing.assert_allclose(mine, theirs, rtol=1e-10, atol=1e-12)
+    np.testing.assert_array_equal(sure.prediction.oof[0], pi.oof[0])
+    np.testing.assert_allclose(sure.prediction.oof[1], pi.oof[1], rtol=1e-10, atol=1e-12)

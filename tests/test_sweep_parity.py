@@ -209,6 +209,23 @@ def test_learning_curve_matches_sklearn(one_input):
             np.testing.assert_allclose(f.train_mse.to_numpy(), -tr.ravel(), rtol=1e-8, atol=1e-14)
 
 
+def test_learning_curve_table_is_the_mean_and_standard_error_of_its_splits(one_input):
+    # pandas: per (order, penalty, size) the mean of the per-split errors and their standard
+    # error, std (ddof=1) over the square root of the number of splits
+    for scheme, folds in (("kfold", 5), ("holdout", 5)):
+        spec = SweepSpec("y", ("x",), orders=(1, 3), penalties=(0.0, 0.1, 10.0),
+                         scheme=SchemeSpec(scheme, folds=folds), seed=3)
+        lc = learning_curve(one_input, spec)
+        g = lc.folds.groupby(["order", "penalty", "train_size"])
+        for col in ("train_mse", "validation_mse"):
+            np.testing.assert_allclose(lc.table[col], g[col].mean().to_numpy(), rtol=1e-12)
+            want = (g[col].std(ddof=1) / np.sqrt(g[col].count())).to_numpy()
+            if scheme == "holdout":     # one split: no spread to measure
+                assert np.isnan(lc.table[f"{col}_se"]).all() and np.isnan(want).all()
+            else:
+                np.testing.assert_allclose(lc.table[f"{col}_se"], want, rtol=1e-10)
+
+
 def test_effective_degrees_of_freedom_is_trace_of_hat_matrix(one_input):
     # numpy: trace of the ridge hat matrix on standardised terms, +1 for the intercept
     spec = SweepSpec("y", ("x",), orders=(4,), penalties=(0.0, 0.2, 20.0),
