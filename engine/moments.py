@@ -270,18 +270,19 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     buf[:, P] = 1.0
     G_full = np.empty((q, q))
     s = np.empty(q)
-    cuts = np.flatnonzero(np.diff(sl)) + 1
-    with blas_threads(product_threads()):   # large cross-products: idle cores help
-        for a, b in zip(np.r_[0, cuts], np.r_[cuts, sl.size]):
-            lab = int(sl[a])
-            if lab < 0:
-                continue
-            for c0 in range(a, b, chunk_rows):
-                c1 = min(c0 + chunk_rows, b)
-                R = buf[:c1 - c0]
-                # the chunk's rows gathered into one reused buffer (no sorted copy of U)
-                expand(np.take(U, order[c0:c1], axis=0, out=ubuf[:c1 - c0]), R[:, :P])
-                R[:, :P] -= shift_f
+    segments = _label_chunks(sl, chunk_rows)
+    big = max((c1 - c0 for _, c0, c1 in segments), default=0) >= LARGE_PRODUCT_ROWS
+    # small per-set products run faster on one BLAS thread than split over busy cores
+    with blas_threads(product_threads() if big else 1):
+        for start, stop, members in _blocks(segments, chunk_rows):
+            # the block's rows gathered into one reused buffer (no sorted copy of U),
+            # expanded and shifted at once; each set's rows are a slice of it
+            block = buf[:stop - start]
+            expand(np.take(U, order[start:stop], axis=0, out=ubuf[:stop - start]),
+                   block[:, :P])
+            block[:, :P] -= shift_f
+            for lab, c0, c1 in members:
+                R = buf[c0 - start:c1 - start]
                 G = R.T @ R
                 m = G[P, P]
                 G_full[:P, :P] = G[:P, :P]
@@ -296,6 +297,48 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
                         G_full[P + t, P + u] = G_full[P + u, P + t] = r[t] @ r[u]
                 merge_into(acc, lab, m, shift + s / m, G_full - np.outer(s, s) / m)
     return acc
+
+
+#: A set's chunk of at least this many rows is one large cross-product, worth
+#: the idle cores (`engine.threads.product_threads`); smaller ones run on one thread.
+LARGE_PRODUCT_ROWS = 8192
+
+
+def _label_chunks(sorted_labels: np.ndarray, chunk_rows: int) -> list[tuple[int, int, int]]:
+    """``(label, start, stop)`` of every chunk of rows summarised on its own.
+
+    Rows sorted by label; each label's rows are cut into chunks of at most
+    ``chunk_rows`` from its first row; rows labelled ``-1`` are left out.
+    """
+    cuts = np.flatnonzero(np.diff(sorted_labels)) + 1
+    out = []
+    for a, b in zip(np.r_[0, cuts].tolist(), np.r_[cuts, sorted_labels.size].tolist()):
+        lab = int(sorted_labels[a])
+        if lab < 0:
+            continue
+        out.extend((lab, c0, min(c0 + chunk_rows, b)) for c0 in range(a, b, chunk_rows))
+    return out
+
+
+def _blocks(segments: list[tuple[int, int, int]], chunk_rows: int):
+    """Consecutive chunks grouped into blocks of at most ``chunk_rows`` rows.
+
+    Yields ``(start, stop, chunks)``; a block's terms are expanded at once and
+    each chunk is summarised from its slice, exactly as on its own.
+    """
+    members: list[tuple[int, int, int]] = []
+    start = stop = 0
+    for seg in segments:
+        _, c0, c1 = seg
+        if members and (c0 != stop or c1 - start > chunk_rows):
+            yield start, stop, members
+            members = []
+        if not members:
+            start = c0
+        members.append(seg)
+        stop = c1
+    if members:
+        yield start, stop, members
 
 
 def target_moments(stats: Moments, n_terms: int, target: int) -> Moments:
