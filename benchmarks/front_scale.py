@@ -29,16 +29,16 @@ sys.path.insert(0, str(REPO))
 
 
 class Clock:
-    """Wall, user and system seconds between calls."""
+    """Wall, user and system seconds (all threads) and page faults between calls."""
 
     def __init__(self) -> None:
-        self.rows: list[tuple[str, float, float, float]] = []
+        self.rows: list[tuple[str, float, float, float, float]] = []
         self._last = self._now()
 
     @staticmethod
-    def _now() -> tuple[float, float, float]:
+    def _now() -> tuple[float, float, float, float]:
         r = resource.getrusage(resource.RUSAGE_SELF)
-        return time.perf_counter(), r.ru_utime, r.ru_stime
+        return time.perf_counter(), r.ru_utime, r.ru_stime, r.ru_minflt / 1000.0
 
     def lap(self, name: str) -> None:
         now = self._now()
@@ -98,12 +98,12 @@ def main() -> None:
     load_after = os.getloadavg()
     print(f"{path.name}: {data.n_rows:,} rows x {len(data.inputs)} inputs; "
           f"sha256 {sha[:12]}; left out {sorted(left)}")
-    print(f"{'step':<24s} {'wall s':>8s} {'user s':>8s} {'sys s':>8s}")
-    tot = [0.0, 0.0, 0.0]
-    for name, w, u, s in clock.rows:
-        print(f"{name:<24s} {w:8.2f} {u:8.2f} {s:8.2f}")
-        tot = [tot[0] + w, tot[1] + u, tot[2] + s]
-    print(f"{'total':<24s} {tot[0]:8.2f} {tot[1]:8.2f} {tot[2]:8.2f}")
+    print(f"{'step':<24s} {'wall s':>8s} {'user s':>8s} {'sys s':>8s} {'faults/1000':>12s}")
+    tot = [0.0, 0.0, 0.0, 0.0]
+    for name, *vals in clock.rows:
+        print(f"{name:<24s} {vals[0]:8.2f} {vals[1]:8.2f} {vals[2]:8.2f} {vals[3]:12.1f}")
+        tot = [a + b for a, b in zip(tot, vals)]
+    print(f"{'total':<24s} {tot[0]:8.2f} {tot[1]:8.2f} {tot[2]:8.2f} {tot[3]:12.1f}")
     print(f"load average before {load_before[0]:.2f}, after {load_after[0]:.2f}")
 
 

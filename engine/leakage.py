@@ -125,13 +125,16 @@ def correlations(X: np.ndarray, y: np.ndarray, between_inputs: bool = True
 
 def rank_correlations(X: np.ndarray, y: np.ndarray) -> np.ndarray:
     """Spearman rank correlation of every input with the target (average ranks for ties)."""
-    from scipy import stats as _stats   # imported when first needed (about a second)
+    import pandas as pd   # (average ranks as scipy.stats.rankdata gives them, without
+    # importing scipy.stats, which costs more than the ranking itself)
 
     X = np.asarray(X, float)
     if X.shape[0] < 3:
         return np.full(X.shape[1], np.nan)
-    rx = _stats.rankdata(np.ascontiguousarray(X.T), axis=1).T   # one contiguous sort per column
-    ry = _stats.rankdata(np.asarray(y, float))
+    # one contiguous column per input, ranked column by column
+    rx = pd.DataFrame(np.asfortranarray(X), copy=False).rank(method="average").to_numpy()
+    rx = np.asfortranarray(rx, dtype=float)
+    ry = pd.Series(np.asarray(y, float)).rank(method="average").to_numpy(dtype=float)
     r, _, ok = correlations(rx, ry, between_inputs=False)
     return np.where(ok, r, np.nan)
 

@@ -265,16 +265,16 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     # wide designs: fewer rows per chunk, so one chunk's terms stay near 64 MB
     chunk_rows = int(max(256, min(chunk_rows, (8 << 20) // (P + 1))))
     # sized after the chunk length is settled (it may grow to 256 rows above)
-    ubuf = np.empty((min(chunk_rows, sl.size), U.shape[1]), dtype=U.dtype)
-    buf = np.empty((min(chunk_rows, sl.size), P + 1), order="F")
-    buf[:, P] = 1.0
-    G_full = np.empty((q, q))
-    s = np.empty(q)
-    segments = _label_chunks(sl, chunk_rows)
-    big = max((c1 - c0 for _, c0, c1 in segments), default=0) >= LARGE_PRODUCT_ROWS
-    # small per-set products run faster on one BLAS thread than split over busy cores
-    with blas_threads(product_threads() if big else 1):
-        for start, stop, members in _blocks(segments, chunk_rows):
+    rows = min(chunk_rows, sl.size)
+
+    def summarise(blocks: list) -> None:
+        """Add the blocks' chunks into ``acc`` (buffers of its own: one per thread)."""
+        ubuf = np.empty((rows, U.shape[1]), dtype=U.dtype)
+        buf = np.empty((rows, P + 1), order="F")
+        buf[:, P] = 1.0
+        G_full = np.empty((q, q))
+        s = np.empty(q)
+        for start, stop, members in blocks:
             # the block's rows gathered into one reused buffer (no sorted copy of U),
             # expanded and shifted at once; each set's rows are a slice of it
             block = buf[:stop - start]
@@ -296,7 +296,45 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
                     for u in range(t + 1):
                         G_full[P + t, P + u] = G_full[P + u, P + t] = r[t] @ r[u]
                 merge_into(acc, lab, m, shift + s / m, G_full - np.outer(s, s) / m)
+
+    segments = _label_chunks(sl, chunk_rows)
+    blocks = list(_blocks(segments, chunk_rows))
+    if max((c1 - c0 for _, c0, c1 in segments), default=0) >= LARGE_PRODUCT_ROWS:
+        with blas_threads(product_threads()):   # large cross-products: idle cores help
+            summarise(blocks)
+        return acc
+    # many small sets: their products are too small to share out; the sets
+    # themselves are shared among the idle cores, each set summarised whole by
+    # one thread in the same steps as alone (so the numbers do not depend on it)
+    parts = _share_blocks(blocks, product_threads() if sl.size >= THREADED_ROWS else 1)
+    with blas_threads(1):
+        if len(parts) == 1:
+            summarise(blocks)
+        else:
+            from concurrent.futures import ThreadPoolExecutor
+            with ThreadPoolExecutor(len(parts), thread_name_prefix="fitladder-rows") as pool:
+                for done in [pool.submit(summarise, part) for part in parts]:
+                    done.result()
     return acc
+
+
+#: Rows from which the small sets of a pass are shared among idle cores.
+THREADED_ROWS = 200_000
+
+
+def _share_blocks(blocks: list, workers: int) -> list[list]:
+    """The blocks in up to ``workers`` runs of about equal rows, no set in two runs."""
+    if workers <= 1 or len(blocks) < 2 * workers:
+        return [blocks]
+    first, total = blocks[0][0], blocks[-1][1] - blocks[0][0]
+    parts: list[list] = [[]]
+    for blk in blocks:
+        cur = parts[-1]
+        if (cur and len(parts) < workers and blk[0] - first >= total * len(parts) / workers
+                and blk[2][0][0] != cur[-1][2][-1][0]):
+            parts.append([])
+        parts[-1].append(blk)
+    return parts
 
 
 #: A set's chunk of at least this many rows is one large cross-product, worth
