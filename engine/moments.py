@@ -216,7 +216,10 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     """Per-set summaries of ``[terms(U), y]`` from one pass over the rows.
 
     Rows are grouped by label once, then expanded and summarised chunk by
-    chunk (the full design is never held in memory). Each chunk is shifted by
+    chunk (the full design is never held in memory); consecutive small sets
+    share one expansion of their block of rows, and on a machine with idle
+    cores the sets of a large pass are shared among threads, each set whole by
+    one of them, so the numbers are the same either way. Each chunk is shifted by
     a fixed estimate of the column means, so that one cross-product with a
     column of ones gives its count, mean and centred co-moment without
     cancellation; chunk summaries then combine exactly.
