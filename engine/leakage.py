@@ -271,7 +271,13 @@ def find_reproductions(X, y, inputs, target: str = "target") -> list[Reproductio
     once: a pair is reported only when neither of its inputs already
     reproduces the target on its own.
     """
-    X = _Columns(X)
+    from .threads import one_thread
+
+    with one_thread():   # small products only: threads would wait on busy cores
+        return _find_reproductions(_Columns(X), y, inputs, target)
+
+
+def _find_reproductions(X: _Columns, y, inputs, target: str) -> list[Reproduction]:
     y = np.asarray(y, float).ravel()
     names = [str(c) for c in inputs]
     n, p = X.shape
