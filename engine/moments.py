@@ -268,7 +268,11 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     # wide designs: fewer rows per chunk, so one chunk's terms stay near 64 MB
     chunk_rows = int(max(256, min(chunk_rows, (8 << 20) // (P + 1))))
     # sized after the chunk length is settled (it may grow to 256 rows above)
-    rows = min(chunk_rows, sl.size)
+    segments = _label_chunks(sl, chunk_rows)
+    # small sets are grouped into blocks of up to BLOCK_ROWS rows (terms of a block stay
+    # in the processor's cache); a longer chunk of one set is a block of its own
+    block_rows = min(chunk_rows, BLOCK_ROWS)
+    rows = max(min(block_rows, sl.size), max((c1 - c0 for _, c0, c1 in segments), default=0))
 
     def summarise(blocks: list) -> None:
         """Add the blocks' chunks into ``acc`` (buffers of its own: one per thread)."""
@@ -300,8 +304,7 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
                         G_full[P + t, P + u] = G_full[P + u, P + t] = r[t] @ r[u]
                 merge_into(acc, lab, m, shift + s / m, G_full - np.outer(s, s) / m)
 
-    segments = _label_chunks(sl, chunk_rows)
-    blocks = list(_blocks(segments, chunk_rows))
+    blocks = list(_blocks(segments, block_rows))
     if max((c1 - c0 for _, c0, c1 in segments), default=0) >= LARGE_PRODUCT_ROWS:
         with blas_threads(product_threads()):   # large cross-products: idle cores help
             summarise(blocks)
@@ -320,6 +323,9 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
                     done.result()
     return acc
 
+
+#: Most rows of small sets expanded together (one chunk of a larger set may be longer).
+BLOCK_ROWS = 8192
 
 #: Rows from which the small sets of a pass are shared among idle cores.
 THREADED_ROWS = 200_000
@@ -361,8 +367,9 @@ def _label_chunks(sorted_labels: np.ndarray, chunk_rows: int) -> list[tuple[int,
     return out
 
 
-def _blocks(segments: list[tuple[int, int, int]], chunk_rows: int):
-    """Consecutive chunks grouped into blocks of at most ``chunk_rows`` rows.
+def _blocks(segments: list[tuple[int, int, int]], block_rows: int):
+    """Consecutive chunks grouped into blocks of at most ``block_rows`` rows (a longer
+    chunk: a block of its own).
 
     Yields ``(start, stop, chunks)``; a block's terms are expanded at once and
     each chunk is summarised from its slice, exactly as on its own.
@@ -371,7 +378,7 @@ def _blocks(segments: list[tuple[int, int, int]], chunk_rows: int):
     start = stop = 0
     for seg in segments:
         _, c0, c1 = seg
-        if members and (c0 != stop or c1 - start > chunk_rows):
+        if members and (c0 != stop or c1 - start > block_rows):
             yield start, stop, members
             members = []
         if not members:
