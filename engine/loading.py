@@ -105,7 +105,8 @@ class LoadReport:
     numeric_columns : columns usable as target or inputs, in file order.
     ignored_columns : columns kept in the frame but not usable for modelling.
     ignored_reasons : a short reason for each ignored column.
-    sha256 : hex SHA-256 of the raw bytes, to tie results to the exact file.
+    sha256 : hex SHA-256 of the raw bytes, to tie results to the exact file (a
+        large file's is computed in a thread after the parse; reading it waits).
     size_bytes : size of the raw bytes.
     notes : plain sentences about anything the user should know.
     rows_estimate : for a sample (`peek_table`), the rows of the whole table:
