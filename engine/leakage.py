@@ -124,14 +124,20 @@ def correlations(X: np.ndarray, y: np.ndarray, between_inputs: bool = True
 
 
 def rank_correlations(X: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """Spearman rank correlation of every input with the target (average ranks for ties)."""
-    from scipy import stats as _stats   # imported when first needed (about a second)
+    """Spearman rank correlation of every input with the target (average ranks for ties).
+
+    Ranks by pandas: the average ranks ``scipy.stats.rankdata`` gives, without
+    importing ``scipy.stats`` (which takes longer than ranking 10,000 rows).
+    """
+    import pandas as pd
 
     X = np.asarray(X, float)
     if X.shape[0] < 3:
         return np.full(X.shape[1], np.nan)
-    rx = _stats.rankdata(np.ascontiguousarray(X.T), axis=1).T   # one contiguous sort per column
-    ry = _stats.rankdata(np.asarray(y, float))
+    # one contiguous column per input, ranked column by column
+    rx = pd.DataFrame(np.asfortranarray(X), copy=False).rank(method="average").to_numpy()
+    rx = np.asfortranarray(rx, dtype=float)
+    ry = pd.Series(np.asarray(y, float)).rank(method="average").to_numpy(dtype=float)
     r, _, ok = correlations(rx, ry, between_inputs=False)
     return np.where(ok, r, np.nan)
 
@@ -206,6 +212,43 @@ def _transform_fits(x: np.ndarray, y: np.ndarray, xname: str, target: str):
     return best
 
 
+class _Columns:
+    """Inputs given as one (n, p) array or as a list of p columns, read the same way.
+
+    ``X[:, j]`` and ``X[:, [a, b]]`` give columns; ``rows(step)`` every
+    ``step``-th row of all columns (from a list: gathered into a new array laid
+    out column by column, as rows of a column-ordered array are).
+    """
+
+    def __init__(self, X) -> None:
+        if isinstance(X, (list, tuple)):
+            self._cols = [np.asarray(c, float).ravel() for c in X]
+            self._X = None
+            n = self._cols[0].size if self._cols else 0
+            self.shape = (n, len(self._cols))
+        else:
+            X = np.asarray(X, float)
+            self._X = X[:, None] if X.ndim == 1 else X
+            self.shape = self._X.shape
+
+    def rows(self, step: int) -> np.ndarray:
+        if self._X is not None:
+            return self._X[::step]
+        n, p = self.shape
+        out = np.empty((len(range(0, n, step)), p), order="F")
+        for j, c in enumerate(self._cols):
+            out[:, j] = c[::step]
+        return out
+
+    def __getitem__(self, key):
+        if self._X is not None:
+            return self._X[key]
+        _, j = key
+        if isinstance(j, list):
+            return np.column_stack([self._cols[i] for i in j])
+        return self._cols[j]
+
+
 # ---------------------------------------------------------------------------
 # public entry point
 # ---------------------------------------------------------------------------
@@ -214,7 +257,9 @@ def find_reproductions(X, y, inputs, target: str = "target") -> list[Reproductio
 
     Parameters
     ----------
-    X : (n, p) input values.
+    X : (n, p) input values, or a list of p columns of n values each (not
+        copied: only the screened rows and the columns of the candidates
+        are gathered).
     y : (n,) target values.
     inputs : the p input names.
     target : the target's name (used in the relation text).
@@ -226,9 +271,13 @@ def find_reproductions(X, y, inputs, target: str = "target") -> list[Reproductio
     once: a pair is reported only when neither of its inputs already
     reproduces the target on its own.
     """
-    X = np.asarray(X, float)
-    if X.ndim == 1:
-        X = X[:, None]
+    from .threads import one_thread
+
+    with one_thread():   # small products only: threads would wait on busy cores
+        return _find_reproductions(_Columns(X), y, inputs, target)
+
+
+def _find_reproductions(X: _Columns, y, inputs, target: str) -> list[Reproduction]:
     y = np.asarray(y, float).ravel()
     names = [str(c) for c in inputs]
     n, p = X.shape
@@ -236,9 +285,9 @@ def find_reproductions(X, y, inputs, target: str = "target") -> list[Reproductio
         return []
     # screening on at most RANK_ROWS evenly spaced rows; candidates confirmed on all
     step = max(1, -(-n // RANK_ROWS))
-    Xs, ys = X[::step], y[::step]
+    Xs, ys = X.rows(step), y[::step]
     if not np.ptp(ys) > 0:
-        Xs, ys = X, y
+        Xs, ys = X.rows(1), y
     r_xy, _, ok = correlations(Xs, ys, between_inputs=False)
     rho = rank_correlations(Xs, ys)
     found: list[Reproduction] = []

@@ -14,6 +14,7 @@ from __future__ import annotations
 import csv
 import decimal
 import io
+import mmap
 import os
 import re
 import unicodedata
@@ -104,7 +105,8 @@ class LoadReport:
     numeric_columns : columns usable as target or inputs, in file order.
     ignored_columns : columns kept in the frame but not usable for modelling.
     ignored_reasons : a short reason for each ignored column.
-    sha256 : hex SHA-256 of the raw bytes, to tie results to the exact file.
+    sha256 : hex SHA-256 of the raw bytes, to tie results to the exact file (a
+        large file's is computed in a thread after the parse; reading it waits).
     size_bytes : size of the raw bytes.
     notes : plain sentences about anything the user should know.
     rows_estimate : for a sample (`peek_table`), the rows of the whole table:
@@ -125,6 +127,30 @@ class LoadReport:
     size_bytes: int
     notes: list[str] = field(default_factory=list)
     rows_estimate: int | None = None
+
+    def __getstate__(self) -> dict:
+        state = dict(self.__dict__)
+        state["_sha256"] = self.sha256   # a digest still being computed: waited for
+        return state
+
+
+def _get_sha256(report: LoadReport) -> str:
+    value = report.__dict__["_sha256"]
+    if callable(value):   # computed in a thread (`engine.fingerprint.digest_alongside`)
+        value = value()
+        report.__dict__["_sha256"] = value
+    return value
+
+
+def _set_sha256(report: LoadReport, value) -> None:
+    report.__dict__["_sha256"] = value
+
+
+# ``sha256`` may be given as a function that waits for the digest of a large file,
+# computed in a thread while the table is prepared; it is called once, when the
+# value is first read (set after the class is made, so that it stays a field).
+LoadReport.sha256 = property(_get_sha256, _set_sha256,
+                             doc="Hex SHA-256 of the raw bytes (waited for when first read).")
 
 
 @dataclass
@@ -241,8 +267,35 @@ def _too_large(name: str, size: int | None, max_bytes: int) -> InputProblem:
         code="too_large")
 
 
-def _read_source(source: Source, name: str | None, max_bytes: int) -> tuple[bytes, str]:
-    """Return the raw bytes and the display name of ``source``."""
+#: Files from this size on are mapped into memory rather than copied into it: the
+#: columnar text reader and the fingerprint read the pages the system already
+#: holds for the file, and no copy of the whole file is made (see `_map_file`).
+MAPPED_MIN_BYTES = 8 << 20
+
+
+def _map_file(path: Path) -> "mmap.mmap | None":
+    """The file mapped read-only into memory; None where mapping is not possible.
+
+    A mapped file is read like bytes by the columnar text reader (`pyarrow`),
+    by `hashlib` and by numpy; every other reader gets a copy
+    (`_bytes_of`). A copy of a file of hundreds of megabytes costs more than
+    the read itself on a machine where fresh memory is slow to hand out.
+    """
+    try:
+        with path.open("rb") as handle:
+            return mmap.mmap(handle.fileno(), 0, access=mmap.ACCESS_READ)
+    except (OSError, ValueError):
+        return None
+
+
+def _bytes_of(raw: "bytes | mmap.mmap") -> bytes:
+    """``raw`` as bytes (a copy of a mapped file)."""
+    return raw if isinstance(raw, bytes) else bytes(raw)
+
+
+def _read_source(source: Source, name: str | None, max_bytes: int
+                 ) -> tuple["bytes | mmap.mmap", str]:
+    """Return the raw bytes (a large file: mapped, `_map_file`) and the display name."""
     if isinstance(source, (bytes, bytearray, memoryview)):
         display = name or "uploaded data"
         raw = bytes(source)
@@ -261,6 +314,10 @@ def _read_source(source: Source, name: str | None, max_bytes: int) -> tuple[byte
             size = path.stat().st_size
             if size > max_bytes:
                 raise _too_large(display, size, max_bytes)
+            if size >= MAPPED_MIN_BYTES:
+                mapped = _map_file(path)
+                if mapped is not None:
+                    return mapped, display
             with path.open("rb") as handle:
                 raw = handle.read(min(size, max_bytes) + 1)
         except InputProblem:
@@ -997,7 +1054,23 @@ def _not_read_note(n: int) -> str:
             f"{'column was' if n == 1 else 'columns were'} left unread.")
 
 
-def _read_text_columnar(raw: bytes, display: str, decimal: str,
+def _count(raw: "bytes | mmap.mmap", what: bytes, block: int = 8 << 20) -> int:
+    """Occurrences of the single byte ``what`` in ``raw`` (a mapped file: block by block)."""
+    if isinstance(raw, bytes):
+        return raw.count(what)
+    return sum(raw[i:i + block].count(what) for i in range(0, len(raw), block))
+
+
+def _control_bytes(raw: "bytes | mmap.mmap", block: int = 1 << 20) -> int:
+    """Bytes below 32 other than tab, line feed, form feed, carriage return and 0x1A."""
+    data = np.frombuffer(raw, dtype=np.uint8)
+    counts = np.zeros(256, dtype=np.int64)
+    for i in range(0, data.size, block):   # a block at a time: counting widens each byte
+        counts += np.bincount(data[i:i + block], minlength=256)
+    return int(counts[:32].sum() - counts[[9, 10, 12, 13, 26]].sum())
+
+
+def _read_text_columnar(raw: "bytes | mmap.mmap", display: str, decimal: str,
                         wanted: Iterable[str] | None = None
                         ) -> tuple[pd.DataFrame, str | None, list[str]] | None:
     """The common case of a large text table, through pyarrow's CSV reader.
@@ -1010,14 +1083,14 @@ def _read_text_columnar(raw: bytes, display: str, decimal: str,
     (the hand-written reader then takes over, with its messages) for anything
     else: a decimal comma, another encoding, ragged rows, quoted line breaks.
     """
-    if decimal != "." or len(raw) < COLUMNAR_MIN_BYTES or raw.startswith(b"\xef\xbb\xbf"):
+    if decimal != "." or len(raw) < COLUMNAR_MIN_BYTES or raw[:3] == b"\xef\xbb\xbf":
         return None
     try:
         import pyarrow as pa
         import pyarrow.csv as pacsv
     except ImportError:  # pragma: no cover - pyarrow is a requirement
         return None
-    if raw.count(b'"') % 2:
+    if raw.find(b'"') >= 0 and _count(raw, b'"') % 2:   # (`find`: fast on a mapped file too)
         return None   # a quote never closed: the other reader names the line
     limit = 65536
     head = raw[:limit]
@@ -1074,8 +1147,7 @@ def _read_text_columnar(raw: bytes, display: str, decimal: str,
                  if not (pa.types.is_floating(f.type) or pa.types.is_integer(f.type)
                          or pa.types.is_boolean(f.type))]
         if other:   # dates, true/false, text: as text, classified like the other reader's
-            counts = np.bincount(np.frombuffer(raw, dtype=np.uint8), minlength=256)
-            if int(counts[:32].sum() - counts[[9, 10, 12, 13, 26]].sum()) or b"\x00" in raw:
+            if _control_bytes(raw):   # (NUL included)
                 return None   # control characters: the other reader explains them
             text = read({k: pa.string() for k in other}, other)
             for k in other:
@@ -1437,20 +1509,32 @@ def _load_raw(raw: bytes, display: str, dec: str, sheet: str | int | None, *,
         if not raw:
             raise InputProblem(f"'{display}' is empty (0 bytes). Choose the file that holds "
                                "the data.", code="empty")
-        file_format, notes = _choose_format(raw, display)
+        head = raw
+        if isinstance(raw, mmap.mmap):   # a large file, mapped: its kind from its first bytes
+            head = raw[:65536]
+            bare = head[:4096].lstrip(b"\xef\xbb\xbf \t\r\n")
+            if head.startswith((_ZIP_MAGIC, _PARQUET_MAGIC)) or bare[:1] in (b"{", b"["):
+                raw = head = bytes(raw)   # archives, JSON: their checks read every byte
+        file_format, notes = _choose_format(head, display)
     if columns is not None:
         columns = [str(c) for c in columns]
-    sha256 = (lambda: digest) if digest else digest_alongside(raw)
+    sha256 = (lambda: digest) if digest else None
     delimiter: str | None = None
     try:
         if file_format == "csv":
             fast = _read_text_columnar(raw, display, dec, columns) if columnar else None
             cells, delimiter, more = (fast if fast is not None
-                                      else _read_text(raw, display, dec, columns))
+                                      else _read_text(_bytes_of(raw), display, dec, columns))
         elif file_format == "xlsx":
-            cells, more = _read_xlsx(raw, display, sheet, columns, max_rows)
+            cells, more = _read_xlsx(_bytes_of(raw), display, sheet, columns, max_rows)
         else:
-            cells, more = _read_parquet(raw, display, columns, max_rows)
+            cells, more = _read_parquet(raw if isinstance(raw, Path) else _bytes_of(raw),
+                                        display, columns, max_rows)
+        # the fingerprint of a large file is taken in a thread from here on, beside the
+        # single-threaded work that follows the parse (the parser's threads are done);
+        # the report waits for it only when its ``sha256`` is first read
+        if sha256 is None:
+            sha256 = digest_alongside(raw)
         notes.extend(more)
         frame, numeric, ignored, reasons, col_notes = _build_columns(cells, dec, display)
         if cells.attrs.get(FORMULA_ATTR):
@@ -1494,7 +1578,7 @@ def _load_raw(raw: bytes, display: str, dec: str, sheet: str | int | None, *,
         source_name=display, file_format=file_format, delimiter=delimiter, decimal=dec,
         rows_read=int(len(frame)), columns_read=int(frame.shape[1]),
         numeric_columns=list(numeric), ignored_columns=list(ignored),
-        ignored_reasons=dict(reasons), sha256=sha256(),
+        ignored_reasons=dict(reasons), sha256=sha256,
         size_bytes=raw.stat().st_size if isinstance(raw, Path) else len(raw), notes=notes)
     return LoadedTable(frame=frame, report=report)
 
@@ -1622,6 +1706,41 @@ def _missing_mask(series: pd.Series) -> np.ndarray:
 
 def _as_float(series: pd.Series) -> np.ndarray:
     return np.array(series.to_numpy(dtype="float64", na_value=np.nan), copy=True)
+
+
+def _float_values(series: pd.Series) -> np.ndarray:
+    """The column as float64, NaN for missing; no copy of a float64 column (read only)."""
+    return np.asarray(series.to_numpy(dtype="float64", na_value=np.nan))
+
+
+#: Rows per block when columns are laid side by side into one array (a block of
+#: every column stays in the processor's cache).
+_STACK_ROWS = 16384
+
+
+def _complete_columns(frame: pd.DataFrame, target: Any, inputs: tuple, group_column: Any,
+                      split_column: Any) -> tuple[np.ndarray, np.ndarray, list] | None:
+    """``(y, X, input columns)`` when no chosen cell is missing or infinite, else None.
+
+    Then no row is dropped, so the arrays are the columns themselves: each is
+    looked at once (one finiteness test) and copied once, block by block, into
+    ``X``; `prepare` takes its longer road (counting what is missing and why)
+    only when this gives None.
+    """
+    values = [_float_values(frame[c]) for c in (target, *inputs)]
+    if not all(np.isfinite(v).all() for v in values):
+        return None
+    for col in (group_column, split_column):
+        if col is not None and _missing_mask(frame[col]).any():
+            return None
+    y = np.array(values[0], dtype="float64", copy=True)
+    x_columns = values[1:]
+    n = y.shape[0]
+    X = np.empty((n, len(x_columns)))
+    for a in range(0, n, _STACK_ROWS):
+        b = min(a + _STACK_ROWS, n)
+        np.stack([v[a:b] for v in x_columns], axis=1, out=X[a:b])
+    return y, X, x_columns
 
 
 def _order_values(frame: pd.DataFrame, col: str, notes: list[str]) -> np.ndarray:
@@ -1899,70 +2018,81 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
             check_exists(col, role)
 
     notes: list[str] = []
-    y_all = _as_float(frame[target])
-    x_all = [(_as_float(frame[c])) for c in input_names]
-    order_all = _order_values(frame, order_column, notes) if order_column is not None else None
+    complete = (_complete_columns(frame, target, input_names, group_column, split_column)
+                if order_column is None and rows_in else None)
+    if complete is not None:   # no row to drop, none to reorder: the columns as they are
+        y, X, x_columns = complete
+        row_index = np.arange(rows_in, dtype=np.int64)
+        order = None
+        rows_dropped, drop_counts, drop_reasons, drop_examples = 0, {}, {}, {}
+    else:
+        y_all = _as_float(frame[target])
+        x_all = [(_as_float(frame[c])) for c in input_names]
+        order_all = (_order_values(frame, order_column, notes) if order_column is not None
+                     else None)
 
-    for col, values in [(target, y_all), *zip(input_names, x_all),
-                        *([(order_column, order_all)] if order_all is not None else [])]:
-        bad = np.flatnonzero(np.isinf(values))
-        if bad.size:
-            row = int(bad[0]) + 1
+        for col, values in [(target, y_all), *zip(input_names, x_all),
+                            *([(order_column, order_all)] if order_all is not None else [])]:
+            bad = np.flatnonzero(np.isinf(values))
+            if bad.size:
+                row = int(bad[0]) + 1
+                raise InputProblem(
+                    f"Column '{col}' holds an infinite value at data row {row} "
+                    f"({_plural(int(bad.size), 'infinite cell')} in all). Replace it with a real "
+                    "number or leave the cell empty.", code="infinite", column=str(col), row=row)
+
+        # missing values, counted under the first chosen column that is missing
+        chosen: list[Any] = []
+        masks: dict[Any, np.ndarray] = {}
+        for col, mask in [(target, np.isnan(y_all)),
+                          *[(c, np.isnan(v)) for c, v in zip(input_names, x_all)],
+                          *([(order_column, np.isnan(order_all))]
+                            if order_all is not None else []),
+                          *([(group_column, _missing_mask(frame[group_column]))]
+                            if group_column is not None else []),
+                          *([(split_column, _missing_mask(frame[split_column]))]
+                            if split_column is not None else [])]:
+            if col in masks:
+                masks[col] = masks[col] | mask
+            else:
+                chosen.append(col)
+                masks[col] = mask
+        already = np.zeros(rows_in, dtype=bool)
+        drop_counts: dict[str, int] = {}
+        for col in chosen:
+            fresh = masks[col] & ~already
+            if fresh.any():
+                drop_counts[str(col)] = int(fresh.sum())
+            already |= masks[col]
+        keep = ~already
+        rows_dropped = int(already.sum())
+        drop_reasons, drop_examples = _drop_reasons(frame, chosen, masks)
+
+        if not keep.any():
+            if rows_in == 0:
+                raise InputProblem("The table has no rows; load a file with data rows.",
+                                   code="no_rows")
+            worst = max(chosen, key=lambda c: int(masks[c].sum()))
             raise InputProblem(
-                f"Column '{col}' holds an infinite value at data row {row} "
-                f"({_plural(int(bad.size), 'infinite cell')} in all). Replace it with a real "
-                "number or leave the cell empty.", code="infinite", column=str(col), row=row)
+                f"No rows are left: every row has a missing value in at least one chosen column. "
+                f"Column '{worst}' is missing in {int(masks[worst].sum())} of {rows_in} rows. "
+                "Choose other columns or fill in the missing values.",
+                code="no_rows", column=str(worst))
 
-    # missing values, counted under the first chosen column that is missing
-    chosen: list[Any] = []
-    masks: dict[Any, np.ndarray] = {}
-    for col, mask in [(target, np.isnan(y_all)),
-                      *[(c, np.isnan(v)) for c, v in zip(input_names, x_all)],
-                      *([(order_column, np.isnan(order_all))] if order_all is not None else []),
-                      *([(group_column, _missing_mask(frame[group_column]))]
-                        if group_column is not None else []),
-                      *([(split_column, _missing_mask(frame[split_column]))]
-                        if split_column is not None else [])]:
-        if col in masks:
-            masks[col] = masks[col] | mask
-        else:
-            chosen.append(col)
-            masks[col] = mask
-    already = np.zeros(rows_in, dtype=bool)
-    drop_counts: dict[str, int] = {}
-    for col in chosen:
-        fresh = masks[col] & ~already
-        if fresh.any():
-            drop_counts[str(col)] = int(fresh.sum())
-        already |= masks[col]
-    keep = ~already
-    rows_dropped = int(already.sum())
-    drop_reasons, drop_examples = _drop_reasons(frame, chosen, masks)
+        row_index = np.flatnonzero(keep).astype(np.int64)
+        order = None
+        if order_all is not None:
+            order_kept = order_all[row_index]
+            sort = np.argsort(order_kept, kind="stable")
+            row_index = row_index[sort]
+            order = order_kept[sort]
 
-    if not keep.any():
-        if rows_in == 0:
-            raise InputProblem("The table has no rows; load a file with data rows.",
-                               code="no_rows")
-        worst = max(chosen, key=lambda c: int(masks[c].sum()))
-        raise InputProblem(
-            f"No rows are left: every row has a missing value in at least one chosen column. "
-            f"Column '{worst}' is missing in {int(masks[worst].sum())} of {rows_in} rows. "
-            "Choose other columns or fill in the missing values.",
-            code="no_rows", column=str(worst))
-
-    row_index = np.flatnonzero(keep).astype(np.int64)
-    order = None
-    if order_all is not None:
-        order_kept = order_all[row_index]
-        sort = np.argsort(order_kept, kind="stable")
-        row_index = row_index[sort]
-        order = order_kept[sort]
-
-    y = y_all[row_index]
-    if len(x_all):
-        X = np.column_stack([v[row_index] for v in x_all]).astype("float64", copy=False)
-    else:  # pragma: no cover - guarded by the no_inputs check
-        X = np.empty((len(row_index), 0))
+        y = y_all[row_index]
+        if len(x_all):
+            X = np.column_stack([v[row_index] for v in x_all]).astype("float64", copy=False)
+        else:  # pragma: no cover - guarded by the no_inputs check
+            X = np.empty((len(row_index), 0))
+        x_columns = [X[:, j] for j in range(X.shape[1])]
     if y.shape[0] < 2:
         raise InputProblem(
             f"Only {_plural(int(y.shape[0]), 'row')} {'is' if y.shape[0] == 1 else 'are'} usable "
@@ -1974,13 +2104,18 @@ def prepare(frame: pd.DataFrame, target: str, inputs: Iterable[str] | str, *,
             f"The target '{target}' has the same value ({y[0]:g}) in all {y.shape[0]} rows "
             "used, so there is nothing to predict. Choose another target.",
             code="constant_target", column=str(target))
-    for j, col in enumerate(input_names):
-        if np.all(X[:, j] == X[0, j]):
-            notes.append(f"Input '{col}' has the same value ({X[0, j]:g}) in every row used; "
+    for col, values in zip(input_names, x_columns):
+        if np.all(values == values[0]):
+            notes.append(f"Input '{col}' has the same value ({values[0]:g}) in every row used; "
                          "it carries no information.")
 
-    groups = (frame[group_column].to_numpy()[row_index] if group_column is not None else None)
-    split = (frame[split_column].to_numpy()[row_index] if split_column is not None else None)
+    def labels(col):
+        if col is None:
+            return None
+        values = frame[col].to_numpy()
+        return np.array(values, copy=True) if complete is not None else values[row_index]
+
+    groups, split = labels(group_column), labels(split_column)
     return PreparedData(
         X=X, y=y, inputs=tuple(str(c) for c in input_names), target=str(target), order=order,
         groups=groups, split=split, row_index=row_index, rows_in=rows_in,

@@ -216,7 +216,10 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     """Per-set summaries of ``[terms(U), y]`` from one pass over the rows.
 
     Rows are grouped by label once, then expanded and summarised chunk by
-    chunk (the full design is never held in memory). Each chunk is shifted by
+    chunk (the full design is never held in memory); consecutive small sets
+    share one expansion of their block of rows, and on a machine with idle
+    cores the sets of a large pass are shared among threads, each set whole by
+    one of them, so the numbers are the same either way. Each chunk is shifted by
     a fixed estimate of the column means, so that one cross-product with a
     column of ones gives its count, mean and centred co-moment without
     cancellation; chunk summaries then combine exactly.
@@ -265,23 +268,28 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     # wide designs: fewer rows per chunk, so one chunk's terms stay near 64 MB
     chunk_rows = int(max(256, min(chunk_rows, (8 << 20) // (P + 1))))
     # sized after the chunk length is settled (it may grow to 256 rows above)
-    ubuf = np.empty((min(chunk_rows, sl.size), U.shape[1]), dtype=U.dtype)
-    buf = np.empty((min(chunk_rows, sl.size), P + 1), order="F")
-    buf[:, P] = 1.0
-    G_full = np.empty((q, q))
-    s = np.empty(q)
-    cuts = np.flatnonzero(np.diff(sl)) + 1
-    with blas_threads(product_threads()):   # large cross-products: idle cores help
-        for a, b in zip(np.r_[0, cuts], np.r_[cuts, sl.size]):
-            lab = int(sl[a])
-            if lab < 0:
-                continue
-            for c0 in range(a, b, chunk_rows):
-                c1 = min(c0 + chunk_rows, b)
-                R = buf[:c1 - c0]
-                # the chunk's rows gathered into one reused buffer (no sorted copy of U)
-                expand(np.take(U, order[c0:c1], axis=0, out=ubuf[:c1 - c0]), R[:, :P])
-                R[:, :P] -= shift_f
+    segments = _label_chunks(sl, chunk_rows)
+    # small sets are grouped into blocks of up to BLOCK_ROWS rows (terms of a block stay
+    # in the processor's cache); a longer chunk of one set is a block of its own
+    block_rows = min(chunk_rows, BLOCK_ROWS)
+    rows = max(min(block_rows, sl.size), max((c1 - c0 for _, c0, c1 in segments), default=0))
+
+    def summarise(blocks: list) -> None:
+        """Add the blocks' chunks into ``acc`` (buffers of its own: one per thread)."""
+        ubuf = np.empty((rows, U.shape[1]), dtype=U.dtype)
+        buf = np.empty((rows, P + 1), order="F")
+        buf[:, P] = 1.0
+        G_full = np.empty((q, q))
+        s = np.empty(q)
+        for start, stop, members in blocks:
+            # the block's rows gathered into one reused buffer (no sorted copy of U),
+            # expanded and shifted at once; each set's rows are a slice of it
+            block = buf[:stop - start]
+            expand(np.take(U, order[start:stop], axis=0, out=ubuf[:stop - start]),
+                   block[:, :P])
+            block[:, :P] -= shift_f
+            for lab, c0, c1 in members:
+                R = buf[c0 - start:c1 - start]
                 G = R.T @ R
                 m = G[P, P]
                 G_full[:P, :P] = G[:P, :P]
@@ -295,7 +303,90 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
                     for u in range(t + 1):
                         G_full[P + t, P + u] = G_full[P + u, P + t] = r[t] @ r[u]
                 merge_into(acc, lab, m, shift + s / m, G_full - np.outer(s, s) / m)
+
+    blocks = list(_blocks(segments, block_rows))
+    if max((c1 - c0 for _, c0, c1 in segments), default=0) >= LARGE_PRODUCT_ROWS:
+        with blas_threads(product_threads()):   # large cross-products: idle cores help
+            summarise(blocks)
+        return acc
+    # many small sets: their products are too small to share out; the sets
+    # themselves are shared among the idle cores, each set summarised whole by
+    # one thread in the same steps as alone (so the numbers do not depend on it)
+    parts = _share_blocks(blocks, product_threads() if sl.size >= THREADED_ROWS else 1)
+    with blas_threads(1):
+        if len(parts) == 1:
+            summarise(blocks)
+        else:
+            from concurrent.futures import ThreadPoolExecutor
+            with ThreadPoolExecutor(len(parts), thread_name_prefix="fitladder-rows") as pool:
+                for done in [pool.submit(summarise, part) for part in parts]:
+                    done.result()
     return acc
+
+
+#: Most rows of small sets expanded together (one chunk of a larger set may be longer).
+BLOCK_ROWS = 8192
+
+#: Rows from which the small sets of a pass are shared among idle cores.
+THREADED_ROWS = 200_000
+
+
+def _share_blocks(blocks: list, workers: int) -> list[list]:
+    """The blocks in up to ``workers`` runs of about equal rows, no set in two runs."""
+    if workers <= 1 or len(blocks) < 2 * workers:
+        return [blocks]
+    first, total = blocks[0][0], blocks[-1][1] - blocks[0][0]
+    parts: list[list] = [[]]
+    for blk in blocks:
+        cur = parts[-1]
+        if (cur and len(parts) < workers and blk[0] - first >= total * len(parts) / workers
+                and blk[2][0][0] != cur[-1][2][-1][0]):
+            parts.append([])
+        parts[-1].append(blk)
+    return parts
+
+
+#: A set's chunk of at least this many rows is one large cross-product, worth
+#: the idle cores (`engine.threads.product_threads`); smaller ones run on one thread.
+LARGE_PRODUCT_ROWS = 8192
+
+
+def _label_chunks(sorted_labels: np.ndarray, chunk_rows: int) -> list[tuple[int, int, int]]:
+    """``(label, start, stop)`` of every chunk of rows summarised on its own.
+
+    Rows sorted by label; each label's rows are cut into chunks of at most
+    ``chunk_rows`` from its first row; rows labelled ``-1`` are left out.
+    """
+    cuts = np.flatnonzero(np.diff(sorted_labels)) + 1
+    out = []
+    for a, b in zip(np.r_[0, cuts].tolist(), np.r_[cuts, sorted_labels.size].tolist()):
+        lab = int(sorted_labels[a])
+        if lab < 0:
+            continue
+        out.extend((lab, c0, min(c0 + chunk_rows, b)) for c0 in range(a, b, chunk_rows))
+    return out
+
+
+def _blocks(segments: list[tuple[int, int, int]], block_rows: int):
+    """Consecutive chunks grouped into blocks of at most ``block_rows`` rows (a longer
+    chunk: a block of its own).
+
+    Yields ``(start, stop, chunks)``; a block's terms are expanded at once and
+    each chunk is summarised from its slice, exactly as on its own.
+    """
+    members: list[tuple[int, int, int]] = []
+    start = stop = 0
+    for seg in segments:
+        _, c0, c1 = seg
+        if members and (c0 != stop or c1 - start > block_rows):
+            yield start, stop, members
+            members = []
+        if not members:
+            start = c0
+        members.append(seg)
+        stop = c1
+    if members:
+        yield start, stop, members
 
 
 def target_moments(stats: Moments, n_terms: int, target: int) -> Moments:

@@ -163,12 +163,16 @@ def screen_inputs(frame: pd.DataFrame, target: str, candidates: Iterable[str]
     rest = [c for c in cands if c not in left]
     if rest:
         y = _values(frame, target)
-        X = np.empty((y.size, len(rest)), order="F")     # columns written and read whole
+        columns = [_values(frame, c) for c in rest]     # the frame's own arrays (read only)
         ok = np.isfinite(y)
-        for j, c in enumerate(rest):
-            X[:, j] = _values(frame, c)
-            ok &= np.isfinite(X[:, j])
-        if not ok.all():
+        for v in columns:
+            ok &= np.isfinite(v)
+        if ok.all():
+            X = columns     # every row complete: the screen reads the columns, no copy
+        else:
+            X = np.empty((y.size, len(rest)), order="F")     # columns written and read whole
+            for j, v in enumerate(columns):
+                X[:, j] = v
             X, y = X[ok], y[ok]
         if ok.sum() >= SCREEN_MIN_ROWS and np.ptp(y) > 0:
             found = leakage.find_reproductions(X, y, rest, str(target))

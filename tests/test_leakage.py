@@ -186,3 +186,21 @@ def test_pairs_among_many_noise_inputs_do_not_fire():
     X = rng.normal(size=(60, 150))
     y = X[:, :5] @ np.ones(5) + rng.normal(size=60)
     assert find_reproductions(X, y, [f"c{j}" for j in range(150)]) == []
+
+
+@pytest.mark.parametrize("n", [60, 25_000])   # every row screened; every third row screened
+def test_columns_given_one_by_one_give_the_same_findings(n):
+    """A list of columns (the table's own arrays, not copied) is screened exactly as
+    the same numbers in one array: copies, transforms, pairs and ranks alike."""
+    rng = np.random.default_rng(11)
+    X = np.asfortranarray(rng.normal(size=(n, 7)))
+    y = 2 * X[:, 0] + 0.3 * X[:, 1] + rng.normal(scale=0.5, size=n)
+    X[:, 3] = np.exp(y / 5) + 1e-6 * rng.normal(size=n)          # a transformed copy
+    X[:, 5] = 3 * y - X[:, 6] + 1e-7 * rng.normal(size=n)        # a pair
+    names = [f"c{j}" for j in range(7)]
+    whole = find_reproductions(X, y, names, "y")
+    one_by_one = find_reproductions([X[:, j].copy() for j in range(7)], y, names, "y")
+    assert [r.columns for r in whole] == [("c5", "c6"), ("c3",)]
+    assert len(one_by_one) == len(whole)
+    for a, b in zip(whole, one_by_one):
+        np.testing.assert_equal(a.to_dict(), b.to_dict())     # nan == nan here

@@ -625,3 +625,50 @@ def test_drops_say_empty_apart_from_not_a_number():
     part = prepare(table.frame.iloc[4:], "y", ["x"])
     assert part.drop_reasons == {"y": {"empty": 2, "not a number": 0}}
     assert describe_drops(prepare(table.frame.iloc[:3], "y", ["x"])) == ""
+
+
+def _prepared_fields(data: PreparedData) -> dict:
+    return {k: (v.tolist() if isinstance(v, np.ndarray) else v)
+            for k, v in vars(data).items() if k != "factors"}
+
+
+@pytest.mark.parametrize("roles", [{}, {"group_column": "g"}, {"split_column": "s"}])
+def test_prepare_of_a_complete_table_equals_the_counting_route(roles, monkeypatch):
+    """With nothing missing, the columns are copied straight into the arrays; every
+    field equals what the route that counts missing cells gives."""
+    import engine.loading as L
+
+    rng = np.random.default_rng(3)
+    n = 40_000   # several blocks of rows
+    frame = pd.DataFrame({
+        "x": rng.normal(size=n), "k": rng.integers(-5, 5, n),            # float64, int64
+        "f": pd.array(rng.normal(size=n), dtype="Float64"),               # nullable floats
+        "c": np.full(n, 2.5),                                             # constant input
+        "level": rng.choice(["lo", "hi"], n),                             # text -> indicator
+        "g": rng.choice(["a", "b", "c"], n), "s": rng.integers(0, 3, n),
+        "y": rng.normal(size=n)})
+    direct = prepare(frame, "y", ["x", "k", "f", "c", "level"], **roles)
+    monkeypatch.setattr(L, "_complete_columns", lambda *a, **k: None)
+    counted = prepare(frame, "y", ["x", "k", "f", "c", "level"], **roles)
+    assert _prepared_fields(direct) == _prepared_fields(counted)
+    assert direct.X.dtype == np.float64 and direct.X.flags.c_contiguous
+    assert direct.row_index.dtype == counted.row_index.dtype == np.int64
+    assert any("same value (2.5)" in note for note in direct.notes)
+    # the arrays are the table's numbers (numpy), and not the table's own memory
+    np.testing.assert_array_equal(direct.X[:, 0], frame["x"].to_numpy())
+    np.testing.assert_array_equal(direct.y, frame["y"].to_numpy())
+    assert not np.shares_memory(direct.y, frame["y"].to_numpy())
+    assert not np.shares_memory(direct.X, frame["x"].to_numpy())
+
+
+def test_prepare_of_a_complete_table_refuses_the_same_way():
+    frame = pd.DataFrame({"x": [1.0, 2.0, 3.0], "y": [4.0, 4.0, 4.0]})
+    with pytest.raises(InputProblem) as exc:
+        prepare(frame, "y", ["x"])
+    assert exc.value.code == "constant_target"
+    with pytest.raises(InputProblem) as exc:
+        prepare(pd.DataFrame({"x": [1.0], "y": [2.0]}), "y", ["x"])
+    assert exc.value.code == "too_few_rows"
+    with pytest.raises(InputProblem) as exc:
+        prepare(pd.DataFrame({"x": [], "y": []}, dtype=float), "y", ["x"])
+    assert exc.value.code == "no_rows"

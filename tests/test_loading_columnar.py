@@ -239,3 +239,82 @@ def test_wide_workbook_refusal_counts_its_sample_rows_as_a_lower_bound(tmp_path,
     code = main(["run", str(path), "--target", "y", "--out", str(tmp_path / "pack")])
     err = capsys.readouterr().err
     assert code == 2 and "from 400 inputs" in err and "at least 30 rows" in err
+
+
+# ---------------------------------------------------------------------------
+# large files: mapped into memory, fingerprinted in a thread
+# ---------------------------------------------------------------------------
+
+def _mapped(monkeypatch):
+    """Every file counts as large: mapped (not copied) and read by the columnar route."""
+    monkeypatch.setattr(L, "MAPPED_MIN_BYTES", 0)
+    monkeypatch.setattr(L, "COLUMNAR_MIN_BYTES", 0)
+
+
+@pytest.mark.parametrize("label", sorted(TABLES))
+def test_a_mapped_file_gives_the_table_and_digest_of_its_bytes(label, tmp_path, monkeypatch):
+    import hashlib
+    import pickle
+
+    raw = TABLES[label].encode()
+    path = tmp_path / "t.csv"
+    path.write_bytes(raw)
+    _mapped(monkeypatch)
+    assert isinstance(L._read_source(str(path), None, L.NO_SIZE_LIMIT)[0], L.mmap.mmap)
+    from_path = L.load_table(str(path))
+    from_bytes = L.load_table(raw, name="t.csv")
+    _same(from_path, from_bytes)
+    # the digest, computed in a thread, is the SHA-256 of the file's bytes (hashlib)
+    assert from_path.report.sha256 == hashlib.sha256(raw).hexdigest()
+    assert from_path.report.size_bytes == len(raw)
+    # a report whose digest is still being computed is pickled (page cache) with the digest
+    fresh = L.load_table(str(path))
+    again = pickle.loads(pickle.dumps(fresh))
+    assert again.report.sha256 == hashlib.sha256(raw).hexdigest()
+
+
+def test_a_mapped_file_the_columnar_route_declines_is_read_from_a_copy(tmp_path, monkeypatch):
+    # a line break inside quotes and a decimal comma: the hand-written reader's cases
+    _mapped(monkeypatch)
+    quoted = b'name,value\n"two\nlines",1\n"c",2\n'
+    (tmp_path / "q.csv").write_bytes(quoted)
+    got = L.load_table(str(tmp_path / "q.csv"))
+    assert list(got.frame["value"]) == [1.0, 2.0]
+    assert got.frame["name"].iloc[0] == "two\nlines"
+    comma = b"a;b\n1,5;2,5\n3,5;4,5\n"
+    (tmp_path / "c.csv").write_bytes(comma)
+    got = L.load_table(str(tmp_path / "c.csv"), decimal=",")
+    assert list(got.frame["a"]) == [1.5, 3.5]
+
+
+@pytest.mark.parametrize("content, code", [
+    (b'{"a": [1, 2], "b": [3, 4]}', "unsupported_format"),   # JSON: refused, whole file read
+    (b"\x1f\x8b\x08\x00rest", "unsupported_format"),          # gzip
+    (b"a,b\n1,\x00\n", "undecodable"),                         # NUL byte in text
+])
+def test_a_mapped_file_is_refused_as_the_same_file_from_bytes(content, code, tmp_path,
+                                                            monkeypatch):
+    _mapped(monkeypatch)
+    path = tmp_path / "t.csv"
+    path.write_bytes(content)
+    with pytest.raises(InputProblem) as from_path:
+        L.load_table(str(path))
+    with pytest.raises(InputProblem) as from_bytes:
+        L.load_table(content, name="t.csv")
+    assert from_path.value.code == from_bytes.value.code == code
+    assert from_path.value.message == from_bytes.value.message
+
+
+def test_unclosed_quote_in_a_mapped_file_is_named_by_the_hand_written_reader(tmp_path,
+                                                                           monkeypatch):
+    _mapped(monkeypatch)
+    raw = b'a,b\n1,2\n"3,4\n5,6\n'
+    path = tmp_path / "t.csv"
+    path.write_bytes(raw)
+    with pytest.raises(InputProblem) as from_path:
+        L.load_table(str(path))
+    with pytest.raises(InputProblem) as from_bytes:
+        L.load_table(raw, name="t.csv")
+    assert from_path.value.message == from_bytes.value.message
+    # quotes are counted a block at a time in a mapped file, as in bytes
+    assert L._count(L._map_file(path), b'"', block=3) == raw.count(b'"') == 1

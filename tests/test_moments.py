@@ -97,3 +97,65 @@ def test_wide_designs_are_summarised_in_small_chunks_exactly():
         n_d, m_d, M_d = _direct(R[labels == s])
         assert st.n[s] == n_d
         np.testing.assert_allclose(st.comoment[s], M_d, rtol=1e-9, atol=1e-9 * np.abs(M_d).max())
+
+
+def test_many_small_sets_are_summarised_block_by_block_exactly():
+    """Sets much smaller than a chunk share one expansion of their block; a set
+    larger than a chunk is cut as before; rows labelled -1 are left out; several
+    targets. Every set against numpy on its own rows."""
+    from engine.moments import design_moments
+
+    rng = np.random.default_rng(8)
+    sizes = [3, 1, 40, 7, 250, 2, 90, 11]      # set 4 spans more than one chunk of 64
+    labels = np.concatenate([np.full(s, i) for i, s in enumerate(sizes)] + [np.full(9, -1)])
+    rng.shuffle(labels)
+    n, P = labels.size, 6
+    U = rng.uniform(-1, 1, size=(n, 2))
+    W = rng.normal(size=(2, P))
+    Y = np.column_stack([U @ W[:, :2].sum(axis=1) + rng.normal(size=n), rng.normal(size=n)])
+    calls = []
+
+    def expand(Uc, out):
+        calls.append(Uc.shape[0])
+        out[:] = np.sin(Uc @ W) + 10.0
+
+    st = design_moments(U, Y, labels, len(sizes), expand, P, chunk_rows=64)
+    assert len(calls) - 1 < len(sizes) + 250 // 64    # (the first call: the shift's sample)
+    R = np.column_stack([np.sin(U @ W) + 10.0, Y])
+    for s in range(len(sizes)):
+        n_d, m_d, M_d = _direct(R[labels == s])
+        assert st.n[s] == n_d
+        np.testing.assert_allclose(st.mean[s], m_d, rtol=1e-12)
+        np.testing.assert_allclose(st.comoment[s], M_d, rtol=1e-9, atol=1e-9 * np.abs(M_d).max())
+
+
+def test_sets_shared_among_threads_give_the_same_numbers_bit_for_bit(monkeypatch):
+    """Small sets summarised by two threads (each set whole by one of them) equal the
+    one-thread pass exactly, and numpy on each set's rows."""
+    import engine.moments as mo
+
+    rng = np.random.default_rng(12)
+    n, P, L = 6000, 5, 40
+    labels = rng.integers(-1, L, n)
+    U = rng.uniform(-1, 1, size=(n, 2))
+    W = rng.normal(size=(2, P))
+    y = U[:, 0] ** 2 + rng.normal(size=n)
+
+    def expand(Uc, out):
+        out[:] = np.cos(Uc @ W)
+
+    monkeypatch.setattr(mo, "THREADED_ROWS", 0)
+    monkeypatch.setenv("FITLADDER_BLAS_THREADS", "1")
+    one = mo.design_moments(U, y, labels, L, expand, P, chunk_rows=256)
+    monkeypatch.setenv("FITLADDER_BLAS_THREADS", "2")
+    parts = mo._share_blocks(list(mo._blocks(mo._label_chunks(np.sort(labels), 256), 256)), 2)
+    assert len(parts) == 2
+    assert not ({m[0] for b in parts[0] for m in b[2]} & {m[0] for b in parts[1] for m in b[2]})
+    two = mo.design_moments(U, y, labels, L, expand, P, chunk_rows=256)
+    for a, b in ((one.n, two.n), (one.mean, two.mean), (one.comoment, two.comoment)):
+        assert np.array_equal(a, b)
+    R = np.column_stack([np.cos(U @ W), y])
+    for s in (0, 17, L - 1):
+        n_d, m_d, M_d = _direct(R[labels == s])
+        assert two.n[s] == n_d
+        np.testing.assert_allclose(two.comoment[s], M_d, rtol=1e-9, atol=1e-9 * np.abs(M_d).max())

@@ -135,3 +135,20 @@ def test_command_line_leaves_a_log_copy_out_and_records_the_stated_row_order(tmp
     bad["spec"]["scheme"]["rows_in_time_order"] = "no"
     with pytest.raises(InputProblem):
         check_record(bad)
+
+
+def test_screen_of_a_table_with_a_gap_equals_the_screen_of_its_complete_rows():
+    # complete rows: the frame's columns are screened as they are; with a gap the
+    # complete rows are gathered first; both leave out the same columns, same words
+    import pandas as pd
+    rng = np.random.default_rng(5)
+    n = 300
+    frame = pd.DataFrame({"exports": rng.normal(100, 10, n), "imports": rng.normal(90, 8, n),
+                          "rate": rng.normal(3, 1, n)})
+    frame["balance"] = (frame["exports"] - frame["imports"]).round(2)
+    gap = frame.copy()
+    gap.loc[7, "rate"] = np.nan
+    full = screen_inputs(frame.drop(index=7).reset_index(drop=True), "balance",
+                         ["exports", "imports", "rate"])
+    assert screen_inputs(gap, "balance", ["exports", "imports", "rate"]) == full
+    assert full[0] == ["rate"]
