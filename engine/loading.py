@@ -18,6 +18,7 @@ import mmap
 import os
 import re
 import unicodedata
+import time
 import warnings
 import zipfile
 from dataclasses import dataclass, field
@@ -271,6 +272,8 @@ def _too_large(name: str, size: int | None, max_bytes: int) -> InputProblem:
 #: columnar text reader and the fingerprint read the pages the system already
 #: holds for the file, and no copy of the whole file is made (see `_map_file`).
 MAPPED_MIN_BYTES = 8 << 20
+#: A file changed less than this many seconds ago is copied, not mapped (`_map_file`).
+MAPPED_QUIET_SECONDS = 10.0
 
 
 def _map_file(path: Path) -> "mmap.mmap | None":
@@ -280,8 +283,14 @@ def _map_file(path: Path) -> "mmap.mmap | None":
     by `hashlib` and by numpy; every other reader gets a copy
     (`_bytes_of`). A copy of a file of hundreds of megabytes costs more than
     the read itself on a machine where fresh memory is slow to hand out.
+
+    A mapping fails hard (the system stops the process) if another program cuts
+    the file short while it is read, so a file changed within the last
+    `MAPPED_QUIET_SECONDS` (perhaps still being written) is copied instead.
     """
     try:
+        if time.time() - path.stat().st_mtime < MAPPED_QUIET_SECONDS:
+            return None
         with path.open("rb") as handle:
             return mmap.mmap(handle.fileno(), 0, access=mmap.ACCESS_READ)
     except (OSError, ValueError):

@@ -2,6 +2,8 @@
 and the command line reads local files over the browser's upload cap."""
 from __future__ import annotations
 
+import os
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -246,9 +248,27 @@ def test_wide_workbook_refusal_counts_its_sample_rows_as_a_lower_bound(tmp_path,
 # ---------------------------------------------------------------------------
 
 def _mapped(monkeypatch):
-    """Every file counts as large: mapped (not copied) and read by the columnar route."""
+    """Every file counts as large and settled: mapped (not copied) and read by the
+    columnar route."""
     monkeypatch.setattr(L, "MAPPED_MIN_BYTES", 0)
     monkeypatch.setattr(L, "COLUMNAR_MIN_BYTES", 0)
+    monkeypatch.setattr(L, "MAPPED_QUIET_SECONDS", 0.0)
+
+
+def test_a_file_changed_moments_ago_is_copied_not_mapped(tmp_path, monkeypatch):
+    # a file perhaps still being written is never mapped (a mapping cut short stops
+    # the process); the same table comes from the copy
+    _mapped(monkeypatch)
+    monkeypatch.setattr(L, "MAPPED_QUIET_SECONDS", 10.0)
+    raw = TABLES[sorted(TABLES)[0]].encode()
+    path = tmp_path / "t.csv"
+    path.write_bytes(raw)
+    assert isinstance(L._read_source(str(path), None, L.NO_SIZE_LIMIT)[0], bytes)
+    fresh = L.load_table(str(path))
+    old = path.stat().st_mtime - 60
+    os.utime(path, (old, old))
+    assert isinstance(L._read_source(str(path), None, L.NO_SIZE_LIMIT)[0], L.mmap.mmap)
+    _same(fresh, L.load_table(str(path)))
 
 
 @pytest.mark.parametrize("label", sorted(TABLES))
