@@ -412,9 +412,16 @@ class _ModelFileWriter:
 
         self.model, self.path, self.proc = model, Path(path), None
         if background and threading.active_count() == 1 and "fork" in mp.get_all_start_methods():
+            import gc
+
             # scikit-learn's core, which this process needs too (outer splits of the
-            # intervals), is imported once here rather than again in the child
+            # intervals), is imported once here rather than again in the child.
+            # Objects made so far live as long as the process: frozen out of the
+            # collector's way (Python's advice before a fork), so that neither process
+            # traverses them again and the child's collections do not copy their pages.
+            gc.freeze()
             import sklearn.base  # noqa: F401
+            gc.freeze()
             self.proc = mp.get_context("fork").Process(target=_save_in_child,
                                                        args=(model, self.path), daemon=True)
             self.proc.start()
