@@ -9,7 +9,19 @@ chart-drawing child process before anything heavy is imported) stays cheap.
 from __future__ import annotations
 
 import importlib
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:   # the same names, for type checkers and editors
+    from .analysis import (Analysis, ArrayData, LearningCurve, analyse, analyse_targets,
+                           fit_cell, learning_curve)
+    from .design import PolynomialBasis, polynomial_terms
+    from .errors import InputProblem
+    from .final_fit import FinalModel, fit_final
+    from .lagged import LagSpec
+    from .recommend import Cell, Recommendation, recommend
+    from .schemes import FoldPlan, make_plan
+    from .spec import SCHEME_HELP, SCHEMES, SchemeSpec, SweepSpec, default_penalties
+    from .sweep import SweepResult, run_sweep
 
 # public name -> the module that defines it
 _WHERE = {

@@ -415,16 +415,17 @@ class _ModelFileWriter:
             import gc
 
             # scikit-learn's core, which this process needs too (outer splits of the
-            # intervals), is imported once here rather than again in the child.
-            # Objects made so far live as long as the process: frozen out of the
-            # collector's way (Python's advice before a fork), so that neither process
-            # traverses them again and the child's collections do not copy their pages.
+            # intervals), is imported once here rather than again in the child. The
+            # objects made so far are frozen out of the garbage collector's way
+            # meanwhile: the import's collections do not traverse them again, and
+            # the child's do not copy their pages (Python's advice before a fork)
             gc.freeze()
             import sklearn.base  # noqa: F401
             gc.freeze()
             self.proc = mp.get_context("fork").Process(target=_save_in_child,
                                                        args=(model, self.path), daemon=True)
             self.proc.start()
+            gc.unfreeze()   # a longer-lived caller (tests, a server) collects them as before
 
     def finish(self) -> Path:
         """Wait for the file; write it here when the child did not."""
