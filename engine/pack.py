@@ -362,7 +362,7 @@ def _skops_for_saving() -> None:
 
     As it is imported, ``skops.io`` lists every scikit-learn estimator (which
     imports every scikit-learn module) and finds the module of every scipy ufunc
-    (a search through all loaded modules for each one): about a second of CPU,
+    (a search through all loaded modules for each one): 0.6 to 1 s of CPU,
     more than the rest of writing the model file, for lists that only loading
     consults. The model-file child process, which saves one pipeline and ends,
     puts empty lists in their place before importing ``skops.io``; the file it
