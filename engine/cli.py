@@ -637,8 +637,9 @@ def command_run(args: argparse.Namespace) -> int:
     decimal = "," if args.decimal_comma else None
     from .render import ChartRenderer
 
-    # vl-convert starts in a child process while the table is read and analysed
-    with _out_folder(args) as folder, ChartRenderer(fork=True) as renderer:
+    # vl-convert starts in a child process, forked before the heavy imports, while they
+    # are made and the table is read and analysed
+    with ChartRenderer(fork=True) as renderer, _out_folder(args) as folder:
         return _run_into(args, folder, penalties, decimal, renderer)
 
 

@@ -357,11 +357,40 @@ def save_pipeline(model: FinalModel, path: Path) -> Path:
     return Path(path)
 
 
+def _skops_for_saving() -> None:
+    """Import ``skops.io`` for saving only: without the lists of types it trusts when loading.
+
+    As it is imported, ``skops.io`` lists every scikit-learn estimator (which
+    imports every scikit-learn module) and finds the module of every scipy ufunc
+    (a search through all loaded modules for each one): 0.6 to 1 s of CPU,
+    more than the rest of writing the model file, for lists that only loading
+    consults. The model-file child process, which saves one pipeline and ends,
+    puts empty lists in their place before importing ``skops.io``; the file it
+    writes is the same (tests/test_pack_use.py compares it with one written the
+    ordinary way). Never call this in a process that may load a file.
+    """
+    import sys
+    import types
+
+    if "skops.io" in sys.modules:
+        return
+    lists = types.ModuleType("skops.io._trusted_types")
+
+    def empty_list(name: str) -> list:
+        if name.isupper():          # the module's constants: lists of type names
+            return []
+        raise AttributeError(name)
+
+    lists.__getattr__ = empty_list
+    sys.modules["skops.io._trusted_types"] = lists
+
+
 def _save_in_child(model: FinalModel, path: Path) -> None:
     """Child-process body: save the model; any failure only sets the exit status."""
     import os
 
     try:
+        _skops_for_saving()
         save_pipeline(model, path)
     except BaseException:  # the parent writes the file itself then
         os._exit(1)
@@ -383,12 +412,20 @@ class _ModelFileWriter:
 
         self.model, self.path, self.proc = model, Path(path), None
         if background and threading.active_count() == 1 and "fork" in mp.get_all_start_methods():
+            import gc
+
             # scikit-learn's core, which this process needs too (outer splits of the
-            # intervals), is imported once here rather than again in the child
+            # intervals), is imported once here rather than again in the child. The
+            # objects made so far are frozen out of the garbage collector's way
+            # meanwhile: the import's collections do not traverse them again, and
+            # the child's do not copy their pages (Python's advice before a fork)
+            gc.freeze()
             import sklearn.base  # noqa: F401
+            gc.freeze()
             self.proc = mp.get_context("fork").Process(target=_save_in_child,
                                                        args=(model, self.path), daemon=True)
             self.proc.start()
+            gc.unfreeze()   # a longer-lived caller (tests, a server) collects them as before
 
     def finish(self) -> Path:
         """Wait for the file; write it here when the child did not."""
@@ -1776,13 +1813,14 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             folder = opened if opened is not None else stack.enter_context(
                 pack_folder(out, overwrite))
             work = folder.work
-        model_writer = _ModelFileWriter(model, work / "model.skops", model_file_in_background)
         if renderer is None:  # a forked child starts vl-convert now and draws meanwhile
             renderer = stack.enter_context(ChartRenderer(fork=model_file_in_background))
         from . import charts as _charts
-        # the sweep's charts need nothing more: drawn while the rest is computed
+        # the sweep's charts need nothing more: drawn while the rest is computed (sent
+        # before the model file's child starts, so that the drawing starts first)
         drawing = [renderer.submit({stem: _charts.for_print(ch, 75) for stem, ch in make_charts(
             analysis, None, None, None, cells, stems=SWEEP_CHARTS).items()})]
+        model_writer = _ModelFileWriter(model, work / "model.skops", model_file_in_background)
         if progress:
             progress(0.62, "Learning curve")
         lc_orders = sorted({q for q, _ in learning_cells(cells)})

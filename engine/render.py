@@ -85,6 +85,21 @@ def _child_loop(jobs, answers, parent_ends) -> None:
         os._exit(1)
 
 
+def _widen(conn, size: int = 1 << 20) -> None:
+    """Let the pipe under ``conn`` hold ``size`` bytes where the system allows (Linux).
+
+    A batch of specifications larger than the default 64 KiB would otherwise
+    make the caller wait, as it sends, until the child has finished drawing the
+    batches before it; drawings sent back likewise wait for nobody.
+    """
+    try:
+        import fcntl
+
+        fcntl.fcntl(conn.fileno(), fcntl.F_SETPIPE_SZ, size)
+    except (ImportError, AttributeError, OSError):   # other systems, or over the limit
+        pass
+
+
 def _may_fork() -> bool:
     import multiprocessing as mp
 
@@ -126,6 +141,8 @@ class ChartRenderer:
             ctx = mp.get_context("fork")
             jobs_in, self._jobs = ctx.Pipe(duplex=False)
             self._answers_out, answers_in = ctx.Pipe(duplex=False)
+            _widen(self._jobs)
+            _widen(answers_in)
             self._proc = ctx.Process(
                 target=_child_loop, name="fitladder-charts", daemon=True,
                 args=(jobs_in, answers_in, (self._jobs, self._answers_out)))

@@ -309,3 +309,21 @@ def test_a_hundred_thousand_repeats_are_refused_before_the_sweep(demo_dir, tmp_p
                           "--out", str(out)], capsys)
     assert code == 1 and "the sweep started" in err   # (the stand-in sweep above)
     assert "request:" in err and " h on this machine" in err   # the estimate, before the run
+
+
+def test_the_command_line_module_imports_nothing_heavy():
+    """``python -m engine`` forks its chart-drawing child before pandas, scipy, scikit-learn
+    or Altair are imported: neither ``import engine`` nor the command line's module imports
+    them, and every public name of the package still resolves (to its module's object)."""
+    script = ("import json, sys, engine, engine.cli\n"
+              "heavy = sorted(m for m in ('pandas', 'scipy', 'sklearn', 'altair') "
+              "if m in sys.modules)\n"
+              "from engine import analyse, InputProblem\n"
+              "import engine.analysis, engine.errors\n"
+              "unresolved = [n for n in engine.__all__ if getattr(engine, n, None) is None]\n"
+              "same = analyse is engine.analysis.analyse and InputProblem is engine.errors.InputProblem\n"
+              "print(json.dumps([heavy, unresolved, same, set(engine.__all__) <= set(dir(engine))]))\n")
+    repo = Path(__file__).resolve().parents[1]
+    proc = _run([PY, "-c", script], cwd=repo, env={"PYTHONPATH": str(repo)})
+    assert proc.returncode == 0, proc.stderr
+    assert json.loads(proc.stdout) == [[], [], True, True]

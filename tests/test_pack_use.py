@@ -346,3 +346,65 @@ def test_snippet_trusts_an_explicit_list_of_the_pipeline_types_and_runs(text_pac
     sio.dump(Pipeline([("f", FunctionTransformer(operator.neg))]), str(bad / "model.skops"))
     with pytest.raises(sio.exceptions.UntrustedTypesFoundException):
         _run_snippet(usage(text_pack[0].model)["python"], bad, {})
+
+
+# ---------------------------------------------------------------------------
+# the model file written by the command line's child process
+# ---------------------------------------------------------------------------
+def _skops_members(path) -> tuple[str, dict[str, bytes]]:
+    """A .skops file's schema.json with object identities numbered in order of appearance,
+    and its array members keyed the same way (the skops file format: a zip archive of
+    schema.json plus one .npy member per array, named after the array's ``id()``)."""
+    import zipfile
+
+    with zipfile.ZipFile(path) as z:
+        schema = z.read("schema.json").decode()
+        arrays = {n: z.read(n) for n in z.namelist() if n != "schema.json"}
+    seen: dict[str, str] = {}
+    number = re.compile(r"\d{6,}")
+    schema = number.sub(lambda m: seen.setdefault(m.group(0), f"<{len(seen)}>"), schema)
+    return schema, {number.sub(lambda m: seen[m.group(0)], n): b for n, b in arrays.items()}
+
+
+_CHILD_WRITES = r"""
+import pickle, sys
+from pathlib import Path
+from engine import pack
+models = pickle.loads(sys.stdin.buffer.read())
+pack._skops_for_saving()    # what the model file's child process does before saving
+assert not hasattr(sys.modules["skops.io._trusted_types"], "__file__")
+for label, model in models.items():
+    pack.save_pipeline(model, Path(sys.argv[1]) / f"{label}.skops")
+"""
+
+
+def test_model_file_child_writes_the_file_skops_writes(text_pack, tmp_path):
+    """Without skops's lists of trusted types (`engine.pack._skops_for_saving`) the child
+    writes the same file as ``skops.io.dump`` imported the ordinary way, and it loads."""
+    import os
+    import pickle
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    from engine.pack import load_pipeline, save_pipeline
+
+    models = {label.replace(" ", "_"): m for label, m in _models_of_every_shape(text_pack).items()}
+    child, here = tmp_path / "child", tmp_path / "here"
+    child.mkdir()
+    here.mkdir()
+    repo = Path(__file__).resolve().parents[1]
+    proc = subprocess.run([sys.executable, "-c", _CHILD_WRITES, str(child)],
+                          input=pickle.dumps(models), capture_output=True, cwd=repo,
+                          env=dict(os.environ, PYTHONPATH=str(repo)), timeout=300)
+    assert proc.returncode == 0, proc.stderr.decode()
+    rng = np.random.default_rng(11)
+    for label, model in models.items():
+        save_pipeline(model, here / f"{label}.skops")
+        assert _skops_members(child / f"{label}.skops") == _skops_members(here / f"{label}.skops"), label
+        pipe = load_pipeline(child / f"{label}.skops")
+        if model.text_inputs:
+            continue      # the text-input pipeline is checked on its raw table above
+        Xq = rng.uniform(0.0, 5.0, size=(7, len(model.input_names)))
+        got = pipe.predict(pd.DataFrame(Xq, columns=list(model.input_names)))
+        np.testing.assert_allclose(got, model.predict(Xq), rtol=1e-10, atol=1e-10)
