@@ -1793,13 +1793,6 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         if not m.text_inputs:
             attach_text_inputs(m, getattr(source_data, "factors", None))
     model = models[_cell_key(rec.order, rec.penalty)]
-    ahead = None
-    if checks is None:
-        # the checks' passes over the rows that need only the data and this model run
-        # in a thread beside the learning curve, the intervals and the charts
-        from .checks import checks_ahead
-        from .fingerprint import in_background
-        ahead = in_background(checks_ahead, data, analysis, model)
     # the pack is made in a hidden sibling of `out` and moved into place when complete
     with ExitStack() as stack:
         if direct:
@@ -1821,6 +1814,14 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         drawing = [renderer.submit({stem: _charts.for_print(ch, 75) for stem, ch in make_charts(
             analysis, None, None, None, cells, stems=SWEEP_CHARTS).items()})]
         model_writer = _ModelFileWriter(model, work / "model.skops", model_file_in_background)
+        ahead = None
+        if checks is None:
+            # the checks' passes over the rows that need only the data and this model run
+            # in a thread beside the learning curve, the intervals and the charts (started
+            # after the model file's child is forked: a fork beside threads is unsafe)
+            from .checks import checks_ahead
+            from .fingerprint import in_background
+            ahead = in_background(checks_ahead, data, analysis, model)
         if progress:
             progress(0.62, "Learning curve")
         lc_orders = sorted({q for q, _ in learning_cells(cells)})

@@ -408,3 +408,29 @@ def test_model_file_child_writes_the_file_skops_writes(text_pack, tmp_path):
         Xq = rng.uniform(0.0, 5.0, size=(7, len(model.input_names)))
         got = pipe.predict(pd.DataFrame(Xq, columns=list(model.input_names)))
         np.testing.assert_allclose(got, model.predict(Xq), rtol=1e-10, atol=1e-10)
+
+
+def test_no_thread_of_the_pack_runs_when_the_model_file_child_is_forked(monkeypatch, tmp_path,
+                                                                        demo_dir):
+    """The model file's child is forked only while no other thread runs (a fork beside
+    threads is unsafe, and the writer then falls back to writing in this process):
+    no thread the pack starts (``fitladder-...``) may be alive at that moment."""
+    import threading
+
+    from engine import pack as P
+    seen = []
+    real = P._ModelFileWriter.__init__
+
+    def spy(self, model, path, background):
+        seen.append(sorted(t.name for t in threading.enumerate()
+                           if t.name.startswith("fitladder")))
+        real(self, model, path, False)   # written here: the test process may hold threads
+
+    monkeypatch.setattr(P._ModelFileWriter, "__init__", spy)
+    lt = load_table(demo_dir / "calibration_curve.csv")
+    data = prepare(lt.frame, "bath_temp_C", ["probe_mV"])
+    spec = SweepSpec("bath_temp_C", ("probe_mV",), max_order=3, scheme=SchemeSpec("kfold"))
+    build_pack(tmp_path / "pack", data=data, spec=spec, loaded=lt, source_name="c.csv",
+               model_file_in_background=True)
+    assert seen == [[]]
+    assert (tmp_path / "pack" / "model.skops").is_file()
