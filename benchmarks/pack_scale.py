@@ -4,8 +4,9 @@ Writes an invented plant log (one input acting as a polynomial of order 6, 19
 more inputs acting linearly, noise) as CSV, runs ``fitladder run`` on it as a
 separate process (orders 0-6, ridge grid, 5 shuffled folds) and times each
 step from the progress lines the command prints on stderr. In the same run it
-times ``pandas.read_csv(engine="pyarrow")`` of the same file three times and
-takes the median (one read's time varies by up to 2x between runs here).
+times ``pandas.read_csv(engine="pyarrow")`` of the same file three times, each
+in a new process as the run is (the read alone, not the imports), and takes
+the median (one read's time varies by up to 2x between runs here).
 
 Usage::
 
@@ -63,6 +64,18 @@ def make_table(rows: int, seed: int = 0) -> pd.DataFrame:
     return frame
 
 
+_READ = ("import sys, time\nimport pandas as pd\nt = time.perf_counter()\n"
+         "pd.read_csv(sys.argv[1], engine='pyarrow')\nprint(time.perf_counter() - t)")
+
+
+def fresh_read(path: Path) -> float:
+    """Seconds of ``pandas.read_csv(path, engine="pyarrow")`` in a new Python process
+    (the read alone, not the imports)."""
+    out = subprocess.run([sys.executable, "-c", _READ, str(path)], capture_output=True,
+                         text=True, check=True)
+    return float(out.stdout.strip())
+
+
 def run_once(path: Path, out: Path) -> tuple[float, dict[str, float]]:
     cmd = [sys.executable, "-m", "engine", "run", str(path), "--target", "yield_pct",
            "--max-order", "6", "--folds", "5", "--out", str(out)]
@@ -102,12 +115,9 @@ def main() -> None:
             if not path.exists():
                 make_table(rows).to_csv(path, index=False)
             size_mb = path.stat().st_size / 1e6
-            reads = []
-            for _ in range(READS):   # the read's time varies from run to run: the median
-                t = time.perf_counter()
-                frame = pd.read_csv(path, engine="pyarrow")
-                reads.append(time.perf_counter() - t)
-                del frame
+            # each read in a fresh process, as the run is: a process's first read also
+            # pays for fresh memory, which later reads in the same process reuse
+            reads = [fresh_read(path) for _ in range(READS)]
             read_s = statistics.median(reads)
             total, steps = run_once(path, base / f"pack_{rows}")
             print(f"rows {rows} ({size_mb:.0f} MB): pandas pyarrow read {read_s:.2f} s (median "
