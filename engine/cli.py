@@ -947,8 +947,8 @@ def _small_pages() -> None:
 
     numpy asks the system for huge pages for every large array; where the
     system then compacts memory to find them, each fresh array costs far more
-    than it saves (measured on a 1,000,000-row run here: 2.4-3.1 s of system
-    time against 3.7-4.5 s, and 1-4 s less in all).
+    than it saves (measured on a 1,000,000-row run on an idle 2-core machine
+    here: 2.6-2.8 s of system time against 3.3-3.9 s, and 0.5-1.0 s less in all).
     """
     if os.environ.get("NUMPY_MADVISE_HUGEPAGE") is not None:
         return
