@@ -87,8 +87,10 @@ def source_fingerprint(path: str | Path) -> SourceFingerprint:
     return SourceFingerprint(file_digest(p), p.stat().st_size, 1, "file")
 
 
-def in_background(fn: Callable[..., T], *args) -> Callable[[], T]:
-    """Start ``fn(*args)`` in a daemon thread; returns a function that waits for its result.
+def in_background(fn: Callable[..., T], *args, name: str = "fitladder-fingerprint"
+                  ) -> Callable[[], T]:
+    """Start ``fn(*args)`` in a daemon thread (called ``name``); returns a function that
+    waits for its result.
 
     The returned function re-raises any error the thread met (a file removed
     while it was read, say).
@@ -101,7 +103,7 @@ def in_background(fn: Callable[..., T], *args) -> Callable[[], T]:
         except BaseException as exc:  # noqa: BLE001 - handed back to the caller
             box["error"] = exc
 
-    thread = threading.Thread(target=work, name="fitladder-fingerprint", daemon=True)
+    thread = threading.Thread(target=work, name=name, daemon=True)
     thread.start()
 
     def result() -> T:

@@ -1821,7 +1821,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             # after the model file's child is forked: a fork beside threads is unsafe)
             from .checks import checks_ahead
             from .fingerprint import in_background
-            ahead = in_background(checks_ahead, data, analysis, model)
+            ahead = in_background(checks_ahead, data, analysis, model, name="fitladder-checks")
         if progress:
             progress(0.62, "Learning curve")
         lc_orders = sorted({q for q, _ in learning_cells(cells)})

@@ -414,23 +414,27 @@ def test_no_thread_of_the_pack_runs_when_the_model_file_child_is_forked(monkeypa
                                                                         demo_dir):
     """The model file's child is forked only while no other thread runs (a fork beside
     threads is unsafe, and the writer then falls back to writing in this process):
-    no thread the pack starts (``fitladder-...``) may be alive at that moment."""
-    import threading
-
+    the checks' thread (`engine.checks.checks_ahead`) is started after the writer."""
+    from engine import fingerprint as F
     from engine import pack as P
-    seen = []
-    real = P._ModelFileWriter.__init__
 
-    def spy(self, model, path, background):
-        seen.append(sorted(t.name for t in threading.enumerate()
-                           if t.name.startswith("fitladder")))
-        real(self, model, path, False)   # written here: the test process may hold threads
+    events = []
+    real_writer, real_thread = P._ModelFileWriter.__init__, F.in_background
 
-    monkeypatch.setattr(P._ModelFileWriter, "__init__", spy)
+    def writer(self, model, path, background):
+        events.append("model file writer")
+        real_writer(self, model, path, False)   # written here: the test process may hold threads
+
+    def thread(fn, *args, **kw):
+        events.append(f"thread {kw.get('name')}")
+        return real_thread(fn, *args, **kw)
+
+    monkeypatch.setattr(P._ModelFileWriter, "__init__", writer)
+    monkeypatch.setattr(F, "in_background", thread)
     lt = load_table(demo_dir / "calibration_curve.csv")
     data = prepare(lt.frame, "bath_temp_C", ["probe_mV"])
     spec = SweepSpec("bath_temp_C", ("probe_mV",), max_order=3, scheme=SchemeSpec("kfold"))
     build_pack(tmp_path / "pack", data=data, spec=spec, loaded=lt, source_name="c.csv",
                model_file_in_background=True)
-    assert seen == [[]]
+    assert events == ["model file writer", "thread fitladder-checks"]
     assert (tmp_path / "pack" / "model.skops").is_file()
