@@ -79,13 +79,18 @@ def test_log_copy_of_the_target_is_left_out_with_the_reason():
     assert "log of mpg = a + b * log_mpg" in r.left_out["log_mpg"]
 
 
-def test_target_equal_to_difference_of_two_inputs_leaves_both_out():
-    rng = np.random.default_rng(3)
+def _trade_balance(seed: int, n: int):
+    """Invented trade table: ``balance`` is ``exports - imports`` rounded; ``rate`` unrelated."""
     import pandas as pd
-    n = 120
+    rng = np.random.default_rng(seed)
     frame = pd.DataFrame({"exports": rng.normal(100, 10, n), "imports": rng.normal(90, 8, n),
                           "rate": rng.normal(3, 1, n)})
     frame["balance"] = (frame["exports"] - frame["imports"]).round(2)
+    return frame
+
+
+def test_target_equal_to_difference_of_two_inputs_leaves_both_out():
+    frame = _trade_balance(3, 120)
     inputs, left = screen_inputs(frame, "balance", ["exports", "imports", "rate"])
     assert inputs == ["rate"]
     assert set(left) == {"exports", "imports"}
@@ -140,12 +145,7 @@ def test_command_line_leaves_a_log_copy_out_and_records_the_stated_row_order(tmp
 def test_screen_of_a_table_with_a_gap_equals_the_screen_of_its_complete_rows():
     # complete rows: the frame's columns are screened as they are; with a gap the
     # complete rows are gathered first; both leave out the same columns, same words
-    import pandas as pd
-    rng = np.random.default_rng(5)
-    n = 300
-    frame = pd.DataFrame({"exports": rng.normal(100, 10, n), "imports": rng.normal(90, 8, n),
-                          "rate": rng.normal(3, 1, n)})
-    frame["balance"] = (frame["exports"] - frame["imports"]).round(2)
+    frame = _trade_balance(5, 300)
     gap = frame.copy()
     gap.loc[7, "rate"] = np.nan
     full = screen_inputs(frame.drop(index=7).reset_index(drop=True), "balance",
