@@ -603,20 +603,22 @@ def _band_note(band: pd.DataFrame) -> str:
             + (f" {where}" if where else "") + dotted + ".")
 
 
-def _band_layers(band: pd.DataFrame, xscale, yscale, order: list[str], ylo: float,
-                 yhi: float) -> list:
-    """Shaded CV+ band and dotted analytic bounds, clipped to the plotted range."""
+def _band_layers(band: pd.DataFrame, xscale, yscale, order: list[str]) -> list:
+    """Shaded CV+ band and dotted analytic bounds, cut off at the panel's edges.
+
+    The marks are clipped as drawn (a bound cut at a value instead would bend
+    the band's straight edges where it leaves the panel): the band spans every
+    row's values, the panel's axes only the rows drawn.
+    """
     colour = MODEL_COLOURS[order.index(band["model"].iloc[0]) % len(MODEL_COLOURS)]
-    b = band.copy()
-    for c in ("cvplus_low", "cvplus_high", "analytic_low", "analytic_high"):
-        b[c] = b[c].clip(ylo, yhi)
-    out = [alt.Chart(b).mark_area(opacity=0.16, color=colour).encode(
+    b = band
+    out = [alt.Chart(b).mark_area(opacity=0.16, color=colour, clip=True).encode(
         x=alt.X("x:Q", scale=xscale), y=alt.Y("cvplus_low:Q", scale=yscale),
         y2="cvplus_high:Q")]
     if b["analytic_low"].notna().any():
         for c in ("analytic_low", "analytic_high"):
             out.append(alt.Chart(b).mark_line(color=colour, strokeDash=[2, 2], strokeWidth=1,
-                                              opacity=0.9).encode(
+                                              opacity=0.9, clip=True).encode(
                 x=alt.X("x:Q", scale=xscale), y=alt.Y(f"{c}:Q", scale=yscale)))
     return out
 
@@ -696,7 +698,7 @@ def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
         # data points drawn last, above the fitted curves and the band
         layers = [shade]
         if band is not None and not band.empty and band["model"].iloc[0] in order:
-            layers += _band_layers(band, xscale, yscale, order, ylo, yhi)
+            layers += _band_layers(band, xscale, yscale, order)
             notes.append(_band_note(band))
         chart = alt.layer(*layers, curve, scatter).properties(
             width=_WIDTH + 60, height=_HEIGHT + 40,
@@ -736,7 +738,7 @@ def comparison_chart(data: Any, models: dict[tuple[int, float], FinalModel],
             x=alt.X("a:Q", scale=ascale), y=alt.Y("b:Q", scale=ascale))
         extra = []
         if band is not None and not band.empty and band["model"].iloc[0] == m:
-            extra = _band_layers(band, ascale, ascale, order, lo, hi)
+            extra = _band_layers(band, ascale, ascale, order)
             if _band_note(band) not in notes:
                 notes.append(_band_note(band))
         top_panels.append(alt.layer(*extra, line, pv).properties(width=w, height=w, title=m))

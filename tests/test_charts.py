@@ -163,3 +163,40 @@ def test_printed_pack_charts_are_valid_vega_lite(calibration):
     for stem, chart in charts.items():
         printed = C.for_print(chart, 75)
         assert printed.to_dict(validate=True) == printed.to_dict(validate=False), stem
+
+
+def test_prediction_band_is_cut_at_the_panel_edges_not_bent(demo_dir):
+    # several inputs: the band about the line of perfect agreement is two straight edges
+    # parallel to it; drawn clipped at the panel's edges, its values as computed
+    from engine.intervals import band_table, how_sure
+    data, spec, an = _analysed(demo_dir / "drifting_line_sensors.csv", "yield_pct",
+                               ["inlet_temp_C", "jacket_temp_C", "feed_flow_L_min"],
+                               SchemeSpec("kfold"), 2)
+    rec = an.recommendation.recommended
+    cell = (int(rec.order), float(rec.penalty))
+    models = fit_candidates(data, spec, [cell])
+    band = band_table(how_sure(an, data, spec), data)
+    assert band["layout"].iloc[0] == "diagonal"
+    assert np.allclose(np.diff(band["cvplus_high"] - band["x"]), 0.0)
+    spec_dict = C.comparison_chart(data, models, "yield_pct", scatter_limit=50,
+                                   band=band).to_dict()
+    drawn = []
+
+    def walk(node):
+        if isinstance(node, dict):
+            mark = node.get("mark")
+            enc = node.get("encoding", {})
+            if mark is not None and any(f in str(enc.get("y", {})) for f in
+                                        ("cvplus_low", "analytic_low", "analytic_high")):
+                drawn.append(mark)
+            for v in node.values():
+                walk(v)
+        elif isinstance(node, list):
+            for v in node:
+                walk(v)
+
+    walk(spec_dict)
+    assert drawn and all(isinstance(m, dict) and m.get("clip") is True for m in drawn)
+    values = [v for ds in spec_dict.get("datasets", {}).values() for v in ds
+              if "cvplus_high" in v]
+    assert sorted(v["cvplus_high"] for v in values) == sorted(band["cvplus_high"])
