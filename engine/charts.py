@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from .labels import cell_text, family_text, penalty_text  # noqa: F401  (part of this module's API)
-from .compare import cell_label, curve_table, prediction_table
+from .compare import curve_table, prediction_table
 from .final_fit import FinalModel
 from .recommend import Cell
 

@@ -679,7 +679,6 @@ def _check_budget(args: argparse.Namespace, inputs: tuple, penalties, more: tupl
 
 
 def _run_into(args: argparse.Namespace, folder, penalties, decimal, renderer=None) -> int:
-    from .loading import prepare
     from .pack import build_pack
 
     progress = _StderrProgress()
@@ -871,7 +870,6 @@ def _rerun_streamed(folder, rec: dict, spec, path: Path) -> int:
 
 
 def _rerun_into(args: argparse.Namespace, folder, rec: dict, spec, path: Path) -> int:
-    from .loading import prepare
     from .pack import build_pack
 
     progress = _StderrProgress()

@@ -13,7 +13,6 @@ in the engine imports this module.
 """
 from __future__ import annotations
 
-from pathlib import Path
 
 import numpy as np
 

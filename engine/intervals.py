@@ -48,7 +48,7 @@ from .errors import InputProblem
 from .families import RawMap, TermSummary, fit_family, sse
 from .moments import combine_batch, design_moments
 from .schemes import FoldPlan
-from .spec import SchemeSpec, SweepSpec
+from .spec import SweepSpec
 from .summaries import CHUNK_ROWS, LARGE_ROWS
 from .threads import one_thread
 

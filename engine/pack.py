@@ -36,7 +36,7 @@ import pandas as pd
 
 from .jsonable import json_ready
 from .analysis import Analysis, DataLike, analyse, learning_curve
-from .compare import cell_label, fit_candidates
+from .compare import fit_candidates
 from .errors import InputProblem
 from .final_fit import FinalModel, attach_text_inputs
 from .markup import escape_name, escape_text

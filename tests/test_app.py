@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 from streamlit.testing.v1 import AppTest
 
-from engine import SchemeSpec, SweepSpec, analyse, default_penalties
+from engine import SchemeSpec, SweepSpec, analyse
 from engine import charts as C
 from engine.labels import CHARTS, TABLES, samples_per_parameter
 from engine.pack import build_pack, pack_zip_bytes

@@ -14,11 +14,8 @@ from sklearn.preprocessing import PolynomialFeatures, StandardScaler
 
 from engine import ArrayData, SchemeSpec, SweepSpec, analyse, default_penalties
 from engine.errors import InputProblem
-from engine.families import RawMap, TermSummary, fit_family
 from engine.families import lasso as lasso_family
 from engine.paths import coefficient_paths
-from engine.design import PolynomialBasis
-from engine.sweep import piece_statistics
 
 REF = Path(__file__).parent / "reference"
 PROSTATE_INPUTS = ("lcavol", "lweight", "age", "lbph", "svi", "lcp", "gleason", "pgg45")

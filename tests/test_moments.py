@@ -5,7 +5,7 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from engine.moments import Moments, _combine_dense, accumulate, combine_batch
+from engine.moments import _combine_dense, accumulate, combine_batch
 
 
 def _direct(R: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:

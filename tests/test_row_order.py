@@ -12,7 +12,6 @@ from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
-import pytest
 
 from engine import ArrayData, SchemeSpec, SweepSpec, analyse
 from engine.checks import ROW_ORDER_CHECKS, row_order_basis, run_checks

@@ -9,7 +9,7 @@ from sklearn.model_selection import GroupKFold, KFold, RepeatedKFold
 
 from engine import ArrayData, InputProblem, SchemeSpec, SweepSpec, analyse, make_plan
 from engine.design import PolynomialBasis, polynomial_terms
-from engine.moments import Moments, accumulate, combine, combine_batch, design_moments
+from engine.moments import accumulate, combine, combine_batch, design_moments
 
 
 # ---------------------------------------------------------------- schemes

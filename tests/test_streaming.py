@@ -9,7 +9,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from engine import ArrayData, SchemeSpec, SweepSpec
+from engine import SchemeSpec, SweepSpec
 from engine.cli import main
 from engine.design import PolynomialBasis
 from engine.streaming import (accumulate_batches, analyse_moments, hashed_fold_plan,
