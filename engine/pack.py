@@ -264,6 +264,12 @@ def sklearn_pipeline(model: FinalModel):
     return Pipeline(steps)
 
 
+def _text_columns(text: dict) -> dict[str, str]:
+    """Input name of each indicator term (``column[level]``) -> its text column, for
+    ``FinalModel.text_inputs``."""
+    return {f"{col}[{lv}]": col for col, (_, levels) in text.items() for lv in levels}
+
+
 def text_encoder(model: FinalModel):
     """The pipeline's first step for a model with text inputs, else None.
 
@@ -282,10 +288,7 @@ def text_encoder(model: FinalModel):
     text = dict(getattr(model, "text_inputs", None) or {})
     if not text:
         return None
-    owner = {}
-    for col, (_, levels) in text.items():
-        for lv in levels:
-            owner[f"{col}[{lv}]"] = col
+    owner = _text_columns(text)
     parts: list[tuple[str, Any, list[str]]] = []
     columns: list[str] = []
     for name in (str(c) for c in model.input_names):
@@ -812,7 +815,7 @@ def usage(model: FinalModel, file: str = "model.skops") -> dict:
     # the middle of each input's range; a text input (column[level] terms) at its
     # reference level, as the column is written in the table
     text = dict(getattr(model, "text_inputs", None) or {})
-    owner = {f"{c}[{lv}]": c for c, (_, levels) in text.items() for lv in levels}
+    owner = _text_columns(text)
     example: dict[str, list] = {}
     for name, lo, hi in zip(model.input_names, model.x_min, model.x_max):
         col = owner.get(str(name))
@@ -1042,10 +1045,9 @@ def _mse_words(c: dict, se_name: str = "") -> str:
 
 def _error_words(c: dict, unit: str, se_name: str = "") -> str:
     """`_mse_words` in ``unit``: ``0.9397 ± 0.12 (1 SE)`` for RMSE (delta-method SE)."""
-    v = error_in_unit(c["validation_mse"], unit)
-    if c.get("validation_mse_se") is None:
+    v, se = _cell_error(c, unit)
+    if se is None:
         return f"{_num(v)}, one split so no standard error"
-    se = se_in_unit(c["validation_mse"], c["validation_mse_se"], unit)
     tail = f" ({se_name})" if se_name else ""
     return f"{_num(v)} ± {_num(se, 2)}{tail}"
 
@@ -1057,18 +1059,21 @@ def _cell_error(c: dict, unit: str) -> tuple[float, float | None]:
             None if se is None else se_in_unit(c["validation_mse"], se, unit))
 
 
+def _check_error_unit(unit: str) -> None:
+    if unit not in ERROR_UNITS:
+        raise InputProblem(f"Unknown error unit '{unit}'; choose one of "
+                           f"{', '.join(ERROR_UNITS)}.", code="bad_error_unit")
+
+
 def headline_dict(s: dict, unit: str = DEFAULT_ERROR_UNIT) -> dict:
     """The headline of the summary with every error in one unit (``'mse'`` or ``'rmse'``).
 
     ``summary.json`` carries it as ``headline``; ``summary.md`` and ``summary.html``
     write their headline sentence and figures from it, so all three agree.
     """
-    if unit not in ERROR_UNITS:
-        raise InputProblem(f"Unknown error unit '{unit}'; choose one of "
-                           f"{', '.join(ERROR_UNITS)}.", code="bad_error_unit")
+    _check_error_unit(unit)
     r, b = s["recommended"], s["best"]
     name = ERROR_UNITS[unit]
-    se = r.get("validation_mse_se")
     b_se = b.get("validation_mse_se")
     reason = reason_in_unit(r["reason"], r["validation_mse"], b["validation_mse"],
                             b_se if b_se is not None else float("nan"), unit,
@@ -1079,13 +1084,10 @@ def headline_dict(s: dict, unit: str = DEFAULT_ERROR_UNIT) -> dict:
     best = (f"Best cell: order {b['order']}, {_penalty_words(b['penalty'])}"
             f"{rung_text(b.get('lags'), b.get('target_lags'), b.get('inputs_used'))}: "
             f"validation {name} {_error_words(b, unit)}")
+    (err, err_se), (best_err, best_se) = _cell_error(r, unit), _cell_error(b, unit)
     return {"unit": unit, "unit_name": name,
-            "validation_error": error_in_unit(r["validation_mse"], unit),
-            "validation_error_se": None if se is None else
-            se_in_unit(r["validation_mse"], se, unit),
-            "best_error": error_in_unit(b["validation_mse"], unit),
-            "best_error_se": None if b_se is None else
-            se_in_unit(b["validation_mse"], b_se, unit),
+            "validation_error": err, "validation_error_se": err_se,
+            "best_error": best_err, "best_error_se": best_se,
             "sentence": f"Recommended: {_headline(s)}. {figures}.",
             "figures": figures, "reason": reason, "best": best}
 
@@ -1138,7 +1140,7 @@ def _input_range_words(s: dict, esc: Callable[[Any], str]) -> str:
 
 def render_markdown(s: dict) -> str:
     """``summary.md`` from the summary dict (user text Markdown-escaped)."""
-    d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
+    d, roles = s["data"], s["roles"]
     tgt = escape_name(roles["target"])
     lines = [f"# Model choice for {tgt}", ""]
     h = s.get("headline") or headline_dict(s)
@@ -1495,7 +1497,7 @@ def _use_html(s: dict) -> str:
 
 def render_html(s: dict, pngs: dict[str, bytes], generated: str = "") -> str:
     """``summary.html``: one printed page; charts embedded as base64 PNG; user text escaped."""
-    d, roles, r, b = s["data"], s["roles"], s["recommended"], s["best"]
+    d, roles, r = s["data"], s["roles"], s["recommended"]
     hd = s.get("headline") or headline_dict(s)
     hd_se = (", one split so no standard error" if hd["validation_error_se"] is None
              else f" ± {_num(hd['validation_error_se'], 2)} (1 SE)")
@@ -1753,9 +1755,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         For a request or data that cannot be analysed, or a compare order
         outside the sweep.
     """
-    if error_unit not in ERROR_UNITS:
-        raise InputProblem(f"Unknown error unit '{error_unit}'; choose one of "
-                           f"{', '.join(ERROR_UNITS)}.", code="bad_error_unit")
+    _check_error_unit(error_unit)  # before anything is computed
     direct = isinstance(out_dir, _Direct)
     opened = out_dir if isinstance(out_dir, PackFolder) else None
     out = out_dir.path if direct else opened.out if opened is not None else Path(out_dir)
@@ -1809,10 +1809,15 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         if renderer is None:  # a forked child starts vl-convert now and draws meanwhile
             renderer = stack.enter_context(ChartRenderer(fork=model_file_in_background))
         from . import charts as _charts
+
+        def draw(chart_objs: dict):
+            """Send charts to the renderer at print size; returns its pending job."""
+            return renderer.submit({stem: _charts.for_print(ch, 75)
+                                    for stem, ch in chart_objs.items()})
+
         # the sweep's charts need nothing more: drawn while the rest is computed (sent
         # before the model file's child starts, so that the drawing starts first)
-        drawing = [renderer.submit({stem: _charts.for_print(ch, 75) for stem, ch in make_charts(
-            analysis, None, None, None, cells, stems=SWEEP_CHARTS).items()})]
+        drawing = [draw(make_charts(analysis, None, None, None, cells, stems=SWEEP_CHARTS))]
         model_writer = _ModelFileWriter(model, work / "model.skops", model_file_in_background)
         ahead = None
         if checks is None:
@@ -1835,8 +1840,8 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             lc = lc_all.restrict(orders=lc_orders)
         if progress:
             progress(0.66, "Intervals and the larger-table outlook")
-        drawing.append(renderer.submit({stem: _charts.for_print(ch, 75) for stem, ch in make_charts(
-            analysis, lc.table, None, None, cells, lc.note, stems=("learning_curve",)).items()}))
+        drawing.append(draw(make_charts(analysis, lc.table, None, None, cells, lc.note,
+                                        stems=("learning_curve",))))
         if sure is not None and hasattr(sure, "result"):  # the page's background job
             try:
                 sure = sure.result()
@@ -1854,8 +1859,7 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
         chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note, band=band,
                                  stems=[s for s in CHART_FILES
                                         if s not in SWEEP_CHARTS and s != "learning_curve"])
-        drawing.append(renderer.submit({stem: _charts.for_print(ch, 75)
-                                        for stem, ch in chart_objs.items()}))
+        drawing.append(draw(chart_objs))
         if checks is None:
             if progress:
                 progress(0.72, "Checks")

@@ -65,6 +65,14 @@ def _full_screenshot(page, path: Path) -> None:
     page.set_viewport_size({"width": 1400, "height": 1000})
 
 
+def _wait_for_chart(page, *texts: str, timeout: float = 60_000) -> None:
+    """Wait until a drawn chart holds every one of ``texts`` (title, axis labels...)."""
+    page.wait_for_function(
+        "texts => [...document.querySelectorAll('[data-testid=stVegaLiteChart] svg')]"
+        ".some(s => texts.every(t => s.textContent.includes(t)))", arg=list(texts),
+        timeout=timeout)
+
+
 @pytest.fixture(scope="module")
 def server(repo_root, tmp_path_factory):
     reason = _skip_reason()
@@ -120,10 +128,7 @@ def test_upload_charts_and_png_download(server, upload_csv, output_dir, tmp_path
             page.get_by_text("bench_strain.csv · 150 of 150 rows used").wait_for(timeout=90_000)
             chart = page.locator("[data-testid=stVegaLiteChart]").first
             chart.wait_for(timeout=60_000)
-            page.wait_for_function(
-                "() => [...document.querySelectorAll('[data-testid=stVegaLiteChart] svg')]"
-                ".some(s => s.textContent.includes('Validation curve')"
-                " && s.textContent.includes('of load, in kg'))", timeout=60_000)
+            _wait_for_chart(page, "Validation curve", "of load, in kg")
             heading = page.get_by_text("Recommended:").first.inner_text()
             assert "order" in heading
 
@@ -138,10 +143,7 @@ def test_upload_charts_and_png_download(server, upload_csv, output_dir, tmp_path
 
             _full_screenshot(page, output_dir / "dashboard_upload.png")
             page.get_by_role("tab", name="Side by side").click()
-            page.wait_for_function(
-                "() => [...document.querySelectorAll('[data-testid=stVegaLiteChart] svg')]"
-                ".some(s => s.textContent.includes('Fitted curves over the data'))",
-                timeout=60_000)
+            _wait_for_chart(page, "Fitted curves over the data")
             _full_screenshot(page, output_dir / "dashboard_side_by_side.png")
             assert not page.locator("[data-testid=stException]").count()
         finally:
@@ -378,10 +380,7 @@ def _walk_reactor(w: _Walk, tmp_path: Path, output_dir: Path) -> None:
     assert "input lags" in heading and "target lags" in heading
     page.get_by_text("rows at the start left out for lags").first.wait_for(timeout=30_000)
     page.get_by_role("tab", name="Order × penalty heat map").click()
-    page.wait_for_function(
-        "() => [...document.querySelectorAll('[data-testid=stVegaLiteChart] svg')]"
-        ".some(s => s.textContent.includes('Validation error over input lag depth'))",
-        timeout=60_000)
+    _wait_for_chart(page, "Validation error over input lag depth")
     _full_screenshot(page, output_dir / "dashboard_drift_lags.png")
     w.pick("Compare the first k inputs", "Yes, in the order the inputs are listed")
     w.scheme_named_alike("blocked", tmp_path, "reactor")
@@ -395,10 +394,7 @@ def _walk_spectra(w: _Walk, tmp_path: Path, output_dir: Path) -> None:
     page.get_by_text("wide_spectra.csv ·").first.wait_for(timeout=60_000)
     w.nothing_from(CALIBRATION_NAMES + DRIFT_NAMES)
     page.get_by_role("tab", name="Coefficient paths").click()
-    page.wait_for_function(
-        "() => [...document.querySelectorAll('[data-testid=stVegaLiteChart] svg')]"
-        ".some(s => s.textContent.includes('Coefficient paths: lasso'))",
-        timeout=120_000)
+    _wait_for_chart(page, "Coefficient paths: lasso", timeout=120_000)
     kept = page.locator("p", has_text="Inputs kept by the recommended cell").first
     kept.wait_for(timeout=60_000)
     n_kept, n_all = [int(v) for v in
