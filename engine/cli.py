@@ -394,10 +394,13 @@ def _load(path: str, *, decimal: str | None, sheet, name: str | None = None, col
     if p.is_dir():
         raise InputProblem(f"'{path}' is a folder; give the data file inside it.",
                            code="not_found")
-    if isinstance(sheet, str) and sheet.isdigit():
-        sheet = int(sheet)
-    return load_table(str(p), name=name, decimal=decimal, sheet=sheet, max_bytes=NO_SIZE_LIMIT,
-                      columns=columns)
+    return load_table(str(p), name=name, decimal=decimal, sheet=_sheet(sheet),
+                      max_bytes=NO_SIZE_LIMIT, columns=columns)
+
+
+def _sheet(sheet):
+    """``--sheet`` as the loader takes it: a number given as text is the sheet's position."""
+    return int(sheet) if isinstance(sheet, str) and sheet.isdigit() else sheet
 
 
 def _say_drops(data, stream=None) -> None:
@@ -440,7 +443,7 @@ def _load_for_request(args: argparse.Namespace, decimal, penalties, more: tuple,
     from .loading import SAMPLE_BYTES, peek_table
 
     roles = (args.order_column, args.group_column, args.split_column) + more
-    sheet = int(args.sheet) if isinstance(args.sheet, str) and args.sheet.isdigit() else args.sheet
+    sheet = _sheet(args.sheet)
     path = Path(args.data)
     head = None
     if path.is_file():
