@@ -960,6 +960,42 @@ def _small_pages() -> None:
     _set_madvise_hugepage(False)
 
 
+#: glibc ``mallopt`` parameters and the values the command line sets (see `_kept_memory`)
+_M_TRIM_THRESHOLD, _M_TOP_PAD, _M_MMAP_THRESHOLD = -1, -2, -3
+_KEPT_MEMORY = {_M_MMAP_THRESHOLD: 32 << 20,     # glibc's largest: arrays below it reuse freed memory
+                _M_TRIM_THRESHOLD: (1 << 31) - 1,    # freed memory stays with the process
+                _M_TOP_PAD: 64 << 20}            # the heap grows in steps of 64 MB
+
+
+def _kept_memory() -> bool:
+    """Keep freed memory in the process for the next array, unless ``MALLOC_*`` says otherwise.
+
+    With glibc's defaults, arrays of a few MB are given back to the system when
+    freed and the next one of the same size is handed fresh pages, each zeroed
+    by the kernel on first touch. The passes over a large table allocate and
+    free such blocks thousands of times; on a 1,000,000-row run here this
+    setting cut the page faults from about 600,000 to 360,000 and the system
+    time by 1-3 s. A short-lived command gives the memory back when it exits;
+    the page (app.py), a long-lived server, keeps glibc's defaults. Other C
+    libraries (musl, macOS) are left alone.
+
+    Returns
+    -------
+    bool
+        True when glibc took every setting.
+    """
+    if any(k.startswith("MALLOC_") for k in os.environ) or not sys.platform.startswith("linux"):
+        return False
+    import ctypes
+
+    try:
+        mallopt = ctypes.CDLL("libc.so.6").mallopt
+    except (OSError, AttributeError):  # pragma: no cover - not glibc
+        return False
+    mallopt.argtypes, mallopt.restype = [ctypes.c_int, ctypes.c_int], ctypes.c_int
+    return all([mallopt(param, value) == 1 for param, value in _KEPT_MEMORY.items()])
+
+
 def entry() -> NoReturn:
     """The ``fitladder`` command and ``python -m engine``: `main`, then a quick exit.
 
@@ -968,6 +1004,7 @@ def entry() -> NoReturn:
     about 0.2-0.4 s with the scientific libraries loaded, is skipped.
     """
     _small_pages()
+    _kept_memory()
     status = main()
     import atexit
 

@@ -327,3 +327,36 @@ def test_the_command_line_module_imports_nothing_heavy():
     proc = _run([PY, "-c", script], cwd=repo, env={"PYTHONPATH": str(repo)})
     assert proc.returncode == 0, proc.stderr
     assert json.loads(proc.stdout) == [[], [], True, True]
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="glibc's mallopt")
+def test_the_command_line_keeps_freed_memory_unless_malloc_is_set():
+    """The command line asks glibc to keep freed blocks of up to 32 MB for the next array
+    (``cli._kept_memory``); a ``MALLOC_*`` setting in the environment wins over it. After it,
+    a 16 MB array freed and made again is served from memory already touched, so making it
+    the second time costs almost no page faults; with glibc's defaults it costs one per page
+    (both on ordinary 4 KB pages, as the command line uses them)."""
+    script = ("import resource, sys, numpy as np, engine.cli as c\n"
+              "c._small_pages()\n"
+              "ok = c._kept_memory()\n"
+              "def faults():\n"
+              "    return resource.getrusage(resource.RUSAGE_SELF).ru_minflt\n"
+              "a = np.ones(2 << 20); del a\n"
+              "f0 = faults(); b = np.ones(2 << 20); f1 = faults()\n"
+              "print(ok, f1 - f0)\n")
+    repo = Path(__file__).resolve().parents[1]
+    env = {k: v for k, v in os.environ.items() if not k.startswith("MALLOC_")}
+    env["PYTHONPATH"] = str(repo)
+    kept = subprocess.run([PY, "-c", script], cwd=repo, env=env, capture_output=True, text=True,
+                          timeout=120)
+    assert kept.returncode == 0, kept.stderr
+    ok, again = kept.stdout.split()
+    assert ok == "True"
+    assert int(again) < 500          # 16 MB is 4,096 pages of 4 KB
+    env["MALLOC_ARENA_MAX"] = "4"
+    told = subprocess.run([PY, "-c", script], cwd=repo, env=env, capture_output=True, text=True,
+                          timeout=120)
+    assert told.returncode == 0, told.stderr
+    ok, again = told.stdout.split()
+    assert ok == "False"
+    assert int(again) > 2000         # glibc's defaults: fresh pages for the second array
