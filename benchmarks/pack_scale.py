@@ -38,6 +38,7 @@ STEPS = [
     ("Reading", "read"), ("Preparing", "prepare"), ("Summarising", "sweep"),
     ("Fitting order", "sweep"), ("Leave-one-out", "sweep"),
     ("Fitting the compared", "side-by-side fits"), ("Learning curve", "learning curve"),
+    ("Intervals", "intervals"), ("Outlook", "larger-table outlook"),
     ("Checks", "checks"), ("Check", "checks"), ("Drawing", "charts (built; drawn in background)"),
     ("Drawn", "charts"), ("Looking", "checks"), ("Comparing", "checks"), ("Probing", "checks"),
     ("Computing", "checks"), ("Counting", "checks"),

@@ -1235,19 +1235,25 @@ def sureness(analysis: Analysis, data: DataLike, spec: SweepSpec,
     (`engine.extrapolation.more_rows`) of the recommended cell; a part that cannot be
     computed is None, with the reason in the returned notes. ``learning``: a learning
     curve of every order already made, reused by the outlook."""
-    from .extrapolation import more_rows
     from .intervals import how_sure
     notes: list[str] = []
-    sure = outlook = None
+    sure = None
     try:
         sure = how_sure(analysis, data, spec)
     except InputProblem as exc:
         notes.append(f"Intervals not computed: {exc.message}")
+    outlook, more_notes = _outlook(analysis, data, spec, learning)
+    return sure, outlook, notes + more_notes
+
+
+def _outlook(analysis: Analysis, data: DataLike, spec: SweepSpec,
+             learning: Any | None = None) -> tuple[Any, list[str]]:
+    """The larger-table outlook of `sureness`, or None and the reason."""
+    from .extrapolation import more_rows
     try:
-        outlook = more_rows(analysis, data, spec, learning=learning)
+        return more_rows(analysis, data, spec, learning=learning), []
     except InputProblem as exc:
-        notes.append(f"Larger-table outlook not computed: {exc.message}")
-    return sure, outlook, notes
+        return None, [f"Larger-table outlook not computed: {exc.message}"]
 
 
 def sureness_dict(sure: Any, outlook: Any, notes: list[str]) -> dict:
@@ -1827,8 +1833,36 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             from .checks import checks_ahead
             from .fingerprint import in_background
             ahead = in_background(checks_ahead, data, analysis, model, name="fitladder-checks")
+        if sure is not None and hasattr(sure, "result"):  # the page's background job
+            try:
+                sure = sure.result()
+            except Exception:  # noqa: BLE001 - computed here instead
+                sure = None
+        sure_notes: list[str] = []
+        here = sure is None     # the page passes all three, computed in its background job
+        if here:
+            # the intervals first: the side-by-side chart, the costliest to draw, is then
+            # drawn while the learning curve, the outlook and the checks are computed
+            if progress:
+                progress(0.62, "Intervals")
+            from .intervals import how_sure
+            try:
+                sure = how_sure(analysis, data, analysis.spec)
+            except InputProblem as exc:
+                sure_notes.append(f"Intervals not computed: {exc.message}")
+            sure = (sure, None, sure_notes)
+        sure, outlook, sure_notes = sure
+        band = None
+        if sure is not None and (sure.order, sure.penalty) in {_cell_key(q, a) for q, a in cells}:
+            from .intervals import band_table
+            band = band_table(sure, data)
         if progress:
-            progress(0.62, "Learning curve")
+            progress(0.66, "Drawing charts")
+        drawing.append(draw(make_charts(analysis, None, models, data, cells, band=band,
+                                        stems=[s for s in CHART_FILES if s not in SWEEP_CHARTS
+                                               and s != "learning_curve"])))
+        if progress:
+            progress(0.68, "Learning curve")
         lc_orders = sorted({q for q, _ in learning_cells(cells)})
         lc = learning
         lc_all = None
@@ -1838,28 +1872,13 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
                                     orders=sorted(set(analysis.spec.order_list()) | set(lc_orders)),
                                     pieces=analysis.learning_pieces)
             lc = lc_all.restrict(orders=lc_orders)
-        if progress:
-            progress(0.66, "Intervals and the larger-table outlook")
         drawing.append(draw(make_charts(analysis, lc.table, None, None, cells, lc.note,
                                         stems=("learning_curve",))))
-        if sure is not None and hasattr(sure, "result"):  # the page's background job
-            try:
-                sure = sure.result()
-            except Exception:  # noqa: BLE001 - computed here instead
-                sure = None
-        sure, outlook, sure_notes = sure if sure is not None else sureness(analysis, data,
-                                                                            analysis.spec, lc_all)
-        band = None
-        if sure is not None and (sure.order, sure.penalty) in {_cell_key(q, a) for q, a in cells}:
-            from .intervals import band_table
-            band = band_table(sure, data)
-        # the charts need nothing from the checks: draw them in the background meanwhile
-        if progress:
-            progress(0.70, "Drawing charts")
-        chart_objs = make_charts(analysis, lc.table, models, data, cells, lc.note, band=band,
-                                 stems=[s for s in CHART_FILES
-                                        if s not in SWEEP_CHARTS and s != "learning_curve"])
-        drawing.append(draw(chart_objs))
+        if here:
+            if progress:
+                progress(0.70, "Outlook for a larger table")
+            outlook, more_notes = _outlook(analysis, data, analysis.spec, lc_all)
+            sure_notes += more_notes
         if checks is None:
             if progress:
                 progress(0.72, "Checks")
