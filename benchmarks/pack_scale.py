@@ -35,7 +35,8 @@ READS = 3
 
 #: progress messages (prefix) -> step name
 STEPS = [
-    ("Reading", "read"), ("Preparing", "prepare"), ("Summarising", "sweep"),
+    ("Reading", "read"), ("Preparing", "prepare"), ("fitladder: request", "design and row pass"),
+    ("Summarising", "sweep"),
     ("Fitting order", "sweep"), ("Leave-one-out", "sweep"),
     ("Fitting the compared", "side-by-side fits"), ("Learning curve", "learning curve"),
     ("Intervals", "intervals"), ("Outlook", "larger-table outlook"),
