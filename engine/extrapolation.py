@@ -20,7 +20,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy.optimize import minimize_scalar
 
 B_RANGE = (0.05, 3.0)
 FACTORS = (2.0, 5.0)
@@ -108,6 +107,8 @@ def fit_power_law(n, error, se=None) -> PowerLaw | None:
     i = int(np.argmin(rss))
     lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
     if hi > lo:
+        from scipy.optimize import minimize_scalar   # imported when a curve is fitted
+
         res = minimize_scalar(lambda b: float(_solve_ac(n, e_s, w, b)[2][0]), bounds=(lo, hi),
                               method="bounded", options={"xatol": 1e-6})
         b = float(res.x) if res.fun <= rss[i] else float(grid[i])

@@ -41,7 +41,7 @@ from typing import Callable
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy.special import ndtri, stdtrit
 
 from .design import PolynomialBasis
 from .errors import InputProblem
@@ -365,6 +365,24 @@ class SetFits:
 # ---------------------------------------------------------------------------
 # interval pieces
 # ---------------------------------------------------------------------------
+def _t_quantile(q: float, df: float) -> float:
+    """Student's t quantile: ``scipy.stats.t.ppf(q, df)`` for ``0 < q < 1``, ``df > 0``.
+
+    The function that ppf calls (``scipy.special.stdtrit``), without importing
+    ``scipy.stats``; ``+ 0.0`` as ppf adds its location 0 (a zero is +0.0).
+    """
+    return stdtrit(df, q) + 0.0
+
+
+def _normal_quantile(q: float) -> float:
+    """Standard normal quantile: ``scipy.stats.norm.ppf(q)`` for ``0 < q < 1``.
+
+    The function that ppf calls (``scipy.special.ndtri``), without importing
+    ``scipy.stats``; ``+ 0.0`` as ppf adds its location 0 (a zero is +0.0).
+    """
+    return ndtri(q) + 0.0
+
+
 def analytic_bounds(fits: SetFits, s: int, F: np.ndarray,
                     level: float = LEVEL) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Analytic prediction interval of fit ``s`` at rows ``F``: ``(prediction, low, high)``.
@@ -380,7 +398,7 @@ def analytic_bounds(fits: SetFits, s: int, F: np.ndarray,
         inf = np.full_like(pred, np.inf)
         return pred, -inf, inf
     sd = math.sqrt(max(fits.sse[s], 0.0) / df)
-    half = stats.t.ppf(0.5 + level / 2.0, df) * sd * np.sqrt(1.0 + fits.variance_factor(s, F))
+    half = _t_quantile(0.5 + level / 2.0, df) * sd * np.sqrt(1.0 + fits.variance_factor(s, F))
     return pred, pred - half, pred + half
 
 
@@ -866,7 +884,7 @@ def _error_job(data, spec: SweepSpec, order: int, penalty: float, level: float,
     y = design.y
     n = y.size
     kind = spec.scheme.kind
-    z = stats.norm.ppf(0.5 + level / 2.0)
+    z = _normal_quantile(0.5 + level / 2.0)
     if kind in _ONE_SPLIT:
         from .analysis import plan_for
         plan = plan_for(data, spec.scheme, spec.seed)

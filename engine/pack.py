@@ -227,7 +227,7 @@ def sklearn_pipeline(model: FinalModel):
     steps: list[tuple[str, Any]] = ([("encode", encode)] if encode is not None else []) + [
         ("scale", scaler)]
     exps = np.asarray(model.exponents, dtype=np.int64).reshape(-1, d)
-    interactions = bool(np.any((exps > 0).sum(axis=1) > 1)) if exps.size else False
+    interactions = _has_products(model)
     if q == 0:
         powers = np.zeros((d, d), dtype=np.int64)  # the scaled inputs, with weight 0
         n_out = d
@@ -262,6 +262,12 @@ def sklearn_pipeline(model: FinalModel):
     reg.n_features_in_ = n_out
     steps.append(("fit", reg))
     return Pipeline(steps)
+
+
+def _has_products(model: FinalModel) -> bool:
+    """Whether a term of ``model`` multiplies two inputs (one `PolynomialFeatures` then)."""
+    exps = np.asarray(model.exponents, dtype=np.int64).reshape(-1, len(model.input_names))
+    return bool(np.any((exps > 0).sum(axis=1) > 1)) if exps.size else False
 
 
 def _text_columns(text: dict) -> dict[str, str]:
@@ -326,24 +332,32 @@ def text_encoder(model: FinalModel):
     return encode
 
 
-def _type_name(obj: Any) -> str:
-    return f"{type(obj).__module__}.{type(obj).__qualname__}"
-
-
 def pipeline_types(model: FinalModel) -> list[str]:
     """The scikit-learn types the saved pipeline of ``model`` holds, in step order.
 
     The "Use this model" snippet passes them to ``skops.io.load(trusted=...)`` as an
     explicit allow-list (each is one of `EXPECTED_MODEL_TYPES`, which
-    `load_pipeline` checks).
+    `load_pipeline` checks). Read from the model's fields as `sklearn_pipeline`
+    and `text_encoder` read them, without building the pipeline (or importing
+    scikit-learn): each step's type, then the types of its column parts, each
+    name once.
     """
-    pipe = sklearn_pipeline(model)
-    out = [_type_name(pipe)]
-    for _, step in pipe.steps:
-        for obj in [step] + [t for _, t, _ in getattr(step, "transformers", []) or []]:
-            if not isinstance(obj, str) and _type_name(obj) not in out:
-                out.append(_type_name(obj))
-    return out
+    columns = "sklearn.compose._column_transformer.ColumnTransformer"
+    scaler = "sklearn.preprocessing._data.StandardScaler"
+    one_hot = "sklearn.preprocessing._encoders.OneHotEncoder"
+    powers = "sklearn.preprocessing._polynomial.PolynomialFeatures"
+    out = ["sklearn.pipeline.Pipeline"]
+    text = dict(getattr(model, "text_inputs", None) or {})
+    if text:        # encode: a part per run of number inputs or per text input
+        owner = _text_columns(text)
+        out += [columns] + [one_hot if str(c) in owner else scaler for c in model.input_names]
+    out.append(scaler)                                                          # scale
+    if int(model.order) > 0:                                                    # terms
+        if not (_has_products(model) or len(model.input_names) == 1):
+            out.append(columns)
+        out.append(powers)
+    out.append("sklearn.linear_model._base.LinearRegression")                   # fit
+    return list(dict.fromkeys(out))
 
 
 def warm() -> None:
@@ -404,7 +418,8 @@ class _ModelFileWriter:
 
     Importing scikit-learn and skops costs more than everything else in a
     small pack; a child process forked from a single-threaded parent does it
-    on another core. The parent checks the child's exit status and writes
+    on another core, and the parent does not import them for it (a shuffled
+    k-fold run's main process never imports scikit-learn). The parent checks the child's exit status and writes
     the file itself if the child failed. Without fork (or with other threads
     running, where forking is unsafe) the file is written in this process.
     """
@@ -417,13 +432,10 @@ class _ModelFileWriter:
         if background and threading.active_count() == 1 and "fork" in mp.get_all_start_methods():
             import gc
 
-            # scikit-learn's core, which this process needs too (outer splits of the
-            # intervals), is imported once here rather than again in the child. The
-            # objects made so far are frozen out of the garbage collector's way
-            # meanwhile: the import's collections do not traverse them again, and
-            # the child's do not copy their pages (Python's advice before a fork)
-            gc.freeze()
-            import sklearn.base  # noqa: F401
+            # scikit-learn is imported by the child alone (this process does not need
+            # it). The objects made so far are frozen out of the garbage collector's
+            # way: the child's collections (its imports make many) do not traverse
+            # them or copy their pages (Python's advice before a fork)
             gc.freeze()
             self.proc = mp.get_context("fork").Process(target=_save_in_child,
                                                        args=(model, self.path), daemon=True)
@@ -849,11 +861,12 @@ def usage(model: FinalModel, file: str = "model.skops") -> dict:
 
 
 def _versions() -> dict:
-    import sklearn
+    from importlib.metadata import version   # scikit-learn's version without importing it
 
     from . import __version__
     return {"fitladder": __version__, "python": platform.python_version(),
-            "numpy": np.__version__, "pandas": pd.__version__, "scikit-learn": sklearn.__version__}
+            "numpy": np.__version__, "pandas": pd.__version__,
+            "scikit-learn": version("scikit-learn")}
 
 
 def _recorded_load_options(load_options: dict | None) -> dict:

@@ -56,6 +56,30 @@ def _split_words(labels) -> set[str]:
     return {str(v).strip().lower() for v in np.asarray(labels).tolist()}
 
 
+def _kfold_splits(n: int, k: int, seed: int | None = None
+                  ) -> list[tuple[np.ndarray, np.ndarray]]:
+    """(train rows, test rows) of each of ``k`` folds of ``n`` rows, both sorted.
+
+    The splits of scikit-learn's ``KFold(k, shuffle=True, random_state=seed)``
+    (``KFold(k)`` with ``seed=None``): the rows ``0..n-1``, shuffled by
+    ``RandomState(seed)`` when a seed is given, cut in order into ``k`` runs
+    of ``n // k`` rows, the first ``n % k`` runs one row longer.
+    """
+    rows = np.arange(n)
+    if seed is not None:
+        np.random.RandomState(seed).shuffle(rows)
+    sizes = np.full(k, n // k, dtype=int)
+    sizes[: n % k] += 1
+    stops = np.cumsum(sizes)
+    out = []
+    for start, stop in zip(stops - sizes, stops):
+        test = np.sort(rows[start:stop])
+        train = np.ones(n, dtype=bool)
+        train[test] = False
+        out.append((np.flatnonzero(train), test))
+    return out
+
+
 def outer_splits(data: DataLike, spec: SweepSpec, outer_folds: int
                  ) -> tuple[list[tuple[np.ndarray, np.ndarray]], str]:
     """Outer splits for nested cross-validation, following the spec's scheme family.
@@ -69,8 +93,6 @@ def outer_splits(data: DataLike, spec: SweepSpec, outer_folds: int
     -------
     (list of (train rows, test rows), one plain sentence describing them)
     """
-    from sklearn.model_selection import GroupKFold, KFold   # imported when first needed
-
     n = int(np.asarray(data.y).size)
     k = int(outer_folds)
     kind = spec.scheme.kind
@@ -82,8 +104,7 @@ def outer_splits(data: DataLike, spec: SweepSpec, outer_folds: int
         if n < 2 * k:
             raise InputProblem(f"{k} outer folds need at least {2 * k} rows; the data have {n}. "
                                "Use fewer outer folds.", code="too_few_rows")
-        sp = list(KFold(n_splits=k, shuffle=True, random_state=spec.seed).split(idx))
-        return ([(np.sort(a), np.sort(b)) for a, b in sp],
+        return (_kfold_splits(n, k, spec.seed),
                 f"Shuffled {k}-fold outer split (seed {spec.seed}).")
     if kind in _ORDERED:
         if n < 2 * k:
@@ -91,7 +112,7 @@ def outer_splits(data: DataLike, spec: SweepSpec, outer_folds: int
                                "Use fewer outer folds.", code="too_few_rows")
         g = int(spec.scheme.gap) if kind == "blocked" else 0
         out = []
-        for _, te in KFold(n_splits=k, shuffle=False).split(idx):
+        for _, te in _kfold_splits(n, k):
             keep = (idx < te[0] - g) | (idx > te[-1] + g)
             out.append((idx[keep], te))
         gap_txt = f", {g} rows dropped from training on each side" if g else ""
@@ -107,6 +128,8 @@ def outer_splits(data: DataLike, spec: SweepSpec, outer_folds: int
             raise InputProblem("The group column has a single group; nested cross-validation "
                                "needs at least two.", code="too_few_groups",
                                column=spec.scheme.group_column)
+        from sklearn.model_selection import GroupKFold   # imported only when groups are used
+
         sp = list(GroupKFold(n_splits=kk).split(idx, groups=codes))
         return ([(np.sort(a), np.sort(b)) for a, b in sp],
                 f"Grouped {kk}-fold outer split: each group is held out whole.")
@@ -127,6 +150,8 @@ def outer_splits(data: DataLike, spec: SweepSpec, outer_folds: int
                            f"fold labels (got {nu}).", code="bad_scheme",
                            column=spec.scheme.split_column)
     kk = min(k, nu)
+    from sklearn.model_selection import GroupKFold   # imported only when labels are used
+
     sp = list(GroupKFold(n_splits=kk).split(idx, groups=codes))
     return ([(np.sort(a), np.sort(b)) for a, b in sp],
             f"{kk} outer folds made of whole fold labels of the split column.")

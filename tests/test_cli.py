@@ -360,3 +360,39 @@ def test_the_command_line_keeps_freed_memory_unless_malloc_is_set():
     ok, again = told.stdout.split()
     assert ok == "False"
     assert int(again) > 2000         # glibc's defaults: fresh pages for the second array
+
+
+def test_a_run_leaves_scikit_learn_to_the_model_file_child(demo_dir, tmp_path):
+    """A shuffled k-fold ``fitladder run`` never imports scikit-learn (nor skops) in its
+    main process: the forked child writes ``model.skops``, which still loads and predicts
+    as the pack's own coefficient table."""
+    import pandas as pd
+
+    from engine.pack import load_pipeline
+
+    out = tmp_path / "pack"
+    data = demo_dir / "calibration_curve.csv"
+    argv = ["fitladder", "run", str(data), "--target", "bath_temp_C", *FAST, "--out", str(out)]
+    script = ("import atexit, json, os, sys\n"
+              "main_pid = os.getpid()\n"
+              "def said():\n"
+              "    if os.getpid() == main_pid:\n"
+              "        print('main imported ' + json.dumps(sorted(\n"
+              "            m for m in ('sklearn', 'skops') if m in sys.modules)))\n"
+              "atexit.register(said)\n"
+              f"sys.argv = {argv!r}\n"
+              "from engine.cli import entry\n"
+              "entry()\n")
+    repo = Path(__file__).resolve().parents[1]
+    proc = _run([PY, "-c", script], cwd=repo, env={"PYTHONPATH": str(repo)})
+    assert proc.returncode == 0, proc.stderr
+    said = [line for line in proc.stdout.splitlines() if line.startswith("main imported ")]
+    assert said == ["main imported []"], proc.stdout
+    pipe = load_pipeline(out / "model.skops")
+    coef = pd.read_csv(out / "model_coefficients.csv")
+    x = pd.read_csv(data)["probe_mV"].to_numpy(float)
+    powers = [0 if t == "intercept" else int(t.split("^")[1]) if "^" in t else 1
+              for t in coef["term"]]
+    by_hand = sum(c * x ** p for c, p in zip(coef["coefficient"], powers))
+    np.testing.assert_allclose(pipe.predict(pd.DataFrame({"probe_mV": x})), by_hand,
+                               rtol=1e-9)

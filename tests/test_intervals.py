@@ -49,6 +49,25 @@ def test_analytic_interval_matches_statsmodels_ols_prediction_interval():
     np.testing.assert_allclose(got["analytic_high"], frame["obs_ci_upper"], rtol=1e-8)
 
 
+def test_quantiles_are_bit_for_bit_scipy_stats_ppf():
+    # reference: scipy.stats.t.ppf and scipy.stats.norm.ppf, the same bits (including +0.0
+    # at the median, inf at q = 1 and nan above 1)
+    from engine.intervals import _normal_quantile, _t_quantile
+
+    levels = [0.0, 1e-12, 0.05, 0.5, 0.68, 0.8, 0.9, 0.95, 0.975, 0.99, 0.999, 1 - 1e-12, 1.0,
+              1.5, *np.linspace(0.0, 1.0, 41)]
+    dfs = [1e-3, 0.5, 1.0, 1.5, 2.0, 3.0, 7.25, 10.0, 29.0, 30.0, 99.5, 1e3, 1e5, 1e7,
+           1e12, np.inf]
+    for level in levels:
+        q = 0.5 + level / 2.0
+        z, ref = _normal_quantile(q), stats.norm.ppf(q)
+        assert type(z) is type(ref) and (np.array(z).tobytes() == np.array(ref).tobytes()), level
+        for df in dfs:
+            t, ref = _t_quantile(q, df), stats.t.ppf(q, df)
+            assert type(t) is type(ref), (level, df)
+            assert np.array(t).tobytes() == np.array(ref).tobytes(), (level, df, t, ref)
+
+
 def test_ridge_interval_centre_and_variance_by_hand():
     # Reference: scikit-learn PolynomialFeatures -> StandardScaler -> Ridge for the centre;
     # the variance sigma^2 (1/n + z'(Z'Z + a I)^-1 Z'Z (Z'Z + a I)^-1 z) of the ridge fitted

@@ -348,6 +348,52 @@ def test_snippet_trusts_an_explicit_list_of_the_pipeline_types_and_runs(text_pac
         _run_snippet(usage(text_pack[0].model)["python"], bad, {})
 
 
+def _text_models(text_pack):
+    """Models with a text input before a number input, alone, and in products."""
+    from engine import fit_cell
+
+    _, _, frame = text_pack
+    out = {}
+    for label, inputs, inter, order in (("text first", ["site", "temp_C"], False, 2),
+                                        ("text alone", ["site"], False, 1),
+                                        ("text in products", ["temp_C", "site"], True, 2),
+                                        ("text, intercept only", ["site", "temp_C"], False, 0)):
+        data = prepare(frame, "yield_pct", inputs)
+        spec = SweepSpec("yield_pct", tuple(data.inputs), interactions=inter)
+        out[label] = fit_cell(data, spec, order, 0.0)
+    return out
+
+
+def test_pipeline_types_name_the_types_of_the_built_pipeline(text_pack):
+    # reference: the types of the scikit-learn pipeline itself (sklearn_pipeline), each
+    # step then its ColumnTransformer parts, each name once
+    from engine.pack import pipeline_types, sklearn_pipeline
+
+    def name(obj):
+        return f"{type(obj).__module__}.{type(obj).__qualname__}"
+
+    models = {**_models_of_every_shape(text_pack), **_text_models(text_pack)}
+    assert models["text first"].input_names[0].startswith("site[")
+    assert models["text alone"].input_names == ("site[north]", "site[south]")
+    for label, model in models.items():
+        pipe = sklearn_pipeline(model)
+        built = [name(pipe)]
+        for _, step in pipe.steps:
+            for obj in [step] + [t for _, t, _ in getattr(step, "transformers", []) or []]:
+                if not isinstance(obj, str) and name(obj) not in built:
+                    built.append(name(obj))
+        assert pipeline_types(model) == built, label
+
+
+def test_recorded_scikit_learn_version_is_the_imported_one():
+    # reference: scikit-learn's own __version__
+    import sklearn
+
+    from engine.pack import _versions
+
+    assert _versions()["scikit-learn"] == sklearn.__version__
+
+
 # ---------------------------------------------------------------------------
 # the model file written by the command line's child process
 # ---------------------------------------------------------------------------

@@ -93,6 +93,45 @@ def test_outer_splits_follow_the_scheme_family(table_1000):
         assert not set(groups[tr]) & set(groups[te])
 
 
+@pytest.mark.parametrize("shuffle", [True, False])
+def test_kfold_splits_equal_scikit_learns_kfold(shuffle):
+    # reference: scikit-learn's KFold(k, shuffle, random_state=seed), folds in its order,
+    # with its train and test rows sorted (as outer_splits returns them)
+    from sklearn.model_selection import KFold
+
+    from engine.trust import _kfold_splits
+
+    for n in (4, 5, 9, 10, 11, 37, 100, 101, 1003):
+        for k in (2, 3, 4, 5, 7, 10):
+            if k > n:
+                continue
+            for seed in ((0, 1, 7, 42, 12345, 2**31 - 1) if shuffle else (None,)):
+                ref = KFold(k, shuffle=shuffle, random_state=seed).split(np.arange(n))
+                got = _kfold_splits(n, k, seed)
+                assert len(got) == k
+                for (tr, te), (rtr, rte) in zip(got, ref):
+                    np.testing.assert_array_equal(tr, np.sort(rtr))
+                    np.testing.assert_array_equal(te, np.sort(rte))
+                    assert tr.dtype == rtr.dtype and te.dtype == rte.dtype
+
+
+def test_outer_splits_of_shuffled_and_blocked_schemes_equal_scikit_learns(table_1000):
+    # reference: scikit-learn's KFold (shuffled with the spec's seed; unshuffled for blocks)
+    from sklearn.model_selection import KFold
+
+    for seed in (0, 3):
+        spec = replace(_spec("kfold"), seed=seed)
+        sp, _ = outer_splits(table_1000, spec, 5)
+        ref = list(KFold(5, shuffle=True, random_state=seed).split(np.arange(1000)))
+        for (tr, te), (rtr, rte) in zip(sp, ref, strict=True):
+            np.testing.assert_array_equal(tr, np.sort(rtr))
+            np.testing.assert_array_equal(te, np.sort(rte))
+    sp, _ = outer_splits(table_1000, _spec("blocked", gap=7), 3)
+    ref = list(KFold(3).split(np.arange(1000)))
+    for (_, te), (_, rte) in zip(sp, ref, strict=True):
+        np.testing.assert_array_equal(te, rte)
+
+
 def test_nested_cv_grouped_and_split_column(table_1000):
     groups = np.repeat(np.arange(20), 50)
     gdata = replace(table_1000, groups=groups)
