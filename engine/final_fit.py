@@ -112,13 +112,15 @@ class FinalModel:
         # inputs needing each power beyond the first (all of them: one call per power)
         need = [slice(None) if np.all(levels >= k) else np.flatnonzero(levels >= k)
                 for k in range(2, top + 1)]
-        rows = min(n, _PREDICT_BLOCK, max(_PREDICT_BLOCK // 8, _PREDICT_CELLS // (top * d + nt)))
+        rows = min(n, _PREDICT_BLOCK, max(_PREDICT_BLOCK // 8,
+                                          _PREDICT_CELLS // (top * d + (0 if run else nt))))
         P = np.empty((top, d, rows))     # u_j^k for the rows of one block, reused
-        T = np.empty((nt, rows))         # the terms times their coefficients, reused
+        # the terms times their coefficients, reused (with a run: rows of P)
+        T = None if run else np.empty((nt, rows))
         for i in range(0, n, rows):
             m = min(rows, n - i)
             if m < rows:                 # the last, shorter block
-                P, T = np.empty((top, d, m)), np.empty((nt, m))
+                P, T = np.empty((top, d, m)), None if run else np.empty((nt, m))
             # the scaled inputs, one contiguous row per input (transposed first: the
             # arithmetic then runs on contiguous rows)
             np.copyto(P[0], X[i:i + m].T)
@@ -131,8 +133,9 @@ class FinalModel:
                     for j in sel:
                         np.multiply(P[k - 2, j], P[0, j], out=P[k - 1, j])
             flat = P.reshape(top * d, m)
-            if run:
-                np.multiply(flat[first[0]:first[0] + nt], b, out=T)
+            if run:                      # the powers are the terms: scaled in place
+                T = flat[first[0]:first[0] + nt]
+                np.multiply(T, b, out=T)
             else:
                 np.take(flat, first, axis=0, out=T, mode="clip")  # this mode: unbuffered
                 for sel, r in later:
