@@ -81,7 +81,13 @@ class FinalModel:
     text_inputs: dict = field(default_factory=dict)
 
     def predict(self, X) -> np.ndarray:
-        """Predictions for raw inputs ``X`` of shape (m, d) (or (m,) with one input)."""
+        """Predictions for raw inputs ``X`` of shape (m, d) (or (m,) with one input).
+
+        The scaled-monomial sum, formed on blocks of rows in reused buffers: on each
+        row the same operations in the same order as evaluating term by term (powers
+        by repeated multiplication, each term times its coefficient added in the order
+        of the terms), so the result does not depend on the block size.
+        """
         X = np.asarray(X, dtype=float)
         if X.ndim == 1:
             X = X[:, None]
@@ -98,12 +104,16 @@ class FinalModel:
         # each term's factors u_j^e (inputs ascending) as rows (e - 1) * d + j of a block
         # of powers: the first of every term is gathered, the later ones multiplied in,
         # one factor position at a time for all terms that have it
-        factors = [[(int(E[t, j]) - 1) * d + int(j) for j in np.flatnonzero(E[t])]
-                   for t in range(nt)]
-        first = np.array([f[0] for f in factors], dtype=np.intp)
-        later = [(np.array([t for t, f in enumerate(factors) if len(f) > q], dtype=np.intp),
-                  np.array([f[q] for f in factors if len(f) > q], dtype=np.intp))
-                 for q in range(1, max(len(f) for f in factors))]
+        R = (E - 1) * d + np.arange(d)          # row of u_j^e in the block
+        nz = E > 0
+        j0 = nz.argmax(axis=1)
+        first = R[np.arange(nt), j0]
+        later = []
+        if nz.sum(axis=1).max() > 1:             # products of inputs
+            factors = [R[t, nz[t]] for t in range(nt)]
+            later = [(np.array([t for t, f in enumerate(factors) if f.size > q], dtype=np.intp),
+                      np.array([f[q] for f in factors if f.size > q], dtype=np.intp))
+                     for q in range(1, max(f.size for f in factors))]
         # no products of inputs and the terms in the block's order: no gathering
         run = not later and np.array_equal(first, first[0] + np.arange(nt))
         b = np.asarray(self.scaled_coefficients, dtype=float)[:, None]
