@@ -227,6 +227,10 @@ def _model_name(order: int, penalty: float) -> str:
 # ---------------------------------------------------------------------------
 # small functions on arrays
 # ---------------------------------------------------------------------------
+#: values per piece in `durbin_watson` of a long series
+_DW_PIECE = 1 << 16
+
+
 def durbin_watson(resid) -> float:
     """Durbin-Watson statistic of residuals in row order.
 
@@ -245,11 +249,25 @@ def durbin_watson(resid) -> float:
     e = np.asarray(resid, dtype=float).ravel()
     if e.size < 2:
         return float("nan")
-    den = float(e @ e)
-    if den == 0:
-        return float("nan")
-    d = np.diff(e)
-    return float(d @ d) / den
+    if e.size <= _DW_PIECE:
+        den = float(e @ e)
+        if den == 0:
+            return float("nan")
+        d = np.diff(e)
+        return float(d @ d) / den
+    # a long series a piece at a time in one reused buffer (no second array as long as
+    # the residuals), each piece squared and summed pairwise by numpy: no BLAS (whose
+    # threads would compete with other work), at least as accurate as one dot product
+    buf = np.empty(_DW_PIECE)
+    den = num = 0.0
+    for i in range(0, e.size, _DW_PIECE):
+        part = e[i:i + _DW_PIECE]
+        den += float(np.multiply(part, part, out=buf[:part.size]).sum())
+        d = buf[:min(_DW_PIECE, e.size - 1 - i)]
+        if d.size:
+            np.subtract(e[i + 1:i + 1 + d.size], e[i:i + d.size], out=d)
+            num += float(np.multiply(d, d, out=d).sum())
+    return num / den if den != 0 else float("nan")
 
 
 def lag1_autocorrelation(x) -> float:
@@ -708,7 +726,8 @@ def suggested_gap(r: float, n: int, folds: int) -> int:
 # ---------------------------------------------------------------------------
 def final_fit_durbin_watson(data: DataLike, model: FinalModel) -> float:
     """Durbin-Watson statistic of ``model``'s residuals on every row of ``data``, in order."""
-    return durbin_watson(np.asarray(data.y, float) - model.predict(np.asarray(data.X, float)))
+    e = model.predict(np.asarray(data.X, float))
+    return durbin_watson(np.subtract(np.asarray(data.y, float), e, out=e))  # e: residuals
 
 
 def check_serial_dependence(data: DataLike, analysis: Analysis,
@@ -950,10 +969,19 @@ def shift_table(X_before: np.ndarray, X_after: np.ndarray, inputs, bins: int = 1
         # read the sorted copies (the same values as on the unsorted columns)
         a, b = np.sort(A[:, j]), np.sort(B[:, j])
         psi = population_stability_index(a, b, bins)
-        ks = ks_statistic(a, b)
         from scipy import stats as _stats   # imported only when a shift is tested
 
-        p = float(_stats.ks_2samp(a, b).pvalue) if a.size and b.size else float("nan")
+        test = _stats.ks_2samp(a, b) if a.size and b.size else None
+        p = float(test.pvalue) if test is not None else float("nan")
+        if test is not None and not np.isnan(test.statistic):
+            # `ks_statistic` where scipy found the largest gap (two searches instead of
+            # two sweeps; scipy's own statistic is rounded to a multiple of 1 / lcm of
+            # the sizes for small samples)
+            v = test.statistic_location
+            ks = float(abs(np.searchsorted(a, v, side="right") / a.size
+                           - np.searchsorted(b, v, side="right") / b.size))
+        else:
+            ks = ks_statistic(a, b)
         outside = (float(np.mean((b < a[0]) | (b > a[-1]))) if a.size and b.size
                    else float("nan"))      # `share_outside` on the sorted columns
         rows.append({"input": str(name), "mean_before": float(A[:, j].mean()),
@@ -1045,7 +1073,8 @@ def probe_points(X: np.ndarray) -> pd.DataFrame:
     ends = np.empty((5, X.shape[1]))
     for j in range(X.shape[1]):
         s = np.sort(X[:, j])
-        ends[:, j] = (s[0], s[-1], *np.percentile(s, [1, 50, 99]))
+        # (the ends read first: the percentiles reorder the sorted copy, not copy it)
+        ends[:, j] = (s[0], s[-1], *np.percentile(s, [1, 50, 99], overwrite_input=True))
     lo, hi, p1, med, p99 = ends
     rows = []
     for j in range(X.shape[1]):

@@ -23,6 +23,11 @@ from .families import lasso as lasso_family
 
 
 _PREDICT_CHUNK = 65_536
+#: rows per block of `FinalModel.predict` (fewer for many terms: at most about
+#: `_PREDICT_CELLS` values in the powers and terms of one block); the block's powers
+#: and terms are built in two buffers reused from block to block
+_PREDICT_BLOCK = 8_192
+_PREDICT_CELLS = 1 << 21
 
 
 @dataclass
@@ -76,7 +81,13 @@ class FinalModel:
     text_inputs: dict = field(default_factory=dict)
 
     def predict(self, X) -> np.ndarray:
-        """Predictions for raw inputs ``X`` of shape (m, d) (or (m,) with one input)."""
+        """Predictions for raw inputs ``X`` of shape (m, d) (or (m,) with one input).
+
+        The scaled-monomial sum, formed on blocks of rows in reused buffers: on each
+        row the same operations in the same order as evaluating term by term (powers
+        by repeated multiplication, each term times its coefficient added in the order
+        of the terms), so the result does not depend on the block size.
+        """
         X = np.asarray(X, dtype=float)
         if X.ndim == 1:
             X = X[:, None]
@@ -84,26 +95,65 @@ class FinalModel:
             raise InputProblem(f"Expected {len(self.input_names)} input columns "
                                f"({', '.join(self.input_names)}), got {X.shape[1]}.",
                                code="bad_predict_input")
-        if X.shape[0] > _PREDICT_CHUNK:   # bounded memory: the powers of one chunk at a time
-            return np.concatenate([self.predict(X[i:i + _PREDICT_CHUNK])
-                                   for i in range(0, X.shape[0], _PREDICT_CHUNK)])
-        # one contiguous row per input (the same values as the columns of the scaled rows)
-        U = np.ascontiguousarray(((X - self.centre) / self.half_range).T)
         out = np.full(X.shape[0], self.scaled_intercept)
-        if not len(self.exponents):
+        if not len(self.exponents) or not X.shape[0]:
             return out
-        top = self.exponents.max(axis=0)
-        powers = []
-        for j in range(U.shape[0]):      # u_j^0 .. u_j^top_j, built once
-            col = [None, U[j]]
-            for _ in range(2, int(top[j]) + 1):
-                col.append(col[-1] * U[j])
-            powers.append(col)
-        for e, b in zip(self.exponents, self.scaled_coefficients):
-            term = None
-            for j in np.flatnonzero(e):
-                term = powers[j][int(e[j])] if term is None else term * powers[j][int(e[j])]
-            out += b * term
+        E = np.asarray(self.exponents, dtype=np.intp)
+        n, nt, d, top = X.shape[0], E.shape[0], E.shape[1], int(E.max())
+        levels = E.max(axis=0)
+        # each term's factors u_j^e (inputs ascending) as rows (e - 1) * d + j of a block
+        # of powers: the first of every term is gathered, the later ones multiplied in,
+        # one factor position at a time for all terms that have it
+        R = (E - 1) * d + np.arange(d)          # row of u_j^e in the block
+        nz = E > 0
+        j0 = nz.argmax(axis=1)
+        first = R[np.arange(nt), j0]
+        later = []
+        if nz.sum(axis=1).max() > 1:             # products of inputs
+            factors = [R[t, nz[t]] for t in range(nt)]
+            later = [(np.array([t for t, f in enumerate(factors) if f.size > q], dtype=np.intp),
+                      np.array([f[q] for f in factors if f.size > q], dtype=np.intp))
+                     for q in range(1, max(f.size for f in factors))]
+        # no products of inputs and the terms in the block's order: no gathering
+        run = not later and np.array_equal(first, first[0] + np.arange(nt))
+        b = np.asarray(self.scaled_coefficients, dtype=float)[:, None]
+        centre = np.asarray(self.centre, dtype=float)[:, None]
+        half_range = np.asarray(self.half_range, dtype=float)[:, None]
+        # inputs needing each power beyond the first (all of them: one call per power)
+        need = [slice(None) if np.all(levels >= k) else np.flatnonzero(levels >= k)
+                for k in range(2, top + 1)]
+        rows = min(n, _PREDICT_BLOCK, max(_PREDICT_BLOCK // 8,
+                                          _PREDICT_CELLS // (top * d + (0 if run else nt))))
+        P = np.empty((top, d, rows))     # u_j^k for the rows of one block, reused
+        # the terms times their coefficients, reused (with a run: rows of P)
+        T = None if run else np.empty((nt, rows))
+        for i in range(0, n, rows):
+            m = min(rows, n - i)
+            if m < rows:                 # the last, shorter block
+                P, T = np.empty((top, d, m)), None if run else np.empty((nt, m))
+            # the scaled inputs, one contiguous row per input (transposed first: the
+            # arithmetic then runs on contiguous rows)
+            np.copyto(P[0], X[i:i + m].T)
+            np.subtract(P[0], centre, out=P[0])
+            np.divide(P[0], half_range, out=P[0])
+            for k, sel in enumerate(need, start=2):   # u^k = u^(k-1) * u
+                if isinstance(sel, slice):
+                    np.multiply(P[k - 2], P[0], out=P[k - 1])
+                else:
+                    for j in sel:
+                        np.multiply(P[k - 2, j], P[0, j], out=P[k - 1, j])
+            flat = P.reshape(top * d, m)
+            if run:                      # the powers are the terms: scaled in place
+                T = flat[first[0]:first[0] + nt]
+                np.multiply(T, b, out=T)
+            else:
+                np.take(flat, first, axis=0, out=T, mode="clip")  # this mode: unbuffered
+                for sel, r in later:
+                    T[sel] *= flat[r]
+                np.multiply(T, b, out=T)
+            acc = out[i:i + m]
+            for t in range(nt):          # added in the order of the terms
+                np.add(acc, T[t], out=acc)
         return out
 
 

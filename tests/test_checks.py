@@ -35,6 +35,19 @@ def test_durbin_watson_matches_statsmodels():
         assert durbin_watson(e) == pytest.approx(float(sm_dw(e)), rel=1e-12)
 
 
+def test_durbin_watson_of_long_series_matches_statsmodels():
+    # reference: statsmodels durbin_watson; series longer than one piece of the sums
+    from statsmodels.stats.stattools import durbin_watson as sm_dw
+    from engine.checks import _DW_PIECE
+    rng = np.random.default_rng(3)
+    walk = np.cumsum(rng.normal(size=3 * _DW_PIECE + 17))
+    for e in (rng.normal(size=_DW_PIECE + 1), rng.normal(5, 1, size=2 * _DW_PIECE), walk,
+              np.repeat(rng.normal(size=_DW_PIECE // 2 + 1), 2)):
+        assert durbin_watson(e) == pytest.approx(float(sm_dw(e)), rel=1e-12)
+    assert durbin_watson(walk) < 0.01
+    assert math.isnan(durbin_watson(np.zeros(_DW_PIECE + 5)))
+
+
 def test_lag1_autocorrelation_matches_statsmodels_acf():
     from statsmodels.tsa.stattools import acf  # reference: statsmodels acf (adjusted=False)
     rng = np.random.default_rng(1)
@@ -260,6 +273,28 @@ def test_shift_table_quiet_for_same_distribution():
     t = shift_table(X[:1500], X[1500:], ("a", "b"))
     assert not t["moved"].any()
     assert (t["psi"] < 0.1).all()
+
+
+@pytest.mark.parametrize("n", [900, 30_000])   # scipy's exact and asymptotic p-values
+def test_shift_table_ks_matches_scipy_with_ties_and_missing_values(n):
+    # reference: scipy ks_2samp (statistic and p-value) on each column's two periods
+    from scipy.stats import ks_2samp
+    rng = np.random.default_rng(12)
+    X = np.column_stack([rng.normal(size=n), rng.integers(0, 6, n).astype(float),
+                         rng.normal(size=n), rng.normal(size=n)])
+    cut = 2 * n // 3                      # two periods of 2/3 and 1/3 of the rows
+    X[cut + 50:, 0] += 0.4                # later values larger, then smaller
+    X[cut + 50:, 3] -= 0.3
+    X[[5, cut + 100], 2] = np.nan         # sorts last; the statistic is then `ks_statistic`'s
+    t = shift_table(X[:cut], X[cut:], ("a", "b", "c", "d")).set_index("input")
+    for j, name in enumerate("abcd"):
+        assert t.loc[name, "ks"] == ks_statistic(X[:cut, j], X[cut:, j])
+        if name != "c":
+            ref = ks_2samp(X[:cut, j], X[cut:, j])
+            assert t.loc[name, "ks"] == pytest.approx(ref.statistic, abs=1e-12)
+            assert t.loc[name, "ks_p_value"] == ref.pvalue
+    assert math.isnan(t.loc["c", "ks_p_value"])
+    assert t.loc["a", "moved"] and not t.loc["b", "moved"]
 
 
 @pytest.fixture(scope="module")
