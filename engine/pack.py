@@ -419,8 +419,8 @@ class _ModelFileWriter:
     Importing scikit-learn and skops costs more than everything else in a
     small pack; a child process forked from a single-threaded parent does it
     on another core, and the parent does not import them for it (a shuffled
-    k-fold run's main process never imports scikit-learn). The parent checks the child's exit status and writes
-    the file itself if the child failed. Without fork (or with other threads
+    k-fold run's main process never imports scikit-learn). The parent checks
+    the child's exit status and writes the file itself if the child failed. Without fork (or with other threads
     running, where forking is unsafe) the file is written in this process.
     """
 
@@ -433,9 +433,13 @@ class _ModelFileWriter:
             import gc
 
             # scikit-learn is imported by the child alone (this process does not need
-            # it). The objects made so far are frozen out of the garbage collector's
-            # way: the child's collections (its imports make many) do not traverse
-            # them or copy their pages (Python's advice before a fork)
+            # it). scipy.stats, which both need (the checks' two-sample test here,
+            # scikit-learn there), is imported once, before the fork. The objects made
+            # so far are frozen out of the garbage collector's way: the child's
+            # collections (its imports make many) do not traverse them or copy their
+            # pages (Python's advice before a fork)
+            gc.freeze()
+            import scipy.stats  # noqa: F401
             gc.freeze()
             self.proc = mp.get_context("fork").Process(target=_save_in_child,
                                                        args=(model, self.path), daemon=True)
