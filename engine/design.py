@@ -165,7 +165,10 @@ class PolynomialBasis:
             out[:, :d] = U
             kmax = p // d
             if kmax >= 2:
-                U2 = out[:, :d] + out[:, :d]    # laid out like `out` (same values as U + U)
+                # 2u is held in the last block of columns, written last (in place, from
+                # itself), so the expansion allocates nothing
+                U2 = out[:, (kmax - 1) * d:kmax * d]
+                np.add(out[:, :d], out[:, :d], out=U2)
                 for k in range(2, kmax + 1):
                     dst = out[:, (k - 1) * d:k * d]
                     np.multiply(out[:, (k - 2) * d:(k - 1) * d], U2, out=dst)

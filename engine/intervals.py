@@ -212,22 +212,27 @@ class CellDesign:
     def residuals_of(self, beta_u: np.ndarray, c: np.ndarray, assign: np.ndarray) -> np.ndarray:
         """`residuals` of fits given by working-basis coefficients ``beta_u`` (S, p) and
         intercepts ``c`` (S,); each chunk of rows is multiplied by the fits it needs only."""
-        assign = np.atleast_2d(np.asarray(assign, dtype=np.int64))
+        assign = _fit_numbers(assign)
         A_, n = assign.shape
         out = np.full((A_, n), np.nan)
         p = self.p
         S = c.size
         step = _step(p)
-        buf = np.empty((min(step, n), p), order="F")
+        m = min(step, n)
+        buf = np.empty((m, p), order="F")       # one chunk's terms and predictions,
+        pbuf = np.empty(0)                      # reused by every chunk (grown as needed)
+        pos = np.zeros(S, dtype=np.int64)
         for c0 in range(0, n, step):
             c1 = min(c0 + step, n)
             sub = assign[:, c0:c1]
             cols = np.flatnonzero(np.bincount(sub[sub >= 0], minlength=S))
-            pos = np.zeros(S, dtype=np.int64)
             pos[cols] = np.arange(cols.size)
             if p and cols.size:
-                P = self.basis.expand_scaled(self.U[c0:c1], out=buf[:c1 - c0]) @ \
-                    np.ascontiguousarray(beta_u[cols].T)
+                if pbuf.size < (c1 - c0) * cols.size:
+                    pbuf = np.empty(m * cols.size)
+                P = np.matmul(self.basis.expand_scaled(self.U[c0:c1], out=buf[:c1 - c0]),
+                              np.ascontiguousarray(beta_u[cols].T),
+                              out=pbuf[:(c1 - c0) * cols.size].reshape(c1 - c0, cols.size))
                 P += c[cols]
             else:
                 P = np.broadcast_to(c[cols], (c1 - c0, cols.size))
@@ -261,37 +266,58 @@ def _ridge_by_solve(summary: TermSummary, raw: RawMap, penalty: float):
 
     The standardisation is that of `engine.families.base.standardise`, with the raw map
     scaled once when it is the same for every set (as `RawMap.select` gives it for one
-    term set) rather than once per set.
+    term set) rather than once per set. The systems are then formed, checked and
+    solved `_SOLVE_SETS` sets at a time (each set's numbers are those of the whole
+    batch at once), so no stack of every set's ``p x p`` matrices is held.
     """
     from .families.base import FamilyFit, standardise
     p = summary.p
+    S = summary.n_sets
+    ridge = penalty * np.eye(p)
+    W = np.empty((S, p, 1))
     if raw.A.ndim == 3 and raw.A.shape[0] and raw.A.strides[0] == 0:
         A = raw.A[0]
         r = np.abs(A).max(axis=1)
         r = np.where(r > 0, r, 1.0)
         As = A / r[:, None]
-        Mff = summary.M[:, :p, :p]
         Mfy = summary.M[:, :p, -1]
-        Mraw = As @ Mff @ As.T
-        craw = np.einsum("sj,sij->si", Mfy, np.broadcast_to(As, (summary.n_sets, p, p)))
-        var = np.clip(np.diagonal(Mraw, axis1=1, axis2=2), 0, None) / summary.n[:, None]
-        ds = np.where(~(var > 0), 1.0, np.sqrt(var))
-        G = Mraw / (ds[:, :, None] * ds[:, None, :])
-        c = craw / ds
+        craw = np.einsum("sj,sij->si", Mfy, np.broadcast_to(As, (S, p, p)))
+        ds = np.empty((S, p))
+        for b0 in range(0, S, _SOLVE_SETS):
+            b1 = min(b0 + _SOLVE_SETS, S)
+            G = As @ summary.M[b0:b1, :p, :p] @ As.T        # Mraw, made G in place
+            var = np.clip(np.diagonal(G, axis1=1, axis2=2), 0, None) / summary.n[b0:b1, None]
+            d = ds[b0:b1] = np.where(~(var > 0), 1.0, np.sqrt(var))
+            G /= d[:, :, None] * d[:, None, :]
+            if not _solve_into(W[b0:b1], np.add(G, ridge, out=G), craw[b0:b1] / d):
+                return None
         AsT = As.T
     else:
         st = standardise(summary, raw)
         G, c, ds, AsT = st.G, st.c, st.ds, st.As.transpose(0, 2, 1)
-    Gs = G + penalty * np.eye(p)[None, :, :]
-    try:
-        np.linalg.cholesky(Gs)          # positive definite, as the penalty makes it
-    except np.linalg.LinAlgError:
-        return None
+        for b0 in range(0, S, _SOLVE_SETS):
+            b1 = min(b0 + _SOLVE_SETS, S)
+            if not _solve_into(W[b0:b1], G[b0:b1] + ridge, c[b0:b1]):
+                return None
     fit = FamilyFit.empty(summary, 1)
-    W = np.linalg.solve(Gs, c[:, :, None])
     fit.beta_u[:, :, 0:1] = AsT @ (W / ds[:, :, None])
     fit.edf[:, 0] = np.nan
     return fit
+
+
+#: Ridge systems formed and solved together by `_ridge_by_solve`.
+_SOLVE_SETS = 16
+
+
+def _solve_into(W: np.ndarray, Gs: np.ndarray, c: np.ndarray) -> bool:
+    """``W = Gs^-1 c`` for a stack of systems; False (W untouched) when one is not
+    positive definite."""
+    try:
+        np.linalg.cholesky(Gs)          # positive definite, as the penalty makes it
+    except np.linalg.LinAlgError:
+        return False
+    W[...] = np.linalg.solve(Gs, c[:, :, None])
+    return True
 
 
 @dataclass
@@ -682,7 +708,8 @@ def _fold_error_stats(design: CellDesign, fits: "SetFits", fold_of, k: int, shif
     if extra is not None:
         beta = np.vstack([beta, extra[0]])
         c = np.r_[c, extra[1]]
-        assign = np.vstack([assign, np.where(extra[2] >= 0, extra[2] + S1, -1)])
+        more = _fit_numbers(extra[2])
+        assign = np.vstack([assign, np.where(more >= 0, more.astype(np.int64) + S1, -1)])
     res = design.residuals_of(beta, c, assign)
     cnt, s1, s2 = np.zeros((R, k)), np.zeros((R, k)), np.zeros((R, k))
     for r in range(R):
@@ -695,11 +722,40 @@ def _fold_error_stats(design: CellDesign, fits: "SetFits", fold_of, k: int, shif
     return (cnt, s1, s2) if extra is None else ((cnt, s1, s2), res[R:])
 
 
+def _uniform_fits(assign: np.ndarray, group: np.ndarray, first: np.ndarray,
+                  block: int = 1 << 16) -> np.ndarray:
+    """``(A, G)``: the fit of every output row in every group when all the group's rows
+    share one (their value in ``assign``), else -2; ``first`` holds one row of each group.
+
+    Found in sequential passes over blocks of rows (small buffers, reused), rather
+    than by gathering rows group by group.
+    """
+    A_, n = assign.shape
+    same = assign[:, first]
+    at_first = np.empty(min(block, n), dtype=same.dtype)
+    differs = np.empty(min(block, n), dtype=bool)
+    for a in range(A_):
+        found = []
+        for i0 in range(0, n, block):
+            i1 = min(i0 + block, n)
+            g = group[i0:i1]
+            np.take(same[a], g, out=at_first[:i1 - i0], mode="clip")   # labels are in range
+            np.not_equal(assign[a, i0:i1], at_first[:i1 - i0], out=differs[:i1 - i0])
+            if differs[:i1 - i0].any():
+                found.append(g[differs[:i1 - i0]])
+        if found:
+            same[a, np.unique(np.concatenate(found))] = -2
+    return same
+
+
 def _grouped_error_stats(design: CellDesign, beta_u: np.ndarray, c_out: np.ndarray, fold_of,
                          k: int, shift: float, extra: tuple | None):
     """`_fold_error_stats` on folds that are unions of row groups: rows taken group by
     group, each multiplied by the ``R`` outer fits it needs and the ``extra`` fits its
-    rows are assigned (usually one per output row within a group)."""
+    rows are assigned (usually one per output row within a group).
+
+    Every chunk of rows is gathered, expanded, multiplied and squared in buffers
+    allocated once for the pass."""
     group, of = fold_of
     R, G = of.shape
     n = design.y.size
@@ -709,60 +765,72 @@ def _grouped_error_stats(design: CellDesign, beta_u: np.ndarray, c_out: np.ndarr
     bounds = np.r_[0, np.cumsum(np.bincount(group, minlength=G))]
     p = design.p
     step = _step(p)
-    buf = np.empty((min(step, n), p), order="F")
+    m = min(step, n)
+    U, y = design.U, design.y
+    ubuf = np.empty((m, U.shape[1]))
+    buf = np.empty((m, p), order="F")
+    ybuf = np.empty(m)
+    ebuf = np.empty(R * m)
     ar = np.arange(R)
     if extra is not None:
         beta_x, c_x, assign_x = extra
-        assign_x = np.atleast_2d(np.asarray(assign_x, dtype=np.int64))
+        assign_x = _fit_numbers(assign_x)
         A_ = assign_x.shape[0]
         res = np.full((A_, n), np.nan)
         beta_all = np.vstack([beta_u, beta_x])
         c_all = np.r_[c_out, c_x]
         S1, S2 = c_out.size, c_x.size
-        # the fit of each output row in each group when all its rows share one (-2: not so);
-        # found in sequential passes rather than by gathering rows group by group
-        first = order[np.minimum(bounds[:-1], max(n - 1, 0))]
-        same = assign_x[:, first]
-        for a in range(A_):
-            differs = np.unique(group[assign_x[a] != same[a, group]])
-            same[a, differs] = -2
+        same = _uniform_fits(assign_x, group, order[np.minimum(bounds[:-1], max(n - 1, 0))])
+        rbuf = np.empty(m)
+        pos = np.zeros(S2, dtype=np.int64)
     else:
-        beta_all, c_all, res = beta_u, c_out, None
+        beta_all, c_all, res, S2 = beta_u, c_out, None, 0
+    pbuf = np.empty((R + S2) * m)
     for g in range(G):
         cols = ar * k + of[:, g]
         for c0 in range(bounds[g], bounds[g + 1], step):
             rows = order[c0:min(c0 + step, bounds[g + 1])]
+            mr = rows.size
             if extra is not None:
                 one = same[:, g]
                 sub = assign_x[:, rows] if np.any(one == -2) else None
                 fits_x = one[one >= 0] if sub is None else sub[sub >= 0]
                 need = np.flatnonzero(np.bincount(fits_x, minlength=S2))
-                pos = np.zeros(S2, dtype=np.int64)
                 pos[need] = R + np.arange(need.size)
                 take = np.r_[cols, S1 + need]
             else:
                 take = cols
             # predictions one fit per row of PT (each fit's values contiguous)
             if p:
-                F = design.basis.expand_scaled(design.U[rows], out=buf[:rows.size])
-                PT = beta_all[take] @ F.T
+                F = design.basis.expand_scaled(np.take(U, rows, axis=0, out=ubuf[:mr],
+                                                       mode="clip"), out=buf[:mr])
+                PT = np.matmul(beta_all[take], F.T, out=pbuf[:take.size * mr].reshape(-1, mr))
                 PT += c_all[take][:, None]
             else:
-                PT = np.broadcast_to(c_all[take][:, None], (take.size, rows.size))
-            yr = design.y[rows]
-            e = (yr - PT[:R]) ** 2 - shift
-            cnt[ar, of[:, g]] += rows.size
+                PT = np.broadcast_to(c_all[take][:, None], (take.size, mr))
+            yr = np.take(y, rows, out=ybuf[:mr], mode="clip")
+            e = np.subtract(yr, PT[:R], out=ebuf[:R * mr].reshape(R, mr))
+            np.square(e, out=e)
+            e -= shift
+            cnt[ar, of[:, g]] += mr
             s1[ar, of[:, g]] += e.sum(axis=1)
-            s2[ar, of[:, g]] += (e * e).sum(axis=1)
+            np.square(e, out=e)
+            s2[ar, of[:, g]] += e.sum(axis=1)
             if extra is not None:
                 for a in range(A_):
                     if one[a] >= 0:
-                        res[a, rows] = yr - PT[pos[one[a]]]
+                        res[a, rows] = np.subtract(yr, PT[pos[one[a]]], out=rbuf[:mr])
                     elif one[a] == -2:
                         s = sub[a]
                         at = np.flatnonzero(s >= 0)
                         res[a, rows[at]] = yr[at] - PT[pos[s[at]], at]
     return (cnt, s1, s2), res
+
+
+def _fit_numbers(assign) -> np.ndarray:
+    """``assign`` as a 2-d array of integers (its own integer type kept: no copy)."""
+    assign = np.atleast_2d(np.asarray(assign))
+    return assign if assign.dtype.kind in "iu" else assign.astype(np.int64)
 
 
 def _nested_cv_parts(design: CellDesign, fold_sum: list, k: int):
@@ -1224,7 +1292,10 @@ def _intervals_job(data, spec: SweepSpec, order: int, penalty: float, level: flo
     inner_fits = design.fit_summary(TermSummary(summ.n[rest], summ.mean[rest], summ.M[rest]))
     # residuals: each round's validation rows under their split model, and each split's
     # inner validation rows under their inner model (fits numbered split, then inner)
-    assign = np.full((len(rounds) + S, n), -1, dtype=np.int64)
+    # the smallest integers that number every fit (the table is as long as the rows)
+    n_fits = S + 1 + int(inner_first[-1])
+    assign = np.full((len(rounds) + S, n), -1,
+                     dtype=np.int16 if n_fits < (1 << 15) else np.int64)
     s0 = 0
     for r, rnd in enumerate(rounds):
         for kk in range(len(rnd)):
