@@ -142,8 +142,13 @@ class PolynomialBasis:
         p = self.n_terms if order is None else self.n_terms_at(order)
         return [term_name(t, self.input_names) for t in self.terms[:p]]
 
-    def scale(self, X: np.ndarray) -> np.ndarray:
-        U = np.subtract(np.asarray(X, dtype=float), self.centre)   # one new array, then in place
+    def scale(self, X: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        """Scaled inputs ``(X - centre) / half_range``; into ``out`` when given (it may be
+        ``X`` itself), otherwise one new array."""
+        if out is None:
+            U = np.subtract(np.asarray(X, dtype=float), self.centre)
+        else:
+            U = np.subtract(X, self.centre, out=out)
         U /= self.half_range
         return U
 

@@ -113,7 +113,6 @@ class CellDesign:
     family: str = "ridge"
     l1_ratio: float = 0.0
     _F: np.ndarray | None = field(default=None, repr=False)
-    _U: np.ndarray | None = field(default=None, repr=False)
 
     @classmethod
     def make(cls, data, spec: SweepSpec, order: int, penalty: float, family: str = "ridge",
@@ -137,13 +136,6 @@ class CellDesign:
     def p(self) -> int:
         return int(self.basis.n_terms)
 
-    @property
-    def U(self) -> np.ndarray:
-        """Scaled inputs of every row (formed once)."""
-        if self._U is None:
-            self._U = self.basis.scale(self.X)
-        return self._U
-
     def rows(self, idx: np.ndarray | None = None) -> np.ndarray:
         """Working-basis terms of the given rows.
 
@@ -152,16 +144,21 @@ class CellDesign:
         expanded (the full design is never held).
         """
         if self._F is None and idx is not None and self.y.size >= LARGE_ROWS:
-            return self.basis.expand_scaled(self.U[idx]) if self.p else np.zeros((len(idx), 0))
+            return (self.basis.expand_scaled(self.basis.scale(self.X[idx])) if self.p
+                    else np.zeros((len(idx), 0)))
         if self._F is None:
-            self._F = self.basis.expand_scaled(self.U) if self.p else np.zeros((len(self.y), 0))
+            self._F = (self.basis.expand_scaled(self.basis.scale(self.X)) if self.p
+                       else np.zeros((len(self.y), 0)))
         return self._F if idx is None else self._F[idx]
 
     def moments(self, labels: np.ndarray, n_sets: int):
-        """Per-label summaries of ``[terms, y]``: one chunked pass over the rows."""
-        return design_moments(self.U, self.y, labels, n_sets,
-                              lambda Uc, out: self.basis.expand_scaled(Uc, out=out), self.p,
-                              chunk_rows=CHUNK_ROWS)
+        """Per-label summaries of ``[terms, y]``: one chunked pass over the rows (each
+        chunk of inputs scaled where the pass gathered it: no scaled copy of them all)."""
+        basis = self.basis
+        return design_moments(self.X, self.y, labels, n_sets,
+                              lambda Xc, out: basis.expand_scaled(basis.scale(Xc, out=Xc),
+                                                                  out=out),
+                              self.p, chunk_rows=CHUNK_ROWS)
 
     def summaries(self, sets: list[np.ndarray]) -> TermSummary:
         """Summaries of every row set (one pass over the rows for all of them)."""
@@ -219,8 +216,9 @@ class CellDesign:
         S = c.size
         step = _step(p)
         m = min(step, n)
-        buf = np.empty((m, p), order="F")       # one chunk's terms and predictions,
-        pbuf = np.empty(0)                      # reused by every chunk (grown as needed)
+        ubuf = np.empty((m, self.X.shape[1]))   # one chunk's scaled inputs, terms and
+        buf = np.empty((m, p), order="F")       # predictions, reused by every chunk
+        pbuf = np.empty(0)                      # (grown as needed)
         pos = np.zeros(S, dtype=np.int64)
         for c0 in range(0, n, step):
             c1 = min(c0 + step, n)
@@ -230,7 +228,8 @@ class CellDesign:
             if p and cols.size:
                 if pbuf.size < (c1 - c0) * cols.size:
                     pbuf = np.empty(m * cols.size)
-                P = np.matmul(self.basis.expand_scaled(self.U[c0:c1], out=buf[:c1 - c0]),
+                Uc = self.basis.scale(self.X[c0:c1], out=ubuf[:c1 - c0])
+                P = np.matmul(self.basis.expand_scaled(Uc, out=buf[:c1 - c0]),
                               np.ascontiguousarray(beta_u[cols].T),
                               out=pbuf[:(c1 - c0) * cols.size].reshape(c1 - c0, cols.size))
                 P += c[cols]
@@ -766,8 +765,8 @@ def _grouped_error_stats(design: CellDesign, beta_u: np.ndarray, c_out: np.ndarr
     p = design.p
     step = _step(p)
     m = min(step, n)
-    U, y = design.U, design.y
-    ubuf = np.empty((m, U.shape[1]))
+    X, y = design.X, design.y
+    ubuf = np.empty((m, X.shape[1]))
     buf = np.empty((m, p), order="F")
     ybuf = np.empty(m)
     ebuf = np.empty(R * m)
@@ -802,8 +801,8 @@ def _grouped_error_stats(design: CellDesign, beta_u: np.ndarray, c_out: np.ndarr
                 take = cols
             # predictions one fit per row of PT (each fit's values contiguous)
             if p:
-                F = design.basis.expand_scaled(np.take(U, rows, axis=0, out=ubuf[:mr],
-                                                       mode="clip"), out=buf[:mr])
+                Uc = np.take(X, rows, axis=0, out=ubuf[:mr], mode="clip")
+                F = design.basis.expand_scaled(design.basis.scale(Uc, out=Uc), out=buf[:mr])
                 PT = np.matmul(beta_all[take], F.T, out=pbuf[:take.size * mr].reshape(-1, mr))
                 PT += c_all[take][:, None]
             else:
@@ -1439,22 +1438,19 @@ def how_sure(analysis, data, spec: SweepSpec | None = None, level: float = LEVEL
     family = str(getattr(rec, "family", None) or "ridge")
     l1 = float(getattr(rec, "l1_ratio", None) or 0.0)
     try:
-        # one design (scaled inputs kept) serves both; BLAS on one thread for the many
+        # one design serves both; BLAS on one thread for the many
         # small solves, the row passes pick their own
         with one_thread():
             plain = analysis.model_data is None
-            scaled = getattr(analysis, "scaled", None)
             b = getattr(analysis, "basis", None)
-            # the sweep's design of these rows (large tables): no second look at every row
-            same = (plain and scaled is not None and b is not None
-                    and scaled.shape == np.shape(data_w.X) and b.input_names == spec_w.inputs
-                    and b.interactions == spec_w.interactions)
+            # the sweep's design of these rows (large tables, whose one pass served the sweep
+            # and the learning curve): no second look at every row
+            same = (plain and getattr(analysis, "learning_pieces", None) is not None
+                    and b is not None and analysis.n_rows == len(data_w.y)
+                    and b.centre.shape == (np.shape(data_w.X)[1],)
+                    and b.input_names == spec_w.inputs and b.interactions == spec_w.interactions)
             design = CellDesign.make(data_w, spec_w, rec.order, rec.penalty, family, l1,
                                      basis=b if same else None)
-            if (plain and scaled is not None and scaled.shape == design.X.shape
-                    and np.array_equal(design.basis.centre, analysis.basis.centre)
-                    and np.array_equal(design.basis.half_range, analysis.basis.half_range)):
-                design._U = scaled          # the sweep's scaled inputs: the same values
             err = _error_job(data_w, spec_w, rec.order, rec.penalty, level, None, None, family,
                              l1, progress, design, analysis.row_groups if plain else None)
             # the sweep's piece summaries give every training set (plain analyses)

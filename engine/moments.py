@@ -236,7 +236,8 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     y : (n,) target, or (n, T) several targets.
     labels : (n,) set of each row, ``-1`` for rows no set uses.
     n_sets : number of sets.
-    expand : ``expand(U_chunk, out)`` writes the chunk's terms into ``out``.
+    expand : ``expand(U_chunk, out)`` writes the chunk's terms into ``out``; it may
+        overwrite ``U_chunk``, always rows gathered into a buffer of the pass.
     n_terms : number of terms ``expand`` writes.
     chunk_rows : rows per chunk.
 
@@ -285,8 +286,8 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
             # the block's rows gathered into one reused buffer (no sorted copy of U),
             # expanded and shifted at once; each set's rows are a slice of it
             block = buf[:stop - start]
-            expand(np.take(U, order[start:stop], axis=0, out=ubuf[:stop - start]),
-                   block[:, :P])
+            expand(np.take(U, order[start:stop], axis=0, out=ubuf[:stop - start],
+                           mode="clip"), block[:, :P])      # (no index is out of range)
             block[:, :P] -= shift_f
             for lab, c0, c1 in members:
                 R = buf[c0 - start:c1 - start]
