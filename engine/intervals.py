@@ -846,19 +846,24 @@ def _nested_cv_parts(design: CellDesign, fold_sum: list, k: int):
     for i, (kk, j) in enumerate(pairs):
         sel_inner[i, [kk, j]] = 0
     sel = np.vstack([sel_outer, sel_inner])
-    parts = [combine_batch(Moments(*fs), sel) for fs in fold_sum]
-    n_t = np.concatenate([p_[0] for p_ in parts])
-    m_t = np.concatenate([p_[1] for p_ in parts])
-    M_t = np.concatenate([p_[2] for p_ in parts])
-    fits = design.fit_summary(TermSummary(n_t, m_t, M_t), coefficients_only=True)
     R = len(fold_sum)
     per = sel.shape[0]
+    q = fold_sum[0][1].shape[1] if R else design.p + 1
+    # every repetition's training summaries written into one stack (no list of copies)
+    n_t, m_t, M_t = np.empty(R * per), np.empty((R * per, q)), np.empty((R * per, q, q))
+    for r, fs in enumerate(fold_sum):
+        at = slice(r * per, (r + 1) * per)
+        n_t[at], m_t[at], M_t[at] = combine_batch(Moments(*fs), sel)
+    fits = design.fit_summary(TermSummary(n_t, m_t, M_t), coefficients_only=True)
     j_idx = np.array([j for _, j in pairs])
     owner = np.array([kk for kk, _ in pairs])
     t_idx = np.concatenate([r * per + k + np.arange(len(pairs)) for r in range(R)])
     v_n = np.concatenate([fs[0][j_idx] for fs in fold_sum])
     v_m = np.concatenate([fs[1][j_idx] for fs in fold_sum])
-    v_M = np.concatenate([fs[2][j_idx] for fs in fold_sum])
+    v_M = np.empty((R * len(pairs), q, q))
+    for r, fs in enumerate(fold_sum):
+        np.take(fs[2], j_idx, axis=0, out=v_M[r * len(pairs):(r + 1) * len(pairs)],
+                mode="clip")                                # (indices in range)
     sse_in = sse(TermSummary(v_n, v_m, v_M), fits.summary.mean[t_idx],
                  fits.beta_u[t_idx][:, :, None])[:, 0].reshape(R, len(pairs))
     s_in = np.stack([np.bincount(owner, weights=sse_in[r], minlength=k) for r in range(R)])
