@@ -523,8 +523,11 @@ def _learning_labels(plan: FoldPlan, r: int, B: np.ndarray, n: int) -> np.ndarra
     """Piece of every row for round ``r``'s learning curve: (round piece, row block)."""
     rnd = plan.rounds[r]
     nb = len(B) - 1
-    block = np.searchsorted(B, np.arange(n), side="right") - 1
-    return np.where(rnd.pieces >= 0, rnd.pieces * nb + block, -1)
+    # B rises strictly from 0 to n: block j holds rows B[j] to B[j+1] - 1
+    label = rnd.pieces * nb
+    label += np.repeat(np.arange(nb, dtype=label.dtype), np.diff(B))
+    label[rnd.pieces < 0] = -1
+    return label
 
 
 #: Most bytes of (round piece x row block) summaries held for a learning curve.
@@ -655,7 +658,9 @@ def sweep_learning_pieces(basis: PolynomialBasis, data: DataLike, plan: FoldPlan
                           and np.all(rnd.pieces >= 0)) else 1
         if m > 1:
             sub = deal_rows(n, m, int(spec.seed))
-            st = piece_statistics(basis, data.X, data.y, labels * m + sub, L * m)
+            labels *= m             # (in place: the labels are this pass's own)
+            labels += sub
+            st = piece_statistics(basis, data.X, data.y, labels, L * m)
             grp = np.zeros((P * m, L * m), dtype=np.int8)   # (piece, subgroup), every block
             for p_ in range(P):
                 for g in range(m):
