@@ -7,9 +7,15 @@ prepare, then the design and the one row pass of the sweep
 system CPU seconds of each, with the load average. Start-up imports are not
 counted (they are timed by ``benchmarks/cli_small.py``).
 
+With ``--intervals`` the sweep as the command line runs it
+(`engine.analysis.analyse`, which makes that row pass again) and the
+intervals of the recommended cell (`engine.intervals.how_sure`, the second
+pass over the rows) follow, each timed on its own. Large arrays are on
+ordinary pages, as the command line has them (`engine.cli._small_pages`).
+
 Usage::
 
-    .venv/bin/python benchmarks/front_scale.py [--data FILE] [--rows 1000000]
+    .venv/bin/python benchmarks/front_scale.py [--data FILE] [--rows 1000000] [--intervals]
 
 Without ``--data`` the invented plant log of ``benchmarks/pack_scale.py`` is
 written to a temporary folder first (``--rows`` rows).
@@ -50,12 +56,16 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--data", default=None, help="CSV file (default: an invented one)")
     ap.add_argument("--rows", type=int, default=1_000_000)
+    ap.add_argument("--intervals", action="store_true",
+                    help="also time the sweep and the intervals (the second pass)")
     args = ap.parse_args()
 
     import numpy as np  # noqa: F401 - imported before the clock starts
 
     from engine import analysis, cli, loading, sweep  # noqa: F401
     from engine.analysis import make_basis, plan_for, sweep_learning_pieces
+
+    cli._small_pages()
 
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(args.data) if args.data else Path(tmp) / f"plant_{args.rows}.csv"
@@ -93,6 +103,12 @@ def main() -> None:
         clock.lap("design basis + plan")
         sweep_learning_pieces(basis, data, plan, spec, quiet)
         clock.lap("row pass")
+        if args.intervals:
+            from engine.intervals import how_sure
+            done = analysis.analyse(data, spec)
+            clock.lap("sweep (analyse)")
+            how_sure(done, data, spec)
+            clock.lap("intervals (how_sure)")
         sha = loaded.report.sha256
         clock.lap("fingerprint wait")
     load_after = os.getloadavg()

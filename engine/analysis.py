@@ -107,7 +107,6 @@ class Analysis:
     pieces: list | None = field(default=None, repr=False)
     learning_pieces: "LearningPieces | None" = field(default=None, repr=False)
     row_groups: "RowGroups | None" = field(default=None, repr=False)
-    scaled: np.ndarray | None = field(default=None, repr=False)   # basis.scale(X), large tables
 
     def all_rows_summary(self):
         """Summaries of every row at the sweep's full design, merged from the sweep's
@@ -359,8 +358,7 @@ def _analyse_plain(data: DataLike, spec: SweepSpec, progress: Progress | None = 
                     plan=plan, n_rows=int(len(data.y)), notes=list(res.notes) + notes,
                     request=spec if ran != spec else None, penalty_edges=edges,
                     pieces=pieces, learning_pieces=shared[1] if shared else None,
-                    row_groups=shared[2] if shared else None,
-                    scaled=shared[3] if shared else None)
+                    row_groups=shared[2] if shared else None)
 
 
 def _grid(res: SweepResult) -> tuple[float, ...]:
@@ -525,8 +523,11 @@ def _learning_labels(plan: FoldPlan, r: int, B: np.ndarray, n: int) -> np.ndarra
     """Piece of every row for round ``r``'s learning curve: (round piece, row block)."""
     rnd = plan.rounds[r]
     nb = len(B) - 1
-    block = np.searchsorted(B, np.arange(n), side="right") - 1
-    return np.where(rnd.pieces >= 0, rnd.pieces * nb + block, -1)
+    # B rises strictly from 0 to n: block j holds rows B[j] to B[j+1] - 1
+    label = rnd.pieces * nb
+    label += np.repeat(np.arange(nb, dtype=label.dtype), np.diff(B))
+    label[rnd.pieces < 0] = -1
+    return label
 
 
 #: Most bytes of (round piece x row block) summaries held for a learning curve.
@@ -636,16 +637,15 @@ def sweep_learning_pieces(basis: PolynomialBasis, data: DataLike, plan: FoldPlan
     the same pass: the nested cross-validation of the intervals reshuffles
     those groups (`engine.intervals.error_interval`).
 
-    Returns ``(sweep pieces per round, LearningPieces, RowGroups or None, scaled
-    inputs)``;
+    Returns ``(sweep pieces per round, LearningPieces, RowGroups or None)``;
     None when a round would need more than `LEARNING_PIECE_BYTES` of summaries.
+    The inputs are scaled chunk by chunk as the pass gathers them (no scaled copy).
     """
     n = len(data.y)
     q = basis.n_terms + 1
     sizes = train_sizes(spec.learning_sizes, len(plan.train_sets[0]))
     fine, coarse = [], []
     groups = None
-    U = basis.scale(data.X)     # once for every round (kept for the intervals)
     for r, rnd in enumerate(plan.rounds):
         _, _, B, nb = _learning_blocks(plan, r, sizes, n)
         P = rnd.n_pieces
@@ -658,7 +658,9 @@ def sweep_learning_pieces(basis: PolynomialBasis, data: DataLike, plan: FoldPlan
                           and np.all(rnd.pieces >= 0)) else 1
         if m > 1:
             sub = deal_rows(n, m, int(spec.seed))
-            st = piece_statistics(basis, data.X, data.y, labels * m + sub, L * m, U=U)
+            labels *= m             # (in place: the labels are this pass's own)
+            labels += sub
+            st = piece_statistics(basis, data.X, data.y, labels, L * m)
             grp = np.zeros((P * m, L * m), dtype=np.int8)   # (piece, subgroup), every block
             for p_ in range(P):
                 for g in range(m):
@@ -668,13 +670,13 @@ def sweep_learning_pieces(basis: PolynomialBasis, data: DataLike, plan: FoldPlan
             st = Moments(*combine_batch(st, np.kron(np.eye(L, dtype=np.int8),
                                                     np.ones((1, m), dtype=np.int8))))
         else:
-            st = piece_statistics(basis, data.X, data.y, labels, L, U=U)
+            st = piece_statistics(basis, data.X, data.y, labels, L)
         sel = np.kron(np.eye(P, dtype=np.int8), np.ones((1, nb), dtype=np.int8))
         coarse.append(Moments(*combine_batch(st, sel)))
         fine.append(st)
         if progress:
             progress(0.8 * (r + 1) / len(plan.rounds), "Summarising rows")
-    return coarse, LearningPieces(learning_key(spec, n, basis), fine, basis, plan), groups, U
+    return coarse, LearningPieces(learning_key(spec, n, basis), fine, basis, plan), groups
 
 
 def _split_learning_statistics(basis, data, plan, i, sizes):

@@ -142,8 +142,13 @@ class PolynomialBasis:
         p = self.n_terms if order is None else self.n_terms_at(order)
         return [term_name(t, self.input_names) for t in self.terms[:p]]
 
-    def scale(self, X: np.ndarray) -> np.ndarray:
-        U = np.subtract(np.asarray(X, dtype=float), self.centre)   # one new array, then in place
+    def scale(self, X: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        """Scaled inputs ``(X - centre) / half_range``; into ``out`` when given (it may be
+        ``X`` itself), otherwise one new array."""
+        if out is None:
+            U = np.subtract(np.asarray(X, dtype=float), self.centre)
+        else:
+            U = np.subtract(X, self.centre, out=out)
         U /= self.half_range
         return U
 
@@ -165,7 +170,10 @@ class PolynomialBasis:
             out[:, :d] = U
             kmax = p // d
             if kmax >= 2:
-                U2 = out[:, :d] + out[:, :d]    # laid out like `out` (same values as U + U)
+                # 2u is held in the last block of columns, written last (in place, from
+                # itself), so the expansion allocates nothing
+                U2 = out[:, (kmax - 1) * d:kmax * d]
+                np.add(out[:, :d], out[:, :d], out=U2)
                 for k in range(2, kmax + 1):
                     dst = out[:, (k - 1) * d:k * d]
                     np.multiply(out[:, (k - 2) * d:(k - 1) * d], U2, out=dst)

@@ -113,7 +113,6 @@ class CellDesign:
     family: str = "ridge"
     l1_ratio: float = 0.0
     _F: np.ndarray | None = field(default=None, repr=False)
-    _U: np.ndarray | None = field(default=None, repr=False)
 
     @classmethod
     def make(cls, data, spec: SweepSpec, order: int, penalty: float, family: str = "ridge",
@@ -137,13 +136,6 @@ class CellDesign:
     def p(self) -> int:
         return int(self.basis.n_terms)
 
-    @property
-    def U(self) -> np.ndarray:
-        """Scaled inputs of every row (formed once)."""
-        if self._U is None:
-            self._U = self.basis.scale(self.X)
-        return self._U
-
     def rows(self, idx: np.ndarray | None = None) -> np.ndarray:
         """Working-basis terms of the given rows.
 
@@ -152,16 +144,21 @@ class CellDesign:
         expanded (the full design is never held).
         """
         if self._F is None and idx is not None and self.y.size >= LARGE_ROWS:
-            return self.basis.expand_scaled(self.U[idx]) if self.p else np.zeros((len(idx), 0))
+            return (self.basis.expand_scaled(self.basis.scale(self.X[idx])) if self.p
+                    else np.zeros((len(idx), 0)))
         if self._F is None:
-            self._F = self.basis.expand_scaled(self.U) if self.p else np.zeros((len(self.y), 0))
+            self._F = (self.basis.expand_scaled(self.basis.scale(self.X)) if self.p
+                       else np.zeros((len(self.y), 0)))
         return self._F if idx is None else self._F[idx]
 
     def moments(self, labels: np.ndarray, n_sets: int):
-        """Per-label summaries of ``[terms, y]``: one chunked pass over the rows."""
-        return design_moments(self.U, self.y, labels, n_sets,
-                              lambda Uc, out: self.basis.expand_scaled(Uc, out=out), self.p,
-                              chunk_rows=CHUNK_ROWS)
+        """Per-label summaries of ``[terms, y]``: one chunked pass over the rows (each
+        chunk of inputs scaled where the pass gathered it: no scaled copy of them all)."""
+        basis = self.basis
+        return design_moments(self.X, self.y, labels, n_sets,
+                              lambda Xc, out: basis.expand_scaled(basis.scale(Xc, out=Xc),
+                                                                  out=out),
+                              self.p, chunk_rows=CHUNK_ROWS)
 
     def summaries(self, sets: list[np.ndarray]) -> TermSummary:
         """Summaries of every row set (one pass over the rows for all of them)."""
@@ -212,22 +209,29 @@ class CellDesign:
     def residuals_of(self, beta_u: np.ndarray, c: np.ndarray, assign: np.ndarray) -> np.ndarray:
         """`residuals` of fits given by working-basis coefficients ``beta_u`` (S, p) and
         intercepts ``c`` (S,); each chunk of rows is multiplied by the fits it needs only."""
-        assign = np.atleast_2d(np.asarray(assign, dtype=np.int64))
+        assign = _fit_numbers(assign)
         A_, n = assign.shape
         out = np.full((A_, n), np.nan)
         p = self.p
         S = c.size
         step = _step(p)
-        buf = np.empty((min(step, n), p), order="F")
+        m = min(step, n)
+        ubuf = np.empty((m, self.X.shape[1]))   # one chunk's scaled inputs, terms and
+        buf = np.empty((m, p), order="F")       # predictions, reused by every chunk
+        pbuf = np.empty(0)                      # (grown as needed)
+        pos = np.zeros(S, dtype=np.int64)
         for c0 in range(0, n, step):
             c1 = min(c0 + step, n)
             sub = assign[:, c0:c1]
             cols = np.flatnonzero(np.bincount(sub[sub >= 0], minlength=S))
-            pos = np.zeros(S, dtype=np.int64)
             pos[cols] = np.arange(cols.size)
             if p and cols.size:
-                P = self.basis.expand_scaled(self.U[c0:c1], out=buf[:c1 - c0]) @ \
-                    np.ascontiguousarray(beta_u[cols].T)
+                if pbuf.size < (c1 - c0) * cols.size:
+                    pbuf = np.empty(m * cols.size)
+                Uc = self.basis.scale(self.X[c0:c1], out=ubuf[:c1 - c0])
+                P = np.matmul(self.basis.expand_scaled(Uc, out=buf[:c1 - c0]),
+                              np.ascontiguousarray(beta_u[cols].T),
+                              out=pbuf[:(c1 - c0) * cols.size].reshape(c1 - c0, cols.size))
                 P += c[cols]
             else:
                 P = np.broadcast_to(c[cols], (c1 - c0, cols.size))
@@ -261,37 +265,58 @@ def _ridge_by_solve(summary: TermSummary, raw: RawMap, penalty: float):
 
     The standardisation is that of `engine.families.base.standardise`, with the raw map
     scaled once when it is the same for every set (as `RawMap.select` gives it for one
-    term set) rather than once per set.
+    term set) rather than once per set. The systems are then formed, checked and
+    solved `_SOLVE_SETS` sets at a time (each set's numbers are those of the whole
+    batch at once), so no stack of every set's ``p x p`` matrices is held.
     """
     from .families.base import FamilyFit, standardise
     p = summary.p
+    S = summary.n_sets
+    ridge = penalty * np.eye(p)
+    W = np.empty((S, p, 1))
     if raw.A.ndim == 3 and raw.A.shape[0] and raw.A.strides[0] == 0:
         A = raw.A[0]
         r = np.abs(A).max(axis=1)
         r = np.where(r > 0, r, 1.0)
         As = A / r[:, None]
-        Mff = summary.M[:, :p, :p]
         Mfy = summary.M[:, :p, -1]
-        Mraw = As @ Mff @ As.T
-        craw = np.einsum("sj,sij->si", Mfy, np.broadcast_to(As, (summary.n_sets, p, p)))
-        var = np.clip(np.diagonal(Mraw, axis1=1, axis2=2), 0, None) / summary.n[:, None]
-        ds = np.where(~(var > 0), 1.0, np.sqrt(var))
-        G = Mraw / (ds[:, :, None] * ds[:, None, :])
-        c = craw / ds
+        craw = np.einsum("sj,sij->si", Mfy, np.broadcast_to(As, (S, p, p)))
+        ds = np.empty((S, p))
+        for b0 in range(0, S, _SOLVE_SETS):
+            b1 = min(b0 + _SOLVE_SETS, S)
+            G = As @ summary.M[b0:b1, :p, :p] @ As.T        # Mraw, made G in place
+            var = np.clip(np.diagonal(G, axis1=1, axis2=2), 0, None) / summary.n[b0:b1, None]
+            d = ds[b0:b1] = np.where(~(var > 0), 1.0, np.sqrt(var))
+            G /= d[:, :, None] * d[:, None, :]
+            if not _solve_into(W[b0:b1], np.add(G, ridge, out=G), craw[b0:b1] / d):
+                return None
         AsT = As.T
     else:
         st = standardise(summary, raw)
         G, c, ds, AsT = st.G, st.c, st.ds, st.As.transpose(0, 2, 1)
-    Gs = G + penalty * np.eye(p)[None, :, :]
-    try:
-        np.linalg.cholesky(Gs)          # positive definite, as the penalty makes it
-    except np.linalg.LinAlgError:
-        return None
+        for b0 in range(0, S, _SOLVE_SETS):
+            b1 = min(b0 + _SOLVE_SETS, S)
+            if not _solve_into(W[b0:b1], G[b0:b1] + ridge, c[b0:b1]):
+                return None
     fit = FamilyFit.empty(summary, 1)
-    W = np.linalg.solve(Gs, c[:, :, None])
     fit.beta_u[:, :, 0:1] = AsT @ (W / ds[:, :, None])
     fit.edf[:, 0] = np.nan
     return fit
+
+
+#: Ridge systems formed and solved together by `_ridge_by_solve`.
+_SOLVE_SETS = 16
+
+
+def _solve_into(W: np.ndarray, Gs: np.ndarray, c: np.ndarray) -> bool:
+    """``W = Gs^-1 c`` for a stack of systems; False (W untouched) when one is not
+    positive definite."""
+    try:
+        np.linalg.cholesky(Gs)          # positive definite, as the penalty makes it
+    except np.linalg.LinAlgError:
+        return False
+    W[...] = np.linalg.solve(Gs, c[:, :, None])
+    return True
 
 
 @dataclass
@@ -700,7 +725,8 @@ def _fold_error_stats(design: CellDesign, fits: "SetFits", fold_of, k: int, shif
     if extra is not None:
         beta = np.vstack([beta, extra[0]])
         c = np.r_[c, extra[1]]
-        assign = np.vstack([assign, np.where(extra[2] >= 0, extra[2] + S1, -1)])
+        more = _fit_numbers(extra[2])
+        assign = np.vstack([assign, np.where(more >= 0, more.astype(np.int64) + S1, -1)])
     res = design.residuals_of(beta, c, assign)
     cnt, s1, s2 = np.zeros((R, k)), np.zeros((R, k)), np.zeros((R, k))
     for r in range(R):
@@ -713,11 +739,40 @@ def _fold_error_stats(design: CellDesign, fits: "SetFits", fold_of, k: int, shif
     return (cnt, s1, s2) if extra is None else ((cnt, s1, s2), res[R:])
 
 
+def _uniform_fits(assign: np.ndarray, group: np.ndarray, first: np.ndarray,
+                  block: int = 1 << 16) -> np.ndarray:
+    """``(A, G)``: the fit of every output row in every group when all the group's rows
+    share one (their value in ``assign``), else -2; ``first`` holds one row of each group.
+
+    Found in sequential passes over blocks of rows (small buffers, reused), rather
+    than by gathering rows group by group.
+    """
+    A_, n = assign.shape
+    same = assign[:, first]
+    at_first = np.empty(min(block, n), dtype=same.dtype)
+    differs = np.empty(min(block, n), dtype=bool)
+    for a in range(A_):
+        found = []
+        for i0 in range(0, n, block):
+            i1 = min(i0 + block, n)
+            g = group[i0:i1]
+            np.take(same[a], g, out=at_first[:i1 - i0], mode="clip")   # labels are in range
+            np.not_equal(assign[a, i0:i1], at_first[:i1 - i0], out=differs[:i1 - i0])
+            if differs[:i1 - i0].any():
+                found.append(g[differs[:i1 - i0]])
+        if found:
+            same[a, np.unique(np.concatenate(found))] = -2
+    return same
+
+
 def _grouped_error_stats(design: CellDesign, beta_u: np.ndarray, c_out: np.ndarray, fold_of,
                          k: int, shift: float, extra: tuple | None):
     """`_fold_error_stats` on folds that are unions of row groups: rows taken group by
     group, each multiplied by the ``R`` outer fits it needs and the ``extra`` fits its
-    rows are assigned (usually one per output row within a group)."""
+    rows are assigned (usually one per output row within a group).
+
+    Every chunk of rows is gathered, expanded, multiplied and squared in buffers
+    allocated once for the pass."""
     group, of = fold_of
     R, G = of.shape
     n = design.y.size
@@ -727,60 +782,72 @@ def _grouped_error_stats(design: CellDesign, beta_u: np.ndarray, c_out: np.ndarr
     bounds = np.r_[0, np.cumsum(np.bincount(group, minlength=G))]
     p = design.p
     step = _step(p)
-    buf = np.empty((min(step, n), p), order="F")
+    m = min(step, n)
+    X, y = design.X, design.y
+    ubuf = np.empty((m, X.shape[1]))
+    buf = np.empty((m, p), order="F")
+    ybuf = np.empty(m)
+    ebuf = np.empty(R * m)
     ar = np.arange(R)
     if extra is not None:
         beta_x, c_x, assign_x = extra
-        assign_x = np.atleast_2d(np.asarray(assign_x, dtype=np.int64))
+        assign_x = _fit_numbers(assign_x)
         A_ = assign_x.shape[0]
         res = np.full((A_, n), np.nan)
         beta_all = np.vstack([beta_u, beta_x])
         c_all = np.r_[c_out, c_x]
         S1, S2 = c_out.size, c_x.size
-        # the fit of each output row in each group when all its rows share one (-2: not so);
-        # found in sequential passes rather than by gathering rows group by group
-        first = order[np.minimum(bounds[:-1], max(n - 1, 0))]
-        same = assign_x[:, first]
-        for a in range(A_):
-            differs = np.unique(group[assign_x[a] != same[a, group]])
-            same[a, differs] = -2
+        same = _uniform_fits(assign_x, group, order[np.minimum(bounds[:-1], max(n - 1, 0))])
+        rbuf = np.empty(m)
+        pos = np.zeros(S2, dtype=np.int64)
     else:
-        beta_all, c_all, res = beta_u, c_out, None
+        beta_all, c_all, res, S2 = beta_u, c_out, None, 0
+    pbuf = np.empty((R + S2) * m)
     for g in range(G):
         cols = ar * k + of[:, g]
         for c0 in range(bounds[g], bounds[g + 1], step):
             rows = order[c0:min(c0 + step, bounds[g + 1])]
+            mr = rows.size
             if extra is not None:
                 one = same[:, g]
                 sub = assign_x[:, rows] if np.any(one == -2) else None
                 fits_x = one[one >= 0] if sub is None else sub[sub >= 0]
                 need = np.flatnonzero(np.bincount(fits_x, minlength=S2))
-                pos = np.zeros(S2, dtype=np.int64)
                 pos[need] = R + np.arange(need.size)
                 take = np.r_[cols, S1 + need]
             else:
                 take = cols
             # predictions one fit per row of PT (each fit's values contiguous)
             if p:
-                F = design.basis.expand_scaled(design.U[rows], out=buf[:rows.size])
-                PT = beta_all[take] @ F.T
+                Uc = np.take(X, rows, axis=0, out=ubuf[:mr], mode="clip")
+                F = design.basis.expand_scaled(design.basis.scale(Uc, out=Uc), out=buf[:mr])
+                PT = np.matmul(beta_all[take], F.T, out=pbuf[:take.size * mr].reshape(-1, mr))
                 PT += c_all[take][:, None]
             else:
-                PT = np.broadcast_to(c_all[take][:, None], (take.size, rows.size))
-            yr = design.y[rows]
-            e = (yr - PT[:R]) ** 2 - shift
-            cnt[ar, of[:, g]] += rows.size
+                PT = np.broadcast_to(c_all[take][:, None], (take.size, mr))
+            yr = np.take(y, rows, out=ybuf[:mr], mode="clip")
+            e = np.subtract(yr, PT[:R], out=ebuf[:R * mr].reshape(R, mr))
+            np.square(e, out=e)
+            e -= shift
+            cnt[ar, of[:, g]] += mr
             s1[ar, of[:, g]] += e.sum(axis=1)
-            s2[ar, of[:, g]] += (e * e).sum(axis=1)
+            np.square(e, out=e)
+            s2[ar, of[:, g]] += e.sum(axis=1)
             if extra is not None:
                 for a in range(A_):
                     if one[a] >= 0:
-                        res[a, rows] = yr - PT[pos[one[a]]]
+                        res[a, rows] = np.subtract(yr, PT[pos[one[a]]], out=rbuf[:mr])
                     elif one[a] == -2:
                         s = sub[a]
                         at = np.flatnonzero(s >= 0)
                         res[a, rows[at]] = yr[at] - PT[pos[s[at]], at]
     return (cnt, s1, s2), res
+
+
+def _fit_numbers(assign) -> np.ndarray:
+    """``assign`` as a 2-d array of integers (its own integer type kept: no copy)."""
+    assign = np.atleast_2d(np.asarray(assign))
+    return assign if assign.dtype.kind in "iu" else assign.astype(np.int64)
 
 
 def _nested_cv_parts(design: CellDesign, fold_sum: list, k: int):
@@ -797,19 +864,24 @@ def _nested_cv_parts(design: CellDesign, fold_sum: list, k: int):
     for i, (kk, j) in enumerate(pairs):
         sel_inner[i, [kk, j]] = 0
     sel = np.vstack([sel_outer, sel_inner])
-    parts = [combine_batch(Moments(*fs), sel) for fs in fold_sum]
-    n_t = np.concatenate([p_[0] for p_ in parts])
-    m_t = np.concatenate([p_[1] for p_ in parts])
-    M_t = np.concatenate([p_[2] for p_ in parts])
-    fits = design.fit_summary(TermSummary(n_t, m_t, M_t), coefficients_only=True)
     R = len(fold_sum)
     per = sel.shape[0]
+    q = fold_sum[0][1].shape[1] if R else design.p + 1
+    # every repetition's training summaries written into one stack (no list of copies)
+    n_t, m_t, M_t = np.empty(R * per), np.empty((R * per, q)), np.empty((R * per, q, q))
+    for r, fs in enumerate(fold_sum):
+        at = slice(r * per, (r + 1) * per)
+        n_t[at], m_t[at], M_t[at] = combine_batch(Moments(*fs), sel)
+    fits = design.fit_summary(TermSummary(n_t, m_t, M_t), coefficients_only=True)
     j_idx = np.array([j for _, j in pairs])
     owner = np.array([kk for kk, _ in pairs])
     t_idx = np.concatenate([r * per + k + np.arange(len(pairs)) for r in range(R)])
     v_n = np.concatenate([fs[0][j_idx] for fs in fold_sum])
     v_m = np.concatenate([fs[1][j_idx] for fs in fold_sum])
-    v_M = np.concatenate([fs[2][j_idx] for fs in fold_sum])
+    v_M = np.empty((R * len(pairs), q, q))
+    for r, fs in enumerate(fold_sum):
+        np.take(fs[2], j_idx, axis=0, out=v_M[r * len(pairs):(r + 1) * len(pairs)],
+                mode="clip")                                # (indices in range)
     sse_in = sse(TermSummary(v_n, v_m, v_M), fits.summary.mean[t_idx],
                  fits.beta_u[t_idx][:, :, None])[:, 0].reshape(R, len(pairs))
     s_in = np.stack([np.bincount(owner, weights=sse_in[r], minlength=k) for r in range(R)])
@@ -1242,7 +1314,10 @@ def _intervals_job(data, spec: SweepSpec, order: int, penalty: float, level: flo
     inner_fits = design.fit_summary(TermSummary(summ.n[rest], summ.mean[rest], summ.M[rest]))
     # residuals: each round's validation rows under their split model, and each split's
     # inner validation rows under their inner model (fits numbered split, then inner)
-    assign = np.full((len(rounds) + S, n), -1, dtype=np.int64)
+    # the smallest integers that number every fit (the table is as long as the rows)
+    n_fits = S + 1 + int(inner_first[-1])
+    assign = np.full((len(rounds) + S, n), -1,
+                     dtype=np.int16 if n_fits < (1 << 15) else np.int64)
     s0 = 0
     for r, rnd in enumerate(rounds):
         for kk in range(len(rnd)):
@@ -1386,22 +1461,19 @@ def how_sure(analysis, data, spec: SweepSpec | None = None, level: float = LEVEL
     family = str(getattr(rec, "family", None) or "ridge")
     l1 = float(getattr(rec, "l1_ratio", None) or 0.0)
     try:
-        # one design (scaled inputs kept) serves both; BLAS on one thread for the many
+        # one design serves both; BLAS on one thread for the many
         # small solves, the row passes pick their own
         with one_thread():
             plain = analysis.model_data is None
-            scaled = getattr(analysis, "scaled", None)
             b = getattr(analysis, "basis", None)
-            # the sweep's design of these rows (large tables): no second look at every row
-            same = (plain and scaled is not None and b is not None
-                    and scaled.shape == np.shape(data_w.X) and b.input_names == spec_w.inputs
-                    and b.interactions == spec_w.interactions)
+            # the sweep's design of these rows (large tables, whose one pass served the sweep
+            # and the learning curve): no second look at every row
+            same = (plain and getattr(analysis, "learning_pieces", None) is not None
+                    and b is not None and analysis.n_rows == len(data_w.y)
+                    and b.centre.shape == (np.shape(data_w.X)[1],)
+                    and b.input_names == spec_w.inputs and b.interactions == spec_w.interactions)
             design = CellDesign.make(data_w, spec_w, rec.order, rec.penalty, family, l1,
                                      basis=b if same else None)
-            if (plain and scaled is not None and scaled.shape == design.X.shape
-                    and np.array_equal(design.basis.centre, analysis.basis.centre)
-                    and np.array_equal(design.basis.half_range, analysis.basis.half_range)):
-                design._U = scaled          # the sweep's scaled inputs: the same values
             err = _error_job(data_w, spec_w, rec.order, rec.penalty, level, None, None, family,
                              l1, progress, design, analysis.row_groups if plain else None)
             # the sweep's piece summaries give every training set (plain analyses)

@@ -236,7 +236,8 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
     y : (n,) target, or (n, T) several targets.
     labels : (n,) set of each row, ``-1`` for rows no set uses.
     n_sets : number of sets.
-    expand : ``expand(U_chunk, out)`` writes the chunk's terms into ``out``.
+    expand : ``expand(U_chunk, out)`` writes the chunk's terms into ``out``; it may
+        overwrite ``U_chunk``, always rows gathered into a buffer of the pass.
     n_terms : number of terms ``expand`` writes.
     chunk_rows : rows per chunk.
 
@@ -281,28 +282,36 @@ def design_moments(U: np.ndarray, y: np.ndarray, labels: np.ndarray, n_sets: int
         buf[:, P] = 1.0
         G_full = np.empty((q, q))
         s = np.empty(q)
+        # each chunk's cross-products, shifted targets and co-moment, in the same buffers
+        G = np.empty((P + 1, P + 1))
+        r = np.empty((n_targets, rows))
+        M_b = np.empty((q, q))
         for start, stop, members in blocks:
             # the block's rows gathered into one reused buffer (no sorted copy of U),
             # expanded and shifted at once; each set's rows are a slice of it
             block = buf[:stop - start]
-            expand(np.take(U, order[start:stop], axis=0, out=ubuf[:stop - start]),
-                   block[:, :P])
+            expand(np.take(U, order[start:stop], axis=0, out=ubuf[:stop - start],
+                           mode="clip"), block[:, :P])      # (no index is out of range)
             block[:, :P] -= shift_f
             for lab, c0, c1 in members:
                 R = buf[c0 - start:c1 - start]
-                G = R.T @ R
+                np.matmul(R.T, R, out=G)
                 m = G[P, P]
                 G_full[:P, :P] = G[:P, :P]
                 s[:P] = G[:P, P]
-                r = [v[c0:c1] - sh for v, sh in zip(ys, shift_y)]
                 for t in range(n_targets):
-                    g = R.T @ r[t]
+                    np.subtract(ys[t][c0:c1], shift_y[t], out=r[t, :c1 - c0])
+                for t in range(n_targets):
+                    g = R.T @ r[t, :c1 - c0]
                     G_full[:P, P + t] = g[:P]
                     G_full[P + t, :P] = g[:P]
                     s[P + t] = g[P]
                     for u in range(t + 1):
-                        G_full[P + t, P + u] = G_full[P + u, P + t] = r[t] @ r[u]
-                merge_into(acc, lab, m, shift + s / m, G_full - np.outer(s, s) / m)
+                        G_full[P + t, P + u] = G_full[P + u, P + t] = \
+                            r[t, :c1 - c0] @ r[u, :c1 - c0]
+                np.outer(s, s, out=M_b)
+                M_b /= m
+                merge_into(acc, lab, m, shift + s / m, np.subtract(G_full, M_b, out=M_b))
 
     blocks = list(_blocks(segments, block_rows))
     if max((c1 - c0 for _, c0, c1 in segments), default=0) >= LARGE_PRODUCT_ROWS:

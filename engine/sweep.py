@@ -284,9 +284,14 @@ def piece_statistics(basis: PolynomialBasis, X: np.ndarray, y: np.ndarray,
                      pieces: np.ndarray, n_pieces: int, chunk_rows: int = 32768,
                      U: np.ndarray | None = None) -> Moments:
     """Per-piece summaries of ``[terms(X), y]`` at the basis's highest order
-    (``U``: ``basis.scale(X)`` when the caller already has it)."""
-    U = basis.scale(X) if U is None else U
+    (``U``: ``basis.scale(X)`` when the caller already has it; otherwise each chunk of
+    rows is scaled where it was gathered, the same values, and no scaled copy of ``X``
+    is made)."""
     P = basis.n_terms
+    if U is None:
+        return design_moments(np.asarray(X, dtype=float), np.asarray(y, float), pieces,
+                              n_pieces, lambda Xc, out: basis.expand_scaled(
+                                  basis.scale(Xc, out=Xc), out=out), P, chunk_rows=chunk_rows)
     return design_moments(U, np.asarray(y, float), pieces, n_pieces,
                           lambda Uc, out: basis.expand_scaled(Uc, out=out), P,
                           chunk_rows=chunk_rows)
