@@ -962,9 +962,9 @@ def _small_pages() -> None:
 
 #: glibc ``mallopt`` parameters and the values the command line sets (see `_kept_memory`)
 _M_TRIM_THRESHOLD, _M_TOP_PAD, _M_MMAP_THRESHOLD = -1, -2, -3
-_KEPT_MEMORY = {_M_MMAP_THRESHOLD: 32 << 20,     # glibc's largest: arrays below it reuse freed memory
-                _M_TRIM_THRESHOLD: (1 << 31) - 1,    # freed memory stays with the process
-                _M_TOP_PAD: 64 << 20}            # the heap grows in steps of 64 MB
+_KEPT_MEMORY = {_M_MMAP_THRESHOLD: 32 << 20,       # glibc's largest: smaller blocks are reused
+                _M_TRIM_THRESHOLD: (1 << 31) - 1,  # freed memory stays with the process
+                _M_TOP_PAD: 64 << 20}              # the heap grows in steps of 64 MB
 
 
 def _kept_memory() -> bool:

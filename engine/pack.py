@@ -420,8 +420,9 @@ class _ModelFileWriter:
     small pack; a child process forked from a single-threaded parent does it
     on another core, and the parent does not import them for it (a shuffled
     k-fold run's main process never imports scikit-learn). The parent checks
-    the child's exit status and writes the file itself if the child failed. Without fork (or with other threads
-    running, where forking is unsafe) the file is written in this process.
+    the child's exit status and writes the file itself if the child failed.
+    Without fork (or with other threads running, where forking is unsafe) the
+    file is written in this process.
     """
 
     def __init__(self, model: FinalModel, path: Path, background: bool) -> None:
