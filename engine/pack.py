@@ -1264,6 +1264,15 @@ def sureness(analysis: Analysis, data: DataLike, spec: SweepSpec,
     return sure, outlook, notes + more_notes
 
 
+def _intervals(analysis: Analysis, data: DataLike) -> tuple[Any, list[str]]:
+    """The intervals of `sureness`, or None and the reason."""
+    from .intervals import how_sure
+    try:
+        return how_sure(analysis, data, analysis.spec), []
+    except InputProblem as exc:
+        return None, [f"Intervals not computed: {exc.message}"]
+
+
 def _outlook(analysis: Analysis, data: DataLike, spec: SweepSpec,
              learning: Any | None = None) -> tuple[Any, list[str]]:
     """The larger-table outlook of `sureness`, or None and the reason."""
@@ -1832,6 +1841,25 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             work = folder.work
         if renderer is None:  # a forked child starts vl-convert now and draws meanwhile
             renderer = stack.enter_context(ChartRenderer(fork=model_file_in_background))
+        model_writer = _ModelFileWriter(model, work / "model.skops", model_file_in_background)
+        from .fingerprint import in_background
+        ahead = None
+        if checks is None:
+            # the checks' passes over the rows that need only the data and this model run
+            # in a thread beside the learning curve, the intervals and the charts (started
+            # after the model file's child is forked: a fork beside threads is unsafe)
+            from .checks import checks_ahead
+            ahead = in_background(checks_ahead, data, analysis, model, name="fitladder-checks")
+        if sure is not None and hasattr(sure, "result"):  # the page's background job
+            try:
+                sure = sure.result()
+            except Exception:  # noqa: BLE001 - computed here instead
+                sure = None
+        # the intervals (mostly array arithmetic, which lets other threads run) in a
+        # thread beside the charts' imports and building and the learning curve
+        # (the page passes all three of `sureness`, computed in its background job)
+        intervals = (in_background(_intervals, analysis, data, name="fitladder-intervals")
+                     if sure is None else None)
         from . import charts as _charts
 
         def draw(chart_objs: dict):
@@ -1839,48 +1867,10 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             return renderer.submit({stem: _charts.for_print(ch, 75)
                                     for stem, ch in chart_objs.items()})
 
-        # the sweep's charts need nothing more: drawn while the rest is computed (sent
-        # before the model file's child starts, so that the drawing starts first)
+        # the sweep's charts need nothing more: drawn while the rest is computed
         drawing = [draw(make_charts(analysis, None, None, None, cells, stems=SWEEP_CHARTS))]
-        model_writer = _ModelFileWriter(model, work / "model.skops", model_file_in_background)
-        ahead = None
-        if checks is None:
-            # the checks' passes over the rows that need only the data and this model run
-            # in a thread beside the learning curve, the intervals and the charts (started
-            # after the model file's child is forked: a fork beside threads is unsafe)
-            from .checks import checks_ahead
-            from .fingerprint import in_background
-            ahead = in_background(checks_ahead, data, analysis, model, name="fitladder-checks")
-        if sure is not None and hasattr(sure, "result"):  # the page's background job
-            try:
-                sure = sure.result()
-            except Exception:  # noqa: BLE001 - computed here instead
-                sure = None
-        sure_notes: list[str] = []
-        here = sure is None     # the page passes all three, computed in its background job
-        if here:
-            # the intervals first: the side-by-side chart, the costliest to draw, is then
-            # drawn while the learning curve, the outlook and the checks are computed
-            if progress:
-                progress(0.62, "Intervals")
-            from .intervals import how_sure
-            try:
-                sure = how_sure(analysis, data, analysis.spec)
-            except InputProblem as exc:
-                sure_notes.append(f"Intervals not computed: {exc.message}")
-            sure = (sure, None, sure_notes)
-        sure, outlook, sure_notes = sure
-        band = None
-        if sure is not None and (sure.order, sure.penalty) in {_cell_key(q, a) for q, a in cells}:
-            from .intervals import band_table
-            band = band_table(sure, data)
         if progress:
-            progress(0.66, "Drawing charts")
-        drawing.append(draw(make_charts(analysis, None, models, data, cells, band=band,
-                                        stems=[s for s in CHART_FILES if s not in SWEEP_CHARTS
-                                               and s != "learning_curve"])))
-        if progress:
-            progress(0.68, "Learning curve")
+            progress(0.62, "Learning curve")
         lc_orders = sorted({q for q, _ in learning_cells(cells)})
         lc = learning
         lc_all = None
@@ -1892,7 +1882,22 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             lc = lc_all.restrict(orders=lc_orders)
         drawing.append(draw(make_charts(analysis, lc.table, None, None, cells, lc.note,
                                         stems=("learning_curve",))))
-        if here:
+        if intervals is not None:
+            if progress:
+                progress(0.66, "Intervals")
+            (sure, sure_notes), outlook = intervals(), None
+        else:
+            sure, outlook, sure_notes = sure
+        band = None
+        if sure is not None and (sure.order, sure.penalty) in {_cell_key(q, a) for q, a in cells}:
+            from .intervals import band_table
+            band = band_table(sure, data)
+        if progress:
+            progress(0.68, "Drawing charts")
+        drawing.append(draw(make_charts(analysis, None, models, data, cells, band=band,
+                                        stems=[s for s in CHART_FILES if s not in SWEEP_CHARTS
+                                               and s != "learning_curve"])))
+        if intervals is not None:
             if progress:
                 progress(0.70, "Outlook for a larger table")
             outlook, more_notes = _outlook(analysis, data, analysis.spec, lc_all)
