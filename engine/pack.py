@@ -1856,10 +1856,20 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             except Exception:  # noqa: BLE001 - computed here instead
                 sure = None
         # the intervals (mostly array arithmetic, which lets other threads run) in a
-        # thread beside the charts' imports and building and the learning curve
+        # thread beside the charts' imports and building and the learning curve's thread
         # (the page passes all three of `sureness`, computed in its background job)
         intervals = (in_background(_intervals, analysis, data, name="fitladder-intervals")
                      if sure is None else None)
+        lc_orders = sorted({q for q, _ in learning_cells(cells)})
+        lc = learning
+        lc_job = None
+        if lc is None or not set(lc_orders) <= {int(q) for q in lc.table["order"]}:
+            # every order at once (one pass): the larger-table outlook reads the same
+            # curve; in a third thread, so that the side-by-side chart, the costliest to
+            # draw, is sent as soon as the intervals are ready
+            lc_job = in_background(learning_curve, data, analysis.spec,
+                                   sorted(set(analysis.spec.order_list()) | set(lc_orders)),
+                                   None, analysis.learning_pieces, name="fitladder-learning")
         from . import charts as _charts
 
         def draw(chart_objs: dict):
@@ -1869,22 +1879,9 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
 
         # the sweep's charts need nothing more: drawn while the rest is computed
         drawing = [draw(make_charts(analysis, None, None, None, cells, stems=SWEEP_CHARTS))]
-        if progress:
-            progress(0.62, "Learning curve")
-        lc_orders = sorted({q for q, _ in learning_cells(cells)})
-        lc = learning
-        lc_all = None
-        if lc is None or not set(lc_orders) <= {int(q) for q in lc.table["order"]}:
-            # every order at once (one pass): the larger-table outlook reads the same curve
-            lc_all = learning_curve(data, analysis.spec,
-                                    orders=sorted(set(analysis.spec.order_list()) | set(lc_orders)),
-                                    pieces=analysis.learning_pieces)
-            lc = lc_all.restrict(orders=lc_orders)
-        drawing.append(draw(make_charts(analysis, lc.table, None, None, cells, lc.note,
-                                        stems=("learning_curve",))))
         if intervals is not None:
             if progress:
-                progress(0.66, "Intervals")
+                progress(0.62, "Intervals")
             (sure, sure_notes), outlook = intervals(), None
         else:
             sure, outlook, sure_notes = sure
@@ -1893,10 +1890,18 @@ def build_pack(out_dir: "str | Path | PackFolder", *, loaded: Any | None, source
             from .intervals import band_table
             band = band_table(sure, data)
         if progress:
-            progress(0.68, "Drawing charts")
+            progress(0.66, "Drawing charts")
         drawing.append(draw(make_charts(analysis, None, models, data, cells, band=band,
                                         stems=[s for s in CHART_FILES if s not in SWEEP_CHARTS
                                                and s != "learning_curve"])))
+        if progress:
+            progress(0.68, "Learning curve")
+        lc_all = None
+        if lc_job is not None:
+            lc_all = lc_job()
+            lc = lc_all.restrict(orders=lc_orders)
+        drawing.append(draw(make_charts(analysis, lc.table, None, None, cells, lc.note,
+                                        stems=("learning_curve",))))
         if intervals is not None:
             if progress:
                 progress(0.70, "Outlook for a larger table")

@@ -460,8 +460,8 @@ def test_no_thread_of_the_pack_runs_when_the_model_file_child_is_forked(monkeypa
                                                                         demo_dir):
     """The model file's child is forked only while no other thread runs (a fork beside
     threads is unsafe, and the writer then falls back to writing in this process):
-    the checks' thread (`engine.checks.checks_ahead`) and the intervals' thread are started
-    after the writer."""
+    the checks' thread (`engine.checks.checks_ahead`), the intervals' and the learning
+    curve's threads are started after the writer."""
     from engine import fingerprint as F
     from engine import pack as P
 
@@ -484,5 +484,5 @@ def test_no_thread_of_the_pack_runs_when_the_model_file_child_is_forked(monkeypa
     build_pack(tmp_path / "pack", data=data, spec=spec, loaded=lt, source_name="c.csv",
                model_file_in_background=True)
     assert events == ["model file writer", "thread fitladder-checks",
-                      "thread fitladder-intervals"]
+                      "thread fitladder-intervals", "thread fitladder-learning"]
     assert (tmp_path / "pack" / "model.skops").is_file()
